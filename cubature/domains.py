@@ -1,0 +1,135 @@
+"""Integration domains: axis-aligned boxes (possibly unbounded) and simplices."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+
+class DomainError(ValueError):
+    """A domain that cannot be integrated over (wrong shape, empty, degenerate)."""
+
+
+@dataclass(frozen=True, eq=False)
+class Box:
+    """The box ``[lower_0, upper_0] x ... x [lower_{d-1}, upper_{d-1}]``.
+
+    Any bound may be infinite (``-inf`` below, ``inf`` above); such axes are
+    mapped to finite ones by :mod:`cubature.transforms`.
+
+    Parameters
+    ----------
+    lower, upper : array_like, shape (d,)
+        Lower and upper bounds, ``lower < upper`` on every axis.
+    """
+
+    lower: np.ndarray
+    upper: np.ndarray
+
+    def __init__(self, lower, upper):
+        lo = np.atleast_1d(np.asarray(lower, dtype=float)).copy()
+        hi = np.atleast_1d(np.asarray(upper, dtype=float)).copy()
+        if lo.ndim != 1 or hi.ndim != 1 or lo.shape != hi.shape:
+            raise DomainError(
+                f"box bounds must be two equal-length lists, got shapes {lo.shape} and {hi.shape}")
+        if lo.size == 0:
+            raise DomainError("box needs at least one axis")
+        if np.isnan(lo).any() or np.isnan(hi).any():
+            raise DomainError("box bounds must not be NaN")
+        bad = np.nonzero(~(lo < hi))[0]
+        if bad.size:
+            i = int(bad[0])
+            raise DomainError(f"box axis {i}: lower bound {lo[i]:g} is not below upper bound {hi[i]:g}")
+        if np.isposinf(lo).any() or np.isneginf(hi).any():
+            raise DomainError("box: a lower bound of +inf or an upper bound of -inf is empty")
+        lo.flags.writeable = False
+        hi.flags.writeable = False
+        object.__setattr__(self, "lower", lo)
+        object.__setattr__(self, "upper", hi)
+
+    kind = "box"
+
+    @property
+    def dim(self) -> int:
+        """Dimension ``d``."""
+        return self.lower.size
+
+    @property
+    def bounded(self) -> bool:
+        """True when every bound is finite."""
+        return bool(np.isfinite(self.lower).all() and np.isfinite(self.upper).all())
+
+    def volume(self) -> float:
+        """Volume (``inf`` for an unbounded box)."""
+        return float(np.prod(self.upper - self.lower))
+
+    def describe(self) -> str:
+        """A short human-readable description."""
+        rows = ", ".join(f"[{a:g}, {b:g}]" for a, b in zip(self.lower, self.upper))
+        return f"box {rows}"
+
+    def to_json(self) -> dict:
+        """JSON-ready description (infinite bounds as strings)."""
+        return {"box": [[_jnum(a), _jnum(b)] for a, b in zip(self.lower, self.upper)]}
+
+
+@dataclass(frozen=True, eq=False)
+class Simplex:
+    """The simplex spanned by ``d + 1`` vertices in ``d`` dimensions.
+
+    Parameters
+    ----------
+    vertices : array_like, shape (d + 1, d)
+        Vertex coordinates.  The simplex must be non-degenerate: one whose
+        volume is below ``1e-12 * L**d / d!`` (``L`` the longest edge) is
+        rejected as flat.
+    """
+
+    vertices: np.ndarray
+
+    def __init__(self, vertices):
+        v = np.asarray(vertices, dtype=float)
+        if v.ndim != 2 or v.shape[0] != v.shape[1] + 1 or v.shape[1] < 1:
+            raise DomainError(
+                f"simplex needs d+1 vertices of d coordinates each, got an array of shape {v.shape}")
+        if not np.isfinite(v).all():
+            raise DomainError("simplex vertices must be finite numbers")
+        v = v.copy()
+        v.flags.writeable = False
+        object.__setattr__(self, "vertices", v)
+        vol = self.volume()
+        scale = max(float(np.max(np.linalg.norm(v[:, None, :] - v[None, :, :], axis=-1))), 1e-300)
+        if not vol > 1e-12 * scale ** self.dim / math.factorial(self.dim):
+            raise DomainError(
+                f"simplex is degenerate (volume {vol:.3g}): its vertices lie in a lower-dimensional plane")
+
+    kind = "simplex"
+
+    @property
+    def dim(self) -> int:
+        """Dimension ``d``."""
+        return self.vertices.shape[1]
+
+    @property
+    def bounded(self) -> bool:
+        return True
+
+    def volume(self) -> float:
+        """Volume ``|det(v_1 - v_0, ..., v_d - v_0)| / d!``."""
+        e = self.vertices[1:] - self.vertices[0]
+        return float(abs(np.linalg.det(e)) / math.factorial(self.dim))
+
+    def describe(self) -> str:
+        rows = ", ".join("(" + ", ".join(f"{c:g}" for c in row) + ")" for row in self.vertices)
+        return f"simplex {rows}"
+
+    def to_json(self) -> dict:
+        return {"simplex": self.vertices.tolist()}
+
+
+def _jnum(x: float):
+    if math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    return float(x)

@@ -1,0 +1,1 @@
+"""Example problem files bundled with cubage (data only)."""
