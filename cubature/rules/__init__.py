@@ -1,0 +1,148 @@
+"""Rule families and a cached registry.
+
+Families
+--------
+``"genz-malik"``
+    Degree-7/5 embedded pair on boxes, d >= 2 (Genz & Malik 1980).
+``"gauss-kronrod"``
+    Tensor K15/G7 Gauss–Kronrod pair on boxes, 1 <= d <= 5 (Kronrod 1965).
+``"grundmann-moller"``
+    Odd-degree embedded pairs on simplices, d >= 1 (Grundmann & Möller 1978).
+
+Rules returned by :func:`box_rule` and :func:`simplex_rule` are cached and
+shared, so their arrays are made read-only.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import numpy as np
+
+from .base import BoxRule, SimplexRule, choose_axis
+from .gauss_kronrod import MAX_DIM as GAUSS_KRONROD_MAX_DIM
+from .gauss_kronrod import gauss_kronrod_rule
+from .genz_malik import genz_malik_rule
+from .grundmann_moller import bisect_simplices, grundmann_moller_rule, simplex_volumes
+
+RULE_NAMES = ("genz-malik", "gauss-kronrod", "grundmann-moller")
+BOX_RULES = ("genz-malik", "gauss-kronrod")
+SIMPLEX_RULES = ("grundmann-moller",)
+
+__all__ = [
+    "RULE_NAMES", "BOX_RULES", "SIMPLEX_RULES", "BoxRule", "SimplexRule", "box_rule",
+    "simplex_rule", "default_rule", "genz_malik_rule", "gauss_kronrod_rule",
+    "grundmann_moller_rule", "bisect_simplices", "simplex_volumes", "choose_axis",
+]
+
+
+def _freeze(rule):
+    """Make every array of ``rule`` (including those in ``extra``) read-only."""
+    for name in ("nodes", "bary", "weights", "weights_low"):
+        arr = getattr(rule, name, None)
+        if isinstance(arr, np.ndarray):
+            arr.flags.writeable = False
+    for value in rule.extra.values():
+        if isinstance(value, np.ndarray):
+            value.flags.writeable = False
+    return rule
+
+
+def _unknown(name) -> ValueError:
+    return ValueError(f"unknown rule {name!r}; valid rules: {', '.join(RULE_NAMES)}")
+
+
+@lru_cache(maxsize=None)
+def box_rule(name: str, dim: int) -> BoxRule:
+    """Return the cached box rule of family ``name`` in dimension ``dim``.
+
+    Parameters
+    ----------
+    name : str
+        ``"genz-malik"`` (Genz & Malik 1980, d >= 2) or ``"gauss-kronrod"``
+        (Kronrod 1965, tensor K15/G7, 1 <= d <= 5).
+    dim : int
+        Dimension.
+
+    Returns
+    -------
+    BoxRule
+        Immutable rule (read-only arrays), shared between callers.
+
+    Raises
+    ------
+    ValueError
+        For an unknown name, a simplex family, or an unsupported dimension.
+    """
+    if name == "genz-malik":
+        return _freeze(genz_malik_rule(dim))
+    if name == "gauss-kronrod":
+        return _freeze(gauss_kronrod_rule(dim))
+    if name in SIMPLEX_RULES:
+        raise ValueError(f"rule {name!r} is for simplices, not boxes; box rules: {', '.join(BOX_RULES)}")
+    raise _unknown(name)
+
+
+@lru_cache(maxsize=None)
+def simplex_rule(name: str, dim: int, degree: int = 7) -> SimplexRule:
+    """Return the cached simplex rule of family ``name``.
+
+    Parameters
+    ----------
+    name : str
+        ``"grundmann-moller"`` (Grundmann & Möller 1978).
+    dim : int
+        Dimension ``d >= 1``.
+    degree : int
+        Odd degree ``>= 3`` (default 7, with an embedded degree-5 partner).
+
+    Returns
+    -------
+    SimplexRule
+        Immutable rule (read-only arrays), shared between callers.
+
+    Raises
+    ------
+    ValueError
+        For an unknown name, a box family, or an invalid dimension/degree.
+    """
+    if name == "grundmann-moller":
+        return _freeze(grundmann_moller_rule(dim, degree))
+    if name in BOX_RULES:
+        raise ValueError(f"rule {name!r} is for boxes, not simplices; simplex rules: {', '.join(SIMPLEX_RULES)}")
+    raise _unknown(name)
+
+
+def default_rule(kind: str, dim: int) -> str:
+    """Name of the default rule family for a domain kind and dimension.
+
+    Boxes with ``d <= 2`` get ``"gauss-kronrod"`` (225 nodes at d = 2, very
+    high degree per region); boxes with ``d >= 3`` get ``"genz-malik"``
+    (``2^d + 2 d^2 + 2 d + 1`` nodes, Genz & Malik 1980); simplices get
+    ``"grundmann-moller"`` (Grundmann & Möller 1978).  The thresholds are a
+    starting point and may be tuned.
+
+    Parameters
+    ----------
+    kind : str
+        ``"box"`` or ``"simplex"``.
+    dim : int
+        Dimension ``d >= 1``.
+
+    Returns
+    -------
+    str
+        One of :data:`RULE_NAMES`.
+
+    Raises
+    ------
+    ValueError
+        For an unknown kind or a dimension below 1.
+    """
+    if int(dim) != dim or dim < 1:
+        raise ValueError(f"dimension must be an integer >= 1, got {dim}")
+    if kind == "box":
+        return "gauss-kronrod" if dim <= 2 else "genz-malik"
+    if kind == "simplex":
+        return "grundmann-moller"
+    raise ValueError(f"unknown domain kind {kind!r}; valid kinds: box, simplex")

@@ -107,3 +107,42 @@ class SimplexRule:
     def size(self) -> int:
         """Number of nodes per region."""
         return self.bary.shape[0]
+
+
+def choose_axis(scores: np.ndarray, halfwidths: np.ndarray, scale: np.ndarray | None = None,
+                rtol: float = 1e-12) -> np.ndarray:
+    """Pick the axis with the largest score, resolving ties by width.
+
+    Shared tie-breaking for the ``split_axes`` methods of the rule families.
+    An axis is *tied* with the best one when its score is within
+    ``rtol * max_score + 64 * eps * scale`` of the maximum; among the tied
+    axes the widest wins (the lowest index on equal widths).  The absolute
+    term makes scores that are pure rounding noise (for instance every score
+    of a constant integrand) count as ties, so such a region is bisected
+    along its widest axis, deterministically.
+
+    Parameters
+    ----------
+    scores : ndarray, shape (n, d)
+        Non-negative per-axis variation measures of ``n`` regions.
+    halfwidths : ndarray, shape (n, d)
+        Half-widths of the regions.
+    scale : ndarray, shape (n,), optional
+        Magnitude of the integrand values of each region (for instance
+        ``max |f|`` over the nodes); rounding noise is measured against it.
+    rtol : float
+        Relative tie tolerance.
+
+    Returns
+    -------
+    ndarray of int, shape (n,)
+        Chosen axis per region.
+    """
+    scores = np.asarray(scores, dtype=float)
+    halfwidths = np.broadcast_to(np.asarray(halfwidths, dtype=float), scores.shape)
+    best = scores.max(axis=1, keepdims=True)
+    tol = rtol * best
+    if scale is not None:
+        tol = tol + 64.0 * np.finfo(float).eps * np.asarray(scale, dtype=float).reshape(-1, 1)
+    tied = scores >= best - tol
+    return np.argmax(np.where(tied, halfwidths, -np.inf), axis=1)
