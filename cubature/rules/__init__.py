@@ -52,7 +52,6 @@ def _unknown(name) -> ValueError:
     return ValueError(f"unknown rule {name!r}; valid rules: {', '.join(RULE_NAMES)}")
 
 
-@lru_cache(maxsize=None)
 def box_rule(name: str, dim: int) -> BoxRule:
     """Return the cached box rule of family ``name`` in dimension ``dim``.
 
@@ -74,6 +73,12 @@ def box_rule(name: str, dim: int) -> BoxRule:
     ValueError
         For an unknown name, a simplex family, or an unsupported dimension.
     """
+    return _box_rule(name, dim)
+
+
+@lru_cache(maxsize=None)
+def _box_rule(name: str, dim: int) -> BoxRule:
+    # cached on positional arguments so keyword and positional calls share entries
     if name == "genz-malik":
         return _freeze(genz_malik_rule(dim))
     if name == "gauss-kronrod":
@@ -83,7 +88,6 @@ def box_rule(name: str, dim: int) -> BoxRule:
     raise _unknown(name)
 
 
-@lru_cache(maxsize=None)
 def simplex_rule(name: str, dim: int, degree: int = 7) -> SimplexRule:
     """Return the cached simplex rule of family ``name``.
 
@@ -106,6 +110,13 @@ def simplex_rule(name: str, dim: int, degree: int = 7) -> SimplexRule:
     ValueError
         For an unknown name, a box family, or an invalid dimension/degree.
     """
+    return _simplex_rule(name, dim, degree)
+
+
+@lru_cache(maxsize=None)
+def _simplex_rule(name: str, dim: int, degree: int) -> SimplexRule:
+    # cached on the full argument tuple, so that the default degree and an
+    # explicit 7 share one entry
     if name == "grundmann-moller":
         return _freeze(grundmann_moller_rule(dim, degree))
     if name in BOX_RULES:
