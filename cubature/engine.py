@@ -328,6 +328,7 @@ class Run:
         self.rule = self.geometry.rule
         w3 = _third_weights(self.rule) if self.settings.estimate == "sharp" else None
         self._w = np.stack([self.rule.weights, self.rule.weights_low] + ([w3] if w3 is not None else []))
+        self._wt = np.ascontiguousarray(self._w.T)
         self.evaluator = evaluator
         self.integrand_id = fingerprint or _callable_name(f)
         self.snapshot_interval = snapshot_interval
@@ -452,8 +453,15 @@ class Run:
         p = self.rule.size
         fr = fx.reshape(k, p, -1)
         vol = self.geometry.volume(g)
-        q = np.matmul(self._w, fr) * vol[:, None, None]            # (k, r, m)
-        absq = np.matmul(self.rule.weights, np.abs(fr)) * vol[:, None]
+        if fr.shape[2] == 1:                                       # one GEMM for all rule values
+            f2 = fr[:, :, 0]
+            q = (f2 @ self._wt)[:, :, None]
+            absq = (np.abs(f2) @ self.rule.weights)[:, None]
+        else:
+            q = np.matmul(self._w, fr)                             # (k, r, m)
+            absq = np.matmul(self.rule.weights, np.abs(fr))
+        q *= vol[:, None, None]
+        absq *= vol[:, None]
         return q, np.abs(absq), fr
 
     def _errors(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:

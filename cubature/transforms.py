@@ -76,7 +76,7 @@ class AxisMap:
         """
         if self.identity:
             return t, None
-        x = t.copy()
+        x = t.copy(order="K")
         jac = np.ones(t.shape[0])
         for i in self._axes:
             k = self.kinds[i]
