@@ -609,7 +609,8 @@ class Run:
             return True
 
     def _finish(self, status: str) -> bool:
-        self._exact_totals()
+        if self.store is not None:  # a failure in the very first evaluation leaves no regions
+            self._exact_totals()
         self.status = status
         self.elapsed_before = self.elapsed()
         self._t_start = None
