@@ -1,0 +1,640 @@
+"""Evaluating a step's integrand points in parallel: processes, threads or a dask cluster.
+
+The engine calls ``evaluator(f, X)`` once per step with all of that step's
+points ``X`` (n, d) in user coordinates.  :func:`make_evaluator` builds such
+an evaluator (or returns ``None`` for the engine's own in-process call).
+
+Chunks and values
+-----------------
+A step's points are cut into chunks whose boundaries depend only on ``n`` and
+the chunk size (:func:`chunk_bounds`) -- never on timing, on the worker count
+or on the backend.  The integrand is called once per chunk, the chunks are
+grouped into tasks (a few per worker, consecutive chunks; the grouping changes
+only who computes a chunk, not what is computed) and the results are
+concatenated in order.  The integrand is elementwise per point, so the
+integral is bit-identical for any worker count and any backend, and whether
+or not the automatic mode decides to go parallel.
+
+Backends
+--------
+``"serial"``
+    In-process, no joblib (``make_evaluator`` returns ``None``).
+``"processes"``
+    joblib's loky process pool.  Works for any integrand.
+``"threads"``
+    joblib's thread pool; pays off only for integrands that release the GIL
+    (numpy ufuncs on large arrays do, pure-Python loops do not).
+``"dask"``
+    joblib's dask backend on a ``dask.distributed`` cluster (``cluster`` is
+    ``"tcp://host:8786"``, a scheduler-file path or a ``Client``).  Needs the
+    ``cluster`` extra: ``pip install 'cubage[cluster]'``.
+``"auto"`` (the default)
+    Serial until measurements say parallel pays, then ``processes`` (or
+    ``dask`` when a cluster is given), see below.
+
+The pool is created once and kept for the whole run: one ``joblib.Parallel``
+object entered as a context manager, so there is no pool start-up per step.
+:meth:`Evaluator.close` (or leaving a ``with`` block) shuts it down.
+
+How integrands travel
+---------------------
+* an expression (:class:`cubature.expr.CompiledExpression`, or a problem's
+  ``spec`` of kind ``"expr"``) travels as its source and is compiled once in
+  each worker process;
+* a Python integrand from a problem file travels as its import path (``spec``
+  of kind ``"python"``) and is imported once in each worker process; both are
+  cached in the one module-level dict :data:`_WORKER_INTEGRANDS`, keyed by the
+  spec's JSON;
+* any other callable is pickled the way joblib does by default (cloudpickle
+  for processes and dask; threads share it).
+
+The automatic rule
+------------------
+In ``"auto"`` mode every step starts in-process, timed with
+:func:`time.perf_counter`.  A timing counts as a measurement of the
+per-point cost once the call took at least :data:`MIN_MEASURE_SECONDS`
+(1 ms, so fixed call overhead is a few per cent at most); the estimate is the
+smallest per-point cost among the last two measurements, so one slow first
+call (imports, caches) cannot trigger the pool; nothing goes parallel before
+two measurements exist.  A step goes to the pool only if
+
+1. it has at least two chunks,
+2. its estimated serial time (per-point cost x n) exceeds
+   :data:`MIN_PARALLEL_SECONDS` (20 ms) and 10x the dispatch round-trip, and
+3. the serial evaluation time spent so far exceeds the backend's expected
+   start-up cost (:data:`STARTUP_SECONDS`, 0.5 s for processes), so that a
+   short run does not pay for a pool it cannot amortise.
+
+Before the pool exists the dispatch round-trip is a conservative constant
+(:data:`DISPATCH_GUESS`); right after the pool starts it is measured (a
+round of empty tasks, one per worker, after a warm-up round).  Cheap
+integrands therefore never start a pool, and a step that is small (early on,
+or at the end of a run) is still evaluated in-process.  The decision changes
+speed only, never the value.
+
+Failures
+--------
+An exception raised by the integrand in a worker, or a worker process that
+dies, raises :class:`cubature.IntegrandError` whose one-line message names the
+integrand (expression source or import path) and the error.  The evaluator
+stays usable and :meth:`Evaluator.close` still works.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import time
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+
+from .engine import IntegrandError
+
+__all__ = ["make_evaluator", "describe_evaluator", "chunk_bounds", "resolve_workers", "Evaluator",
+           "PoolEvaluator", "integrand_name", "BACKENDS", "MIN_PARALLEL_SECONDS", "MIN_MEASURE_SECONDS", "DISPATCH_GUESS",
+           "STARTUP_SECONDS"]
+
+#: Backend names accepted by :func:`make_evaluator`.
+BACKENDS = ("auto", "serial", "processes", "threads", "dask")
+
+#: A step goes parallel (in auto mode) only if its estimated serial time exceeds this (seconds).
+MIN_PARALLEL_SECONDS = 0.020
+#: ... and exceeds this multiple of the measured dispatch round-trip.
+DISPATCH_FACTOR = 10.0
+#: A serial call shorter than this (seconds) is not trusted as a per-point cost measurement.
+MIN_MEASURE_SECONDS = 0.001
+#: Dispatch round-trip assumed before a pool exists (seconds), per backend: conservative.
+DISPATCH_GUESS = {"processes": 0.002, "threads": 0.0002, "dask": 0.005}
+#: Serial evaluation time that must have been spent before a pool is started (seconds).
+STARTUP_SECONDS = {"processes": 0.5, "threads": 0.0, "dask": 0.0}
+
+#: Chunk size limits used when ``chunk_points`` is not given (see :func:`chunk_bounds`).
+CHUNK_MIN = 64
+CHUNK_MAX = 4096
+CHUNKS_PER_STEP = 64
+#: Tasks per worker in one step (consecutive chunks are grouped into tasks).
+TASKS_PER_WORKER = 2
+
+# The one piece of module-level state: integrands re-created from a spec inside a
+# worker process, keyed by the spec's JSON, so each worker compiles/imports once.
+_WORKER_INTEGRANDS: dict[str, Callable] = {}
+
+
+# ---------------------------------------------------------------------------
+# chunks
+# ---------------------------------------------------------------------------
+
+def chunk_bounds(n: int, chunk_points: int | None = None) -> np.ndarray:
+    """Chunk boundaries ``[0, b1, ..., n]`` for ``n`` points.
+
+    Parameters
+    ----------
+    n : int
+        Number of points in the step.
+    chunk_points : int, optional
+        Fixed chunk size.  Without it the size is ``ceil(n / 64)`` clamped to
+        [64, 4096]: a function of ``n`` alone.
+
+    Returns
+    -------
+    numpy.ndarray
+        Increasing int64 boundaries; chunk ``i`` is ``X[b[i]:b[i+1]]``.  They
+        depend only on ``n`` and ``chunk_points``, never on workers or timing.
+    """
+    n = int(n)
+    if chunk_points is None:
+        size = min(CHUNK_MAX, max(CHUNK_MIN, -(-n // CHUNKS_PER_STEP)))
+    else:
+        size = int(chunk_points)
+    if n <= 0:
+        return np.zeros(1, np.int64)
+    b = np.arange(0, n, size, dtype=np.int64)
+    return np.append(b, np.int64(n))
+
+
+def _group(bounds: np.ndarray, tasks: int) -> list[np.ndarray]:
+    """Split the chunk list into at most ``tasks`` runs of consecutive chunks."""
+    nchunks = bounds.size - 1
+    tasks = max(1, min(tasks, nchunks))
+    cut = np.linspace(0, nchunks, tasks + 1).round().astype(np.int64)
+    return [bounds[cut[i]:cut[i + 1] + 1] for i in range(tasks) if cut[i + 1] > cut[i]]
+
+
+# ---------------------------------------------------------------------------
+# the worker side
+# ---------------------------------------------------------------------------
+
+class _WorkerFailure(Exception):
+    """Raised inside a worker; carries only a plain message so it always unpickles."""
+
+    def __init__(self, message: str):
+        super().__init__(message)
+        self.message = message
+
+    def __reduce__(self):
+        return (_WorkerFailure, (self.message,))
+
+
+def _one_line(exc: BaseException) -> str:
+    msg = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {msg}" if msg else type(exc).__name__
+
+
+def _worker_integrand(key: str) -> Callable:
+    f = _WORKER_INTEGRANDS.get(key)
+    if f is None:
+        from .problem import integrand_from_spec
+        f = integrand_from_spec(json.loads(key))
+        _WORKER_INTEGRANDS[key] = f
+    return f
+
+
+def _eval_chunks(f: Callable, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    """Evaluate ``f`` chunk by chunk over ``X`` (chunk boundaries relative to ``X``)."""
+    out = []
+    for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+        r = np.asarray(f(X[a:b]), dtype=np.float64)
+        k = b - a
+        if r.ndim == 0:
+            r = np.full(k, float(r))
+        if r.ndim > 2 or r.shape[0] != k:
+            raise _WorkerFailure(f"returned shape {r.shape} for {k} points; expected ({k},) or ({k}, m)")
+        out.append(r)
+    return out[0] if len(out) == 1 else np.concatenate(out)
+
+
+def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+    """One task: re-create or unwrap the integrand, evaluate its chunks."""
+    kind, obj = payload
+    if kind == "spec":
+        try:
+            f = _worker_integrand(obj)
+        except Exception as exc:  # noqa: BLE001 - report whatever the import/compile raised
+            raise _WorkerFailure(f"could not be loaded in the worker: {_one_line(exc)}") from None
+    else:
+        f = obj
+    try:
+        with np.errstate(all="ignore"):
+            return _eval_chunks(f, X, bounds - bounds[0])
+    except _WorkerFailure:
+        raise
+    except Exception as exc:  # noqa: BLE001 - the user's code
+        raise _WorkerFailure(f"raised {_one_line(exc)}") from None
+
+
+def _noop() -> int:
+    return os.getpid()
+
+
+# ---------------------------------------------------------------------------
+# naming and options
+# ---------------------------------------------------------------------------
+
+def _clip(s: str, width: int = 80) -> str:
+    s = " ".join(str(s).split())
+    return s if len(s) <= width else s[: width - 3] + "..."
+
+
+def integrand_name(f: Callable | None = None, spec: dict | None = None) -> str:
+    """How error messages name the integrand: its expression or its import path."""
+    if spec is not None:
+        if spec.get("kind") == "python":
+            return _clip(str(spec.get("target")))
+        if spec.get("kind") == "expr":
+            src = spec.get("source")
+            src = "; ".join(src) if isinstance(src, (list, tuple)) else str(src)
+            return f'"{_clip(src)}"'
+    src = getattr(f, "source", None)
+    if isinstance(src, (str, list)) and hasattr(f, "variables"):
+        src = "; ".join(src) if isinstance(src, list) else src
+        return f'"{_clip(src)}"'
+    mod = getattr(f, "__module__", None) or "?"
+    qual = getattr(f, "__qualname__", None) or type(f).__name__
+    return _clip(f"{mod}:{qual}")
+
+
+def _spec_of(f: Callable, spec: dict | None) -> dict | None:
+    if spec is not None:
+        return spec
+    src = getattr(f, "source", None)
+    if hasattr(f, "variables") and hasattr(f, "constants") and isinstance(src, (str, list)):
+        return {"kind": "expr", "source": src, "variables": list(f.variables),
+                "constants": dict(f.constants)}
+    return None
+
+
+def resolve_workers(workers) -> int:
+    """``workers`` as a positive int (``"auto"`` = :func:`os.cpu_count`).
+
+    Raises
+    ------
+    ValueError
+        One line naming the option, for anything but a positive int or "auto".
+    """
+    if isinstance(workers, str):
+        w = workers.strip().lower()
+        if w == "auto":
+            return max(1, os.cpu_count() or 1)
+        try:
+            workers = int(w)
+        except ValueError:
+            raise ValueError(f"workers must be a positive integer or 'auto', got {workers!r}") from None
+    if isinstance(workers, bool) or not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise ValueError(f"workers must be a positive integer or 'auto', got {workers!r}")
+    return int(workers)
+
+
+def _need_distributed():
+    try:
+        import distributed  # noqa: F401
+        import joblib._dask  # noqa: F401  - registers joblib's "dask" backend
+    except ImportError:
+        raise ValueError("the dask backend needs the cluster extra: pip install 'cubage[cluster]'") from None
+    return distributed
+
+
+def _connect(cluster):
+    """A ``distributed.Client`` for an address, a scheduler file or a Client (returned as is)."""
+    distributed = _need_distributed()
+    if isinstance(cluster, distributed.Client):
+        return cluster, False, str(cluster.scheduler.address)
+    where = str(cluster).strip()
+    if not where:
+        raise ValueError("cluster must be a scheduler address (tcp://host:8786) or a scheduler-file path")
+    try:
+        if "://" in where:
+            client = distributed.Client(where, timeout="10s", set_as_default=False)
+        else:
+            if not Path(where).is_file():
+                raise ValueError(f"cluster {where!r}: no such scheduler file "
+                                 "(give tcp://host:port or the path of a scheduler file)")
+            client = distributed.Client(scheduler_file=where, timeout="10s", set_as_default=False)
+    except ValueError:
+        raise
+    except Exception as exc:  # noqa: BLE001 - OSError/TimeoutError from the network layer
+        raise ValueError(f"cannot reach the dask scheduler at {where}: {_one_line(exc)}") from None
+    return client, True, str(client.scheduler.address)
+
+
+# ---------------------------------------------------------------------------
+# evaluators
+# ---------------------------------------------------------------------------
+
+class Evaluator:
+    """Base class: ``evaluator(f, X) -> F``, a context manager with :meth:`close`."""
+
+    #: "serial" while steps are evaluated in-process, "parallel" once they go to the pool.
+    mode = "serial"
+
+    def __call__(self, f: Callable, X: np.ndarray) -> np.ndarray:
+        raise NotImplementedError
+
+    def describe(self) -> str:
+        """One line for the UI."""
+        raise NotImplementedError
+
+    def close(self) -> None:
+        """Release workers; idempotent."""
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+        return False
+
+
+class PoolEvaluator(Evaluator):
+    """Chunked evaluation on a joblib pool (loky processes, threads or dask).
+
+    Parameters
+    ----------
+    workers : int
+        Number of workers (ignored for dask, which uses the cluster's).
+    backend : {"processes", "threads", "dask"}
+        Pool kind.
+    cluster : str or distributed.Client, optional
+        For dask: ``tcp://host:port``, a scheduler-file path or a Client.
+    spec : dict, optional
+        ``Problem.integrand_spec``; the integrand is sent to workers as this
+        spec (expression source or import path) instead of being pickled.
+    chunk_points : int, optional
+        Fixed chunk size (default: :func:`chunk_bounds`'s rule).
+    auto : bool
+        Decide per step whether to use the pool (module docstring); the pool
+        starts only when first needed.  If False every step with two or more
+        chunks goes to the pool, started at once (a one-chunk step is
+        evaluated in-process: same value, no round-trip).
+    min_serial_seconds : float, optional
+        Auto mode: serial evaluation time to spend before the pool may start
+        (default :data:`STARTUP_SECONDS` of the backend).
+
+    Attributes
+    ----------
+    mode : str
+        "serial" until a step has gone to the pool, then "parallel".
+    steps_parallel, steps_serial : int
+        How many steps went each way.
+    cost_per_point : float or None
+        The current per-point cost estimate (seconds), auto mode.
+    dispatch_seconds : float or None
+        The measured dispatch round-trip, once the pool exists.
+    """
+
+    def __init__(self, workers: int = 2, backend: str = "processes", cluster=None, spec: dict | None = None,
+                 *, chunk_points: int | None = None, auto: bool = False,
+                 min_serial_seconds: float | None = None):
+        if backend not in ("processes", "threads", "dask"):
+            raise ValueError(f"backend must be one of processes, threads, dask here, got {backend!r}")
+        if chunk_points is not None and (isinstance(chunk_points, bool) or int(chunk_points) < 1):
+            raise ValueError(f"chunk_points must be a positive integer, got {chunk_points!r}")
+        self.backend = backend
+        self.workers = resolve_workers(workers)
+        self.spec = dict(spec) if spec is not None else None
+        self.chunk_points = None if chunk_points is None else int(chunk_points)
+        self.auto = bool(auto)
+        self.min_serial_seconds = (STARTUP_SECONDS[backend] if min_serial_seconds is None
+                                   else float(min_serial_seconds))
+        self.mode = "serial"
+        self.steps_parallel = 0
+        self.steps_serial = 0
+        self.cost_per_point: float | None = None
+        self.dispatch_seconds: float | None = None
+        self._measures: list[float] = []
+        self._serial_spent = 0.0
+        self._parallel = None
+        self._client = None
+        self._own_client = False
+        self._address = None
+        self._loky_executor = None
+        self._closed = False
+        self._payload_cache: tuple | None = None
+        if backend == "dask":
+            if cluster is None:
+                raise ValueError("the dask backend needs a cluster: --cluster tcp://host:8786 or a scheduler file")
+            self._client, self._own_client, self._address = _connect(cluster)
+        if not self.auto:
+            self._start()
+
+    # -- pool ----------------------------------------------------------------
+    def _effective_workers(self) -> int:
+        if self.backend == "dask" and self._client is not None:
+            try:
+                return max(1, sum(self._client.nthreads().values()))
+            except Exception:  # noqa: BLE001 - scheduler hiccup: grouping only
+                return max(1, self.workers)
+        return self.workers
+
+    def _start(self) -> None:
+        if self._parallel is not None:
+            return
+        import joblib
+        if self.backend == "processes":
+            par = joblib.Parallel(n_jobs=self.workers, backend="loky", return_as="list", batch_size=1,
+                                  pre_dispatch="all")
+        elif self.backend == "threads":
+            par = joblib.Parallel(n_jobs=self.workers, backend="threading", return_as="list", batch_size=1,
+                                  pre_dispatch="all")
+        else:
+            with joblib.parallel_config(backend="dask", client=self._client, wait_for_workers_timeout=30):
+                par = joblib.Parallel(n_jobs=-1, return_as="list", batch_size=1, pre_dispatch="all")
+        par.__enter__()
+        self._parallel = par
+        if self.backend == "processes":
+            self._loky_executor = getattr(par._backend, "_workers", None)
+        # warm-up (spawns loky workers), then time one round of empty tasks
+        w = self._effective_workers()
+        par(joblib.delayed(_noop)() for _ in range(w))
+        t0 = time.perf_counter()
+        par(joblib.delayed(_noop)() for _ in range(w))
+        self.dispatch_seconds = time.perf_counter() - t0
+
+    def worker_pids(self) -> list[int]:
+        """Process ids answering one round of empty tasks (for tests and diagnostics)."""
+        import joblib
+        if self._parallel is None:
+            return []
+        return sorted(set(self._parallel(joblib.delayed(_noop)() for _ in range(4 * self.workers))))
+
+    def close(self) -> None:
+        """Shut the pool down (and the dask client this evaluator opened); idempotent."""
+        if self._closed:
+            return
+        self._closed = True
+        par, self._parallel = self._parallel, None
+        if par is not None:
+            ex = getattr(par._backend, "_workers", None) or self._loky_executor
+            try:
+                par.__exit__(None, None, None)
+            except Exception:  # noqa: BLE001 - closing must not raise
+                pass
+            if self.backend == "processes" and ex is not None and hasattr(ex, "shutdown"):
+                try:
+                    ex.shutdown(wait=True)
+                except Exception:  # noqa: BLE001
+                    pass
+        self._loky_executor = None
+        if self._client is not None and self._own_client:
+            try:
+                self._client.close(timeout=10)
+            except Exception:  # noqa: BLE001
+                pass
+        self._client = None
+
+    # -- description ------------------------------------------------------------
+    def _pool_words(self) -> str:
+        if self.backend == "dask":
+            return f"dask at {self._address}"
+        if self.workers == 1:
+            return "1 worker (joblib runs it in-process)"
+        if self.backend == "threads":
+            return f"{self.workers} threads"
+        return f"{self.workers} loky processes"
+
+    def describe(self) -> str:
+        """One line, e.g. ``"2 loky processes"``, ``"dask at tcp://10.0.0.5:8786"`` or
+        ``"auto: in-process so far (0.05 us/point); 2 loky processes when a step is costly"``."""
+        if not self.auto:
+            return self._pool_words()
+        cost = "" if self.cost_per_point is None else f" ({self.cost_per_point * 1e6:.3g} us/point)"
+        if self.mode == "serial":
+            return f"auto: in-process so far{cost}; {self._pool_words()} when a step is costly"
+        return f"auto: {self._pool_words()}{cost}"
+
+    # -- evaluation ---------------------------------------------------------------
+    def _payload(self, f: Callable) -> tuple:
+        if self.backend == "threads":
+            return ("callable", f)
+        cached = self._payload_cache
+        if cached is not None and cached[0] is f:
+            return cached[1]
+        spec = _spec_of(f, self.spec)
+        payload = ("spec", json.dumps(spec, sort_keys=True)) if spec is not None else ("callable", f)
+        self._payload_cache = (f, payload)
+        return payload
+
+    def _want_parallel(self, n: int, nchunks: int) -> bool:
+        if nchunks < 2:
+            return False
+        if not self.auto:
+            return True
+        if len(self._measures) < 2:
+            return False
+        est = self.cost_per_point * n
+        dispatch = self.dispatch_seconds if self.dispatch_seconds is not None else DISPATCH_GUESS[self.backend]
+        if est <= max(MIN_PARALLEL_SECONDS, DISPATCH_FACTOR * dispatch):
+            return False
+        return self._parallel is not None or self._serial_spent >= self.min_serial_seconds
+
+    def _serial(self, f: Callable, X: np.ndarray):
+        t0 = time.perf_counter()
+        out = f(X)
+        if self.auto:
+            dt = time.perf_counter() - t0
+            self._serial_spent += dt
+            if dt >= MIN_MEASURE_SECONDS and X.shape[0] > 0:
+                self._measures = (self._measures + [dt / X.shape[0]])[-2:]
+                self.cost_per_point = min(self._measures)
+        self.steps_serial += 1
+        return out
+
+    def __call__(self, f: Callable, X: np.ndarray) -> np.ndarray:
+        if self._closed:
+            raise RuntimeError("this evaluator has been closed")
+        X = np.asarray(X, dtype=np.float64)
+        n = X.shape[0]
+        bounds = chunk_bounds(n, self.chunk_points)
+        if not self._want_parallel(n, bounds.size - 1):
+            return self._serial(f, X)
+        try:
+            self._start()
+        except Exception as exc:  # noqa: BLE001 - cannot start workers: say so, as an integrand failure
+            raise IntegrandError(f"could not start {self._pool_words()}: {_one_line(exc)}") from None
+        return self._dispatch(f, X, bounds)
+
+    def _dispatch(self, f: Callable, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
+        import joblib
+        payload = self._payload(f)
+        groups = _group(bounds, TASKS_PER_WORKER * self._effective_workers())
+        tasks = (joblib.delayed(_run_task)(payload, X[g[0]:g[-1]], g) for g in groups)
+        name = integrand_name(f, self.spec)
+        try:
+            parts = self._parallel(tasks)
+        except _WorkerFailure as exc:
+            raise IntegrandError(f"integrand {name} {exc.message} (in a worker: {self._pool_words()})") from None
+        except (KeyboardInterrupt, SystemExit):
+            raise
+        except BaseException as exc:  # noqa: BLE001 - dead worker, lost connection, unpickling trouble
+            raise IntegrandError(self._lost_worker_message(name, exc)) from None
+        self.mode = "parallel"
+        self.steps_parallel += 1
+        return parts[0] if len(parts) == 1 else np.concatenate(parts)
+
+    def _lost_worker_message(self, name: str, exc: BaseException) -> str:
+        kind = type(exc).__name__
+        first = (str(exc).strip().splitlines() or [""])[0].strip()
+        if kind in ("TerminatedWorkerError", "BrokenProcessPool", "KilledWorker", "CommClosedError"):
+            detail = f" ({kind}: {_clip(first, 160)})" if first else f" ({kind})"
+            return f"a worker died while evaluating integrand {name}{detail}"
+        return f"evaluating integrand {name} on {self._pool_words()} failed: {kind}: {_clip(first, 200)}"
+
+
+def make_evaluator(workers=1, backend: str = "auto", cluster=None, spec: dict | None = None, *,
+                   chunk_points: int | None = None) -> Evaluator | None:
+    """Build the evaluator the engine calls once per step.
+
+    Parameters
+    ----------
+    workers : int or "auto"
+        Number of local workers (``"auto"`` = :func:`os.cpu_count`).  Ignored
+        by the dask backend, which uses every worker of the cluster.
+    backend : {"auto", "serial", "processes", "threads", "dask"}
+        See the module docstring.  With ``cluster`` given, "auto" means dask.
+    cluster : str or distributed.Client, optional
+        Dask scheduler: ``"tcp://host:8786"`` or a scheduler-file path.
+    spec : dict, optional
+        ``Problem.integrand_spec``: how workers re-create the integrand.
+    chunk_points : int, optional
+        Fixed chunk size; by default a function of the step's point count.
+
+    Returns
+    -------
+    Evaluator or None
+        ``None`` when everything runs in-process (backend "serial", or "auto"
+        with one worker and no cluster): the engine then calls ``f(X)``
+        itself.  Otherwise an :class:`Evaluator`; close it when done (it is a
+        context manager).
+
+    Raises
+    ------
+    ValueError
+        One-line message for a bad option, dask without the cluster extra, or
+        a scheduler that cannot be reached.
+    """
+    if not isinstance(backend, str) or backend.strip().lower() not in BACKENDS:
+        raise ValueError(f"backend must be one of {', '.join(BACKENDS)}, got {backend!r}")
+    backend = backend.strip().lower()
+    w = resolve_workers(workers)
+    if cluster is not None and isinstance(cluster, str) and not cluster.strip():
+        cluster = None
+    if cluster is not None and backend not in ("auto", "dask"):
+        raise ValueError(f"a cluster is used by the dask backend only, not by backend {backend!r}")
+    if backend == "serial":
+        return None
+    if backend == "dask" or (backend == "auto" and cluster is not None):
+        _need_distributed()
+        return PoolEvaluator(w, "dask", cluster, spec, chunk_points=chunk_points, auto=(backend == "auto"))
+    if backend == "auto":
+        if w == 1:
+            return None
+        return PoolEvaluator(w, "processes", None, spec, chunk_points=chunk_points, auto=True)
+    return PoolEvaluator(w, backend, None, spec, chunk_points=chunk_points, auto=False)
+
+
+def describe_evaluator(evaluator: Evaluator | None) -> str:
+    """One line for the UI; ``None`` (the engine's own call) reads "in-process"."""
+    if evaluator is None:
+        return "in-process"
+    return evaluator.describe()
