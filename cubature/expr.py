@@ -101,8 +101,11 @@ def _max(*args):
 FUNCTIONS: dict[str, tuple[object, int, int | None]] = {}
 
 
-def _add(names, fn, lo, hi=None):
-    hi = lo if hi is None else hi
+_SAME = object()
+
+
+def _add(names, fn, lo, hi=_SAME):
+    hi = lo if hi is _SAME else hi
     for n in names.split():
         FUNCTIONS[n] = (fn, lo, hi)
 
