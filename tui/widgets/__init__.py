@@ -1,0 +1,1 @@
+"""The run view's widgets, each rendering one thing."""

@@ -1,0 +1,140 @@
+"""cubage's text UI: pick a problem, watch it integrate, or follow a headless run.
+
+Entry point :func:`main` (called by ``cubage tui`` and ``cubage watch``).
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from textual.app import App
+from textual.binding import Binding
+
+from cubature.problem import ProblemError, list_problems, problem_dirs
+
+from .follow import PROBLEM, RunDirFollower
+from .meta import ProblemMeta, meta_from_file
+from .picker import PickerScreen
+from .run_view import RunView
+
+
+class CubageApp(App):
+    """The application: a picker screen (or, when following, a run view alone).
+
+    Parameters
+    ----------
+    files : list of Path
+        Problem files for the picker.
+    follow : (RunDirFollower, ProblemMeta), optional
+        Follow this run directory instead of offering the picker.
+    trust_code : bool
+        Import Python integrands without asking.
+    """
+
+    CSS_PATH = "app.tcss"
+    TITLE = "cubage"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False, priority=True)]
+
+    def __init__(self, files: list[Path] | None = None, follow: tuple[RunDirFollower, ProblemMeta] | None = None,
+                 trust_code: bool = False):
+        super().__init__()
+        self.files = list(files or [])
+        self.follow = follow
+        self.trust_code = trust_code
+
+    def on_mount(self) -> None:
+        if self.follow is not None:
+            follower, meta = self.follow
+            self.push_screen(RunView(meta, follower=follower, can_go_back=False))
+        else:
+            self.push_screen(PickerScreen(self.files, trust_code=self.trust_code))
+
+    async def action_quit(self) -> None:
+        screen = self.screen
+        if isinstance(screen, RunView):
+            screen.action_leave()
+        else:
+            self.exit(0)
+
+
+def collect_files(paths: list[str] | None) -> list[Path]:
+    """Problem files from files and folders in ``paths`` (default: :func:`problem_dirs`).
+
+    Raises
+    ------
+    FileNotFoundError
+        Naming the first path that does not exist.
+    """
+    if not paths:
+        return list_problems(problem_dirs())
+    out: list[Path] = []
+    for p in paths:
+        q = Path(p)
+        if q.is_dir():
+            out.extend(list_problems([q]))
+        elif q.is_file():
+            out.append(q)
+        else:
+            raise FileNotFoundError(p)
+    seen, uniq = set(), []
+    for f in out:
+        k = f.resolve()
+        if k not in seen:
+            seen.add(k)
+            uniq.append(f)
+    return uniq
+
+
+def main(paths: list[str] | None = None, watch: str | None = None, trust_code: bool = False) -> int:
+    """Run the text UI; returns the exit code.
+
+    Parameters
+    ----------
+    paths : list of str, optional
+        Problem files or folders for the picker (default: ``./problems`` when
+        present, else the bundled examples).
+    watch : str, optional
+        A run directory of a headless run to follow instead.
+    trust_code : bool
+        Import Python integrands without asking first.
+
+    Returns
+    -------
+    int
+        0 on a normal exit, 2 for bad input (message on stderr).
+    """
+    follow = None
+    files: list[Path] = []
+    if watch is not None:
+        d = Path(watch)
+        if not d.is_dir():
+            print(f"cubage watch: {watch}: no such run directory", file=sys.stderr)
+            return 2
+        if not (d / PROBLEM).is_file():
+            print(f"cubage watch: {watch}: not a run directory (no {PROBLEM})", file=sys.stderr)
+            return 2
+        try:
+            meta = meta_from_file(d / PROBLEM)
+        except ProblemError as exc:
+            print(f"cubage watch: {str(exc).splitlines()[0]}", file=sys.stderr)
+            return 2
+        follow = (RunDirFollower(d), meta)
+    else:
+        try:
+            files = collect_files(paths)
+        except FileNotFoundError as exc:
+            print(f"cubage tui: {exc.args[0]}: no such file or folder", file=sys.stderr)
+            return 2
+        if not files:
+            where = ", ".join(paths) if paths else ", ".join(str(p) for p in problem_dirs())
+            print(f"cubage tui: no problem files (*.toml) in {where}", file=sys.stderr)
+            return 2
+    app = CubageApp(files, follow=follow, trust_code=trust_code)
+    rc = app.run()
+    return int(rc) if isinstance(rc, int) else int(app.return_code or 0)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main(sys.argv[1:] or None))

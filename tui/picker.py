@@ -1,0 +1,242 @@
+"""The problem picker: a list of problem files, a preview, and goal overrides."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+from rich.markup import escape
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, VerticalScroll
+from textual.screen import Screen
+from textual.widgets import Footer, Header, Input, Label, OptionList, Static
+from textual.widgets.option_list import Option
+
+from cubature.problem import Problem, ProblemError, load_problem
+
+from .confirm import AskModal
+from .meta import ProblemMeta, uses_python
+
+
+def parse_overrides(rel: str, abs_: str, workers: str) -> dict:
+    """The picker's three inputs as run overrides (blank = the problem's own).
+
+    Raises
+    ------
+    ValueError
+        With a one-line message naming the input.
+    """
+    out: dict = {}
+    for name, key, text in (("rel tol", "rel_tol", rel), ("abs tol", "abs_tol", abs_)):
+        text = text.strip()
+        if not text:
+            continue
+        try:
+            v = float(text)
+        except ValueError:
+            raise ValueError(f"{name}: {text!r} is not a number") from None
+        if not (v >= 0) or math.isinf(v):
+            raise ValueError(f"{name}: must be a finite number >= 0, got {text}")
+        out[key] = v
+    w = workers.strip()
+    if w:
+        if w == "auto":
+            out["workers"] = "auto"
+        else:
+            try:
+                n = int(w)
+            except ValueError:
+                raise ValueError(f"workers: {w!r} is not a whole number or 'auto'") from None
+            if n < 1:
+                raise ValueError(f"workers: must be at least 1, got {n}")
+            out["workers"] = n
+    if out.get("rel_tol") == 0 and out.get("abs_tol", 1.0) == 0:
+        raise ValueError("rel tol and abs tol cannot both be 0")
+    return out
+
+
+class PickerScreen(Screen):
+    """Choose a problem file, check its preview, override the goal, open it.
+
+    Parameters
+    ----------
+    files : list of Path
+        Problem files to offer.
+    trust_code : bool
+        Import Python integrands without asking.
+    """
+
+    BINDINGS = [
+        Binding("enter", "open", "Open & run", priority=True),
+        Binding("tab", "focus_next", "Next field", show=True),
+        Binding("ctrl+r", "reload", "Reload"),
+        Binding("escape", "focus_list", "List", show=False),
+        Binding("ctrl+q", "app.quit", "Quit"),
+    ]
+
+    def __init__(self, files: list[Path], trust_code: bool = False):
+        super().__init__()
+        self.files = [Path(f) for f in files]
+        self.trust_code = trust_code
+        self._cache: dict[Path, tuple[Problem | None, str | None]] = {}
+
+    def compose(self) -> ComposeResult:
+        yield Header()
+        with Horizontal(id="picker-body"):
+            ol = OptionList(*[Option(self._label(f), id=str(i)) for i, f in enumerate(self.files)],
+                            id="problem-list", classes="panel")
+            ol.border_title = f"Problems ({len(self.files)})"
+            yield ol
+            with VerticalScroll(id="preview-scroll", classes="panel") as vs:
+                vs.border_title = "Preview"
+                yield Static("", id="preview")
+        with Horizontal(id="overrides"):
+            yield Label("rel tol")
+            yield Input(id="in-rel", placeholder="problem's")
+            yield Label("abs tol")
+            yield Input(id="in-abs", placeholder="problem's")
+            yield Label("workers")
+            yield Input(id="in-workers", placeholder="problem's")
+        yield Footer()
+
+    def _label(self, f: Path) -> Text:
+        t = Text(f.stem)
+        return t
+
+    def on_mount(self) -> None:
+        self.app.sub_title = "choose a problem"
+        ol = self.query_one("#problem-list", OptionList)
+        if self.files:
+            ol.highlighted = 0
+            self._preview(0)
+        else:
+            self.query_one("#preview", Static).update(Text("No problem files (*.toml) found in the given folders.",
+                                                           style="bold #f08a5d"))
+        ol.focus()
+
+    # -- preview --------------------------------------------------------------------
+    def _load(self, path: Path) -> tuple[Problem | None, str | None]:
+        if path not in self._cache:
+            try:
+                self._cache[path] = (load_problem(path, trust_code=False), None)
+            except ProblemError as exc:
+                self._cache[path] = (None, str(exc))
+        return self._cache[path]
+
+    @property
+    def current(self) -> Path | None:
+        idx = self.query_one("#problem-list", OptionList).highlighted
+        if idx is None or not (0 <= idx < len(self.files)):
+            return None
+        return self.files[idx]
+
+    def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
+        self._preview(event.option_index)
+
+    def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:
+        self.action_open()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        self.action_open()
+
+    def _preview(self, idx: int) -> None:
+        path = self.files[idx]
+        prob, err = self._load(path)
+        target = uses_python(path)
+        out = Table.grid(padding=(0, 1))
+        out.add_column(style="#8fa3bf", no_wrap=True)
+        out.add_column(overflow="fold")
+        if prob is not None:
+            out.add_row(Text(prob.title or path.stem, style="bold #e6e6e6"), "")
+            out.add_row("file", str(path))
+            if prob.notes:
+                out.add_row("notes", prob.notes.strip())
+            for label, text in prob.describe():
+                out.add_row(label, text)
+            g = prob.goal
+            self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(prob.method.workers))
+        elif target is not None and err is not None and "your own Python code" in err:
+            try:
+                from .meta import meta_from_file
+                meta = meta_from_file(path)
+                out.add_row(Text(meta.title, style="bold #e6e6e6"), "")
+                out.add_row("file", str(path))
+                out.add_row("dimension", f"{meta.dim} ({', '.join(meta.variables)})")
+                if meta.reference is not None:
+                    out.add_row("reference", f"{meta.reference}  ({meta.reference_source})")
+            except ProblemError as exc:
+                out.add_row("file", str(path))
+                out.add_row(Text("error", style="bold #ff5f6d"), Text(str(exc), style="#ff5f6d"))
+            out.add_row("integrand", Text(f"python {target}", style="#e8c547"))
+            out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
+                                 "first" + (" (trusted for this session)." if self.trust_code else "."),
+                                 style="italic"))
+            self._placeholders("problem's", "problem's", "problem's")
+        else:
+            out.add_row(Text(path.stem, style="bold #e6e6e6"), "")
+            out.add_row("file", str(path))
+            out.add_row(Text("invalid", style="bold #ff5f6d"), "")
+            out.add_row("", Text(err or "", style="#ff5f6d"))
+            self._placeholders("problem's", "problem's", "problem's")
+        self.query_one("#preview", Static).update(out)
+
+    def _placeholders(self, rel: str, abs_: str, workers: str) -> None:
+        self.query_one("#in-rel", Input).placeholder = rel
+        self.query_one("#in-abs", Input).placeholder = abs_
+        self.query_one("#in-workers", Input).placeholder = workers
+
+    def _say(self, text: str) -> None:
+        self.query_one("#preview", Static).update(Text(text, style="bold #ff5f6d"))
+
+    # -- actions --------------------------------------------------------------------------
+    def action_focus_list(self) -> None:
+        self.query_one("#problem-list", OptionList).focus()
+
+    def action_reload(self) -> None:
+        self._cache.clear()
+        idx = self.query_one("#problem-list", OptionList).highlighted
+        if idx is not None:
+            self._preview(idx)
+
+    def action_open(self) -> None:
+        path = self.current
+        if path is None:
+            return
+        try:
+            overrides = parse_overrides(self.query_one("#in-rel", Input).value,
+                                        self.query_one("#in-abs", Input).value,
+                                        self.query_one("#in-workers", Input).value)
+        except ValueError as exc:
+            self.notify(str(exc), title="Cannot open", severity="error")
+            return
+        target = uses_python(path)
+        if target is not None and not self.trust_code:
+            def answer(yes: bool | None) -> None:
+                if yes:
+                    self._open(path, overrides, trust=True)
+            self.app.push_screen(AskModal(f"{escape(path.name)} runs your own Python code "
+                                          f"([b]{escape(target)}[/b]).\nImport and run it?",
+                                          title="Python integrand"), answer)
+            return
+        self._open(path, overrides, trust=target is not None)
+
+    def _open(self, path: Path, overrides: dict, trust: bool) -> None:
+        from .run_view import RunView
+        try:
+            prob = load_problem(path, trust_code=trust)
+        except ProblemError as exc:
+            self._cache[path] = (None, str(exc))
+            idx = self.query_one("#problem-list", OptionList).highlighted
+            if idx is not None:
+                self._preview(idx)
+            self.notify(exc.headline if hasattr(exc, "headline") else str(exc), title="Cannot open",
+                        severity="error")
+            return
+        self.app.push_screen(RunView(ProblemMeta.from_problem(prob), problem=prob, overrides=overrides,
+                                     can_go_back=True))
+
+    def on_screen_resume(self) -> None:
+        self.app.sub_title = "choose a problem"

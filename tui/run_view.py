@@ -1,0 +1,503 @@
+"""The run view: one integration, live (driven here) or followed (from a run directory)."""
+
+from __future__ import annotations
+
+import dataclasses
+import inspect
+import math
+from pathlib import Path
+
+import numpy as np
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal
+from textual.reactive import reactive
+from textual.screen import Screen
+from textual.widgets import Footer, Header, Static, TabbedContent, TabPane
+
+from cubature import DEFAULT_MAX_EVALS, IntegrandError, Run
+from cubature.engine import Snapshot
+
+from .confirm import AskModal
+from .follow import RunDirFollower
+from .meta import ProblemMeta
+from .results import result_path, result_record, write_result
+from .widgets.convergence import ConvergenceChart
+from .widgets.density import RefinementMap
+from .widgets.notes import NotesLog
+from .widgets.queue import QueueTrend, WorstRegions
+from .widgets.readout import FINAL, Readout
+
+#: Refresh period of the screen (seconds): at most ~4 redraws a second.
+REFRESH = 0.25
+#: Poll period of a followed run directory (seconds).
+FOLLOW_POLL = 0.5
+SLOW_RATE = 1e4
+PANELS = ("queue-tab", "map-tab", "notes-tab")
+#: Goal-changing statuses after which a tightened goal lets the run go on.
+REOPENABLE = ("converged", "max-evals", "time-limit")
+
+
+def make_evaluator(problem, workers) -> tuple[object | None, str]:
+    """An evaluator for ``workers`` through ``cubature.parallel.make_evaluator`` when it exists.
+
+    Returns
+    -------
+    evaluator or None, str
+        None means serial, in-process; the string says what was chosen.
+    """
+    if workers in (None, 1, "1"):
+        return None, "serial (1 worker)"
+    try:
+        from cubature import parallel  # written by another part of the project
+        factory = parallel.make_evaluator
+    except (ImportError, AttributeError):
+        return None, "serial (the parallel evaluators are not available in this install)"
+    try:
+        params = inspect.signature(factory).parameters
+    except (TypeError, ValueError):
+        params = {}
+    offer = {"workers": workers, "backend": getattr(problem.method, "backend", "auto"),
+             "cluster": getattr(problem.method, "cluster", None), "spec": problem.integrand_spec,
+             "integrand_spec": problem.integrand_spec}
+    kw = {k: v for k, v in offer.items() if k in params}
+    try:
+        ev = factory(**kw)
+    except Exception as exc:  # noqa: BLE001 - fall back to serial, say why
+        return None, f"serial (parallel evaluator failed: {type(exc).__name__}: {exc})"
+    return ev, f"{workers} workers"
+
+
+class RunView(Screen):
+    """Live view of one run.
+
+    Parameters
+    ----------
+    meta : ProblemMeta
+        Title, variable names, reference, axis kinds.
+    problem : Problem, optional
+        For a run driven here: the parsed problem (with its integrand).
+    overrides : dict, optional
+        ``rel_tol``, ``abs_tol``, ``workers`` chosen in the picker.
+    follower : RunDirFollower, optional
+        For a run followed from its run directory instead.
+    can_go_back : bool
+        Whether a problem list lies below this screen.
+    """
+
+    BINDINGS = [
+        Binding("g", "begin", "Go"),
+        Binding("space", "hold", "Hold/resume"),
+        Binding("h", "halt", "Halt+keep"),
+        Binding("right_square_bracket", "tighter", "Tol÷10"),
+        Binding("left_square_bracket", "looser", "Tol×10"),
+        Binding("w", "write", "Write"),
+        Binding("a", "axes", "Axes"),
+        Binding("v", "panel", "Panel"),
+        Binding("b", "back", "Problems"),
+        Binding("q", "leave", "Quit"),
+    ]
+
+    #: What the run is doing: ready, running, paused, stopping, waiting or a final status word.
+    state: reactive[str] = reactive("ready")
+
+    def __init__(self, meta: ProblemMeta, problem=None, overrides: dict | None = None,
+                 follower: RunDirFollower | None = None, can_go_back: bool = True):
+        super().__init__()
+        self.meta = meta
+        self.problem = problem
+        self.overrides = dict(overrides or {})
+        self.follower = follower
+        self.can_go_back = can_go_back
+        self.run: Run | None = None
+        self.evaluator = None
+        self.result_file: Path | None = None
+        self._pending: Snapshot | None = None
+        self._shown: Snapshot | None = None
+        self._started = False
+        self._engine_live = False
+        self._warned: set[str] = set()
+        self._last_message = ""
+        self._final_reported = False
+
+    # -- layout ----------------------------------------------------------------
+    def compose(self) -> ComposeResult:
+        yield Header()
+        with Horizontal(id="top"):
+            r = Readout(self.meta, id="readout", classes="panel")
+            r.border_title = "Estimate"
+            yield r
+            c = ConvergenceChart(self.meta, id="chart", classes="panel")
+            c.border_title = "Convergence · log-log"
+            yield c
+        yield Static("", id="ticker")
+        with TabbedContent(id="lower"):
+            with TabPane("Queue", id="queue-tab"):
+                with Horizontal(id="queue-pane"):
+                    yield QueueTrend(id="trend")
+                    yield WorstRegions(self.meta, id="worst")
+            with TabPane("Map", id="map-tab"):
+                yield RefinementMap(self.meta, id="map")
+            with TabPane("Notes", id="notes-tab"):
+                yield NotesLog(id="notes")
+        yield Footer()
+
+    @property
+    def notes(self) -> NotesLog:
+        return self.query_one("#notes", NotesLog)
+
+    def say(self, text: str, level: str = "info") -> None:
+        """A line in the message pane, and in the ticker above the panels."""
+        self.notes.say(text, level)
+        t = self.query_one("#ticker", Static)
+        t.update(text)
+        t.set_class(level == "warn", "warn")
+        t.set_class(level == "error", "error")
+
+    def on_mount(self) -> None:
+        self.app.sub_title = self.meta.title
+        self._update_map_title()
+        if self.follower is not None:
+            self.state = "waiting"
+            self.say(f"following {self.follower.dir} (reading {self.follower.progress_path.name} every "
+                     f"{FOLLOW_POLL:g} s); h asks the runner to stop")
+            self._poll_follower()
+            self.set_interval(FOLLOW_POLL, self._poll_follower)
+        else:
+            self._make_run()
+            self.set_interval(REFRESH, self._tick)
+
+    def _update_map_title(self) -> None:
+        m = self.query_one("#map", RefinementMap)
+        i, j = m.axes()
+        v = self.meta.variables
+        name = (lambda k: v[k] if k < len(v) else f"x{k}")
+        m.border_title = None
+        label = f"{name(i)} × {name(j)}" if self.meta.dim >= 2 else name(i)
+        self.query_one("#lower", TabbedContent).get_tab("map-tab").label = f"Map {label}"
+
+    # -- the engine, driven here -------------------------------------------------
+    def _make_run(self) -> None:
+        p = self.problem
+        g = p.goal
+        rel = self.overrides.get("rel_tol", g.rel_tol)
+        abs_ = self.overrides.get("abs_tol", g.abs_tol)
+        workers = self.overrides.get("workers", p.method.workers)
+        kw = dict(rel_tol=rel, abs_tol=abs_, max_evals=g.max_evals or DEFAULT_MAX_EVALS,
+                  time_limit=g.time_limit, rule=p.method.rule)
+        if p.method.degree is not None:
+            kw["degree"] = p.method.degree
+        self.evaluator, how = make_evaluator(p, workers)
+        try:
+            self.run = Run(p.integrand, p.domain, evaluator=self.evaluator, fingerprint=p.fingerprint(),
+                           snapshot_interval=0.1, **kw)
+        except (ValueError, TypeError) as exc:
+            self.run = None
+            self.state = "failed"
+            self.say(f"cannot set up the run: {exc}", "error")
+            return
+        self._pending = self.run.snapshot()
+        self._tick()
+        self.say(f"ready: rel_tol {rel:g}, abs_tol {abs_:g}, rule {self.run.rule_name}, {how}; press g to go")
+
+    def _derive_state(self) -> str:
+        run = self.run
+        if run is None:
+            return self.state
+        if not self._started:
+            return "ready"
+        if run.done:
+            return run.status
+        if run._stop.is_set():
+            return "stopping"
+        return "paused" if run.paused else "running"
+
+    @work(thread=True, exclusive=True, group="engine")
+    def _drive(self) -> None:
+        """Worker thread: iterate the run, keep only the newest snapshot for the UI."""
+        run = self.run
+        err = None
+        try:
+            for snap in run:
+                self._pending = snap
+        except IntegrandError as exc:
+            err = str(exc)
+        except Exception as exc:  # noqa: BLE001 - report anything, never kill the UI
+            err = f"{type(exc).__name__}: {exc}"
+        self._pending = run.snapshot()
+        try:
+            self.app.call_from_thread(self._engine_done, err)
+        except RuntimeError:  # the app is gone
+            pass
+
+    def _start_engine(self) -> None:
+        self._started = True
+        self._engine_live = True
+        self._drive()
+        self.state = self._derive_state()
+        self.refresh_bindings()
+
+    def _engine_done(self, err: str | None) -> None:
+        self._engine_live = False
+        self._tick()
+        run = self.run
+        st = run.status
+        self.state = st
+        if err is not None:
+            self.say(f"integrand failure: {err}", "error")
+        elif st == "converged":
+            self.say("converged: the error estimate met the goal (an estimate, not a bound)", "ok")
+        else:
+            self.say(f"finished with status {st}: NOT converged", "warn")
+        if st == "stopped":
+            self._save("stopped early, current estimate kept")
+        self.refresh_bindings()
+
+    def _tick(self) -> None:
+        snap = self._pending
+        if snap is not None and snap is not self._shown:
+            self._show(snap)
+        if self.follower is None:
+            self.state = self._derive_state()
+
+    # -- the run, followed from its directory ----------------------------------------
+    def _poll_follower(self) -> None:
+        f = self.follower
+        try:
+            n = f.poll()
+        except OSError as exc:
+            self.say(f"cannot read {f.progress_path}: {exc}", "error")
+            return
+        if f.last_error and f.last_error not in self._warned:
+            self._warned.add(f.last_error)
+            self.say(f.last_error, "warn")
+        if n and f.snapshot is not None:
+            self._show(f.snapshot)
+        res = f.result
+        if res is not None:
+            if not self._final_reported:
+                self._final_reported = True
+                self._show_result(res)
+            self.state = str(res.get("status", "stopped"))
+        elif f.snapshot is not None:
+            st = f.snapshot.status
+            self.state = "stopping" if (f.stop_requested and st not in FINAL) else st
+            if f.runner_alive() is False and "gone" not in self._warned:
+                self._warned.add("gone")
+                self.say("the runner process is no longer alive and wrote no result", "warn")
+        self.refresh_bindings()
+
+    def _show_result(self, res: dict) -> None:
+        snap = self._shown
+        val, err = res.get("value"), res.get("error")
+        if snap is not None and val is not None:
+            v = np.atleast_1d(np.asarray(val, dtype=float))
+            e = np.atleast_1d(np.asarray(err, dtype=float))
+            if v.shape == snap.value.shape:
+                snap = dataclasses.replace(snap, value=v, error=e, status=str(res.get("status", snap.status)),
+                                           evaluations=int(res.get("evaluations", snap.evaluations)),
+                                           regions=int(res.get("regions", snap.regions)))
+                self._show(snap)
+        st = str(res.get("status"))
+        vt = val if not isinstance(val, float) else f"{val:.14g}"
+        et = err if not isinstance(err, float) else f"{err:.3e}"
+        level = "ok" if st == "converged" else "warn"
+        tail = "" if st == "converged" else " — NOT converged"
+        self.say(f"result.json: status {st}, value {vt} ± {et} (estimate){tail}", level)
+
+    # -- showing a snapshot -----------------------------------------------------------
+    def _show(self, snap: Snapshot) -> None:
+        self._shown = snap
+        for sel, cls in (("#readout", Readout), ("#chart", ConvergenceChart), ("#trend", QueueTrend),
+                         ("#worst", WorstRegions), ("#map", RefinementMap)):
+            self.query_one(sel, cls).snap = snap
+        self._warn(snap)
+
+    def _warn(self, snap: Snapshot) -> None:
+        if snap.evaluations == 0:
+            return
+        if not np.all(np.isfinite(snap.value)) and "nonfinite" not in self._warned:
+            self._warned.add("nonfinite")
+            self.say("the estimate is not finite (NaN or inf)", "error")
+        if snap.message and snap.message != self._last_message:
+            self._last_message = snap.message
+            self.say(snap.message, "error" if snap.status == "failed" else "warn")
+        if snap.max_evals and snap.evaluations >= 0.9 * snap.max_evals and "budget" not in self._warned:
+            self._warned.add("budget")
+            self.say(f"budget nearly spent: {snap.evaluations:,} of {snap.max_evals:,} evaluations "
+                     f"({snap.evaluations / snap.max_evals:.0%})", "warn")
+        if (snap.elapsed > 1.0 and 0 < snap.rate < SLOW_RATE and snap.status not in FINAL
+                and "slow" not in self._warned):
+            self._warned.add("slow")
+            self.say(f"slow integrand: {snap.rate:,.0f} evaluations/s (under {SLOW_RATE:,.0f}/s); "
+                     "consider more workers", "warn")
+
+    # -- keys ------------------------------------------------------------------------------
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        follow = self.follower is not None
+        if action == "back":
+            return self.can_go_back
+        if action in ("begin", "tighter", "looser", "hold"):
+            if follow:
+                return False
+            if self.run is None:
+                return None
+            if action == "begin":
+                return None if (self._started or self.state == "failed") else True
+            if action == "hold":
+                return True if self._engine_live else None
+        if action == "halt":
+            if follow:
+                done = self.follower.result is not None or self.follower.stop_requested
+                return None if done else True
+            return True if self._engine_live else None
+        return True
+
+    def action_begin(self) -> None:
+        if self.run is None or self._started:
+            return
+        self.say("running (engine in a worker thread)")
+        self._start_engine()
+
+    def action_hold(self) -> None:
+        run = self.run
+        if run is None or not self._engine_live:
+            return
+        if run.paused:
+            run.resume()
+            self.say("resumed")
+        else:
+            run.pause()
+            self.say("on hold (press space to resume)")
+        self.state = self._derive_state()
+
+    def action_halt(self) -> None:
+        if self.follower is not None:
+            if self.follower.result is not None:
+                return
+            p = self.follower.request_stop()
+            self.say(f"asked the runner to stop: wrote {p}; it will checkpoint and write result.json", "warn")
+            self.state = "stopping"
+            self.refresh_bindings()
+            return
+        if self.run is None or not self._engine_live:
+            return
+        self.run.stop()
+        self.say("stopping now: the current estimate is kept (NOT converged) and will be written", "warn")
+        self.state = self._derive_state()
+
+    def _scale_goal(self, factor: float) -> None:
+        run = self.run
+        if run is None:
+            return
+        s = run.settings
+        rel = s.rel_tol * factor
+        abs_ = s.abs_tol * factor if s.abs_tol > 0 else None
+        was = run.status
+        try:
+            run.set_goal(rel_tol=rel, abs_tol=abs_)
+        except ValueError as exc:
+            self.say(f"cannot change the goal: {exc}", "error")
+            return
+        word = "tightened" if factor < 1 else "loosened"
+        self.say(f"goal {word}: rel_tol {run.settings.rel_tol:g}, abs_tol {run.settings.abs_tol:g}")
+        if self._started and not self._engine_live and was in REOPENABLE and not run.done:
+            self.say("the new goal is not met yet: going on")
+            self._start_engine()
+        self._pending = run.snapshot()
+        self._tick()
+
+    def action_tighter(self) -> None:
+        self._scale_goal(0.1)
+
+    def action_looser(self) -> None:
+        self._scale_goal(10.0)
+
+    def _save(self, why: str = "") -> Path | None:
+        if self.follower is not None:
+            res = self.follower.result
+            if res is None:
+                snap = self.follower.snapshot
+                if snap is None:
+                    self.say("nothing to write yet", "warn")
+                    return None
+                scalar = snap.components == 1
+                res = {"value": float(snap.value[0]) if scalar else snap.value.tolist(),
+                       "error": float(snap.error[0]) if scalar else snap.error.tolist(),
+                       "evaluations": snap.evaluations, "regions": snap.regions,
+                       "status": snap.status, "seconds": snap.elapsed, "steps": snap.step,
+                       "message": snap.message}
+            settings = self.follower.settings()
+        else:
+            if self.run is None:
+                return None
+            res = self.run.result().to_json()
+            s = self.run.settings
+            settings = {"rel_tol": s.rel_tol, "abs_tol": s.abs_tol, "max_evals": s.max_evals,
+                        "time_limit": s.time_limit, "rule": s.rule,
+                        "workers": self.overrides.get("workers", self.problem.method.workers)}
+        path = result_path(self.meta)
+        try:
+            write_result(path, result_record(res, self.meta, settings))
+        except OSError as exc:
+            self.say(f"cannot write {path}: {exc}", "error")
+            return None
+        self.result_file = path
+        st = res.get("status")
+        label = "" if st == "converged" else " (NOT converged)"
+        self.say(f"result written to {path}: status {st}{label}" + (f"; {why}" if why else ""), "ok")
+        return path
+
+    def action_write(self) -> None:
+        self._save()
+
+    def action_axes(self) -> None:
+        m = self.query_one("#map", RefinementMap)
+        i, j = m.next_pair()
+        self._update_map_title()
+        self.query_one("#lower", TabbedContent).active = "map-tab"
+        v = self.meta.variables
+        self.say(f"map axes: {v[i] if i < len(v) else i} × {v[j] if j < len(v) else j}")
+
+    def action_panel(self) -> None:
+        tc = self.query_one("#lower", TabbedContent)
+        k = PANELS.index(tc.active) if tc.active in PANELS else -1
+        tc.active = PANELS[(k + 1) % len(PANELS)]
+
+    @property
+    def live(self) -> bool:
+        """True while the engine thread of a run driven here is working."""
+        return self._engine_live
+
+    def _after_confirm(self, then) -> None:
+        if self.live:
+            def answer(yes: bool | None) -> None:
+                if yes:
+                    self.run.stop()
+                    then()
+            self.app.push_screen(AskModal("A run is still going. Stop it (its estimate is dropped "
+                                          "unless you wrote it with w) and leave?"), answer)
+        else:
+            then()
+
+    def action_back(self) -> None:
+        if not self.can_go_back:
+            return
+        self._after_confirm(lambda: self.app.pop_screen())
+
+    def action_leave(self) -> None:
+        self._after_confirm(lambda: self.app.exit(0))
+
+    def on_unmount(self) -> None:
+        if self.run is not None:
+            self.run.stop()
+        ev = self.evaluator
+        for name in ("close", "shutdown"):
+            fn = getattr(ev, name, None)
+            if callable(fn):
+                try:
+                    fn()
+                except Exception:  # noqa: BLE001 - best effort at exit
+                    pass
+                break

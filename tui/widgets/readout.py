@@ -1,0 +1,115 @@
+"""The numbers panel: value ± error estimate, counts, rate, times, status."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from rich.text import Text
+from textual.reactive import reactive
+from textual.widgets import Static
+
+from cubature import STATUSES
+from cubature.engine import Snapshot
+
+from ..forecast import fmt_count, fmt_seconds, forecast_seconds
+from ..meta import ProblemMeta
+
+#: Colour of each status word (our own palette).
+STATUS_STYLE = {
+    "ready": "bold #8fa3bf", "running": "bold #e8c547", "paused": "bold #6cb6d9", "converged": "bold #5fd38a",
+    "max-evals": "bold #f08a5d", "time-limit": "bold #f08a5d", "stopped": "bold #f08a5d",
+    "region-limit": "bold #f08a5d", "stalled": "bold #f08a5d", "failed": "bold #ff5f6d",
+    "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d",
+}
+
+FINAL = ("converged", "max-evals", "time-limit", "stopped", "region-limit", "stalled", "failed")
+
+ESTIMATE_NOTE = "± is an error estimate, not a bound"
+
+
+def value_text(v: float) -> str:
+    return "nan" if not math.isfinite(v) else f"{v:.14g}"
+
+
+class Readout(Static):
+    """Renders one :class:`Snapshot` as the run's numbers.
+
+    Attributes
+    ----------
+    snap : Snapshot or None
+        The newest snapshot (reactive).
+    state : str
+        The status word shown (reactive); follows the snapshot unless the
+        view sets something else ("ready", "stopping").
+    """
+
+    snap: reactive[Snapshot | None] = reactive(None, always_update=True, layout=False)
+    state: reactive[str] = reactive("ready")
+
+    def __init__(self, meta: ProblemMeta, **kw):
+        super().__init__(**kw)
+        self.meta = meta
+
+    def render(self) -> Text:
+        s = self.snap
+        t = Text(no_wrap=True, overflow="ellipsis")
+        word = self.state
+        t.append("status ", "dim")
+        t.append(word.upper(), STATUS_STYLE.get(word, "bold"))
+        if word in FINAL and word != "converged":
+            t.append("  NOT CONVERGED", "bold reverse #f08a5d")
+        t.append("\n")
+        if s is None or s.evaluations == 0:
+            t.append("no evaluations yet\n", "dim")
+            t.append(ESTIMATE_NOTE, "italic dim")
+            return t
+        m = s.components
+        show = min(m, 3)
+        ref = self.meta.reference
+        for j in range(show):
+            lab = "I" if m == 1 else f"I{j}"
+            t.append(f"{lab} = ", "bold")
+            t.append(value_text(float(s.value[j])), "bold #e6e6e6")
+            t.append("\n")
+            t.append("  ± ", "dim")
+            t.append(f"{float(s.error[j]):.3e}", "#e8c547")
+            t.append(" est.", "dim")
+            if ref is not None and j < len(ref):
+                te = abs(float(s.value[j]) - ref[j])
+                t.append("  true ", "dim")
+                t.append(f"{te:.2e}", "#6cb6d9")
+            t.append("\n")
+        if m > show:
+            worst = int(np.argmax(s.error / np.maximum(s.goal, 1e-300)))
+            t.append(f"  (+{m - show} more; worst I{worst} ± {float(s.error[worst]):.2e})\n", "dim")
+        t.append("goal ", "dim")
+        g = float(np.max(s.goal)) if s.goal.size else math.nan
+        t.append(f"{g:.2e}", "bold")
+        t.append(f"  rel {s.rel_tol:g} abs {s.abs_tol:g}\n", "dim")
+        t.append("evals ", "dim")
+        t.append(fmt_count(s.evaluations))
+        if s.max_evals:
+            frac = s.evaluations / s.max_evals
+            t.append(f"/{fmt_count(s.max_evals)}", "dim")
+            if frac >= 0.9:
+                t.append(f" {frac:.0%}", "bold #f08a5d")
+        t.append("  regions ", "dim")
+        t.append(fmt_count(s.regions) + "\n")
+        t.append("rate ", "dim")
+        t.append(f"{fmt_count(s.rate)}/s")
+        t.append("  elapsed ", "dim")
+        t.append(fmt_seconds(s.elapsed) + "\n")
+        t.append("to goal ", "dim")
+        if word == "converged":
+            t.append("reached\n", "#5fd38a")
+        elif word in FINAL:
+            t.append("-\n", "dim")
+        else:
+            eta = forecast_seconds(s.history, s.goal, s.evaluations, s.rate)
+            t.append(("~" + fmt_seconds(eta)) if eta is not None else "? (no clear slope yet)")
+            t.append(" forecast\n", "dim")
+        t.append(ESTIMATE_NOTE, "italic dim")
+        if word in STATUSES and word in FINAL:
+            t.append(f"\n{word}: {STATUSES[word]}", "dim")
+        return t
