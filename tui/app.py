@@ -35,7 +35,7 @@ class CubageApp(App):
     CSS_PATH = "app.tcss"
     TITLE = "cubage"
     ENABLE_COMMAND_PALETTE = False
-    BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False, priority=True)]
+    BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False)]
 
     def __init__(self, files: list[Path] | None = None, follow: tuple[RunDirFollower, ProblemMeta] | None = None,
                  trust_code: bool = False):

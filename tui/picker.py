@@ -5,6 +5,7 @@ from __future__ import annotations
 import math
 from pathlib import Path
 
+from rich.console import Group
 from rich.markup import escape
 from rich.table import Table
 from rich.text import Text
@@ -100,7 +101,7 @@ class PickerScreen(Screen):
             yield Input(id="in-abs", placeholder="problem's")
             yield Label("workers")
             yield Input(id="in-workers", placeholder="problem's")
-        yield Footer()
+        yield Footer(compact=True)
 
     def _label(self, f: Path) -> Text:
         t = Text(f.stem)
@@ -146,11 +147,12 @@ class PickerScreen(Screen):
         path = self.files[idx]
         prob, err = self._load(path)
         target = uses_python(path)
+        head = Text(path.stem, style="bold #e6e6e6")
         out = Table.grid(padding=(0, 1))
         out.add_column(style="#8fa3bf", no_wrap=True)
         out.add_column(overflow="fold")
         if prob is not None:
-            out.add_row(Text(prob.title or path.stem, style="bold #e6e6e6"), "")
+            head = Text(prob.title or path.stem, style="bold #e6e6e6")
             out.add_row("file", str(path))
             if prob.notes:
                 out.add_row("notes", prob.notes.strip())
@@ -162,7 +164,7 @@ class PickerScreen(Screen):
             try:
                 from .meta import meta_from_file
                 meta = meta_from_file(path)
-                out.add_row(Text(meta.title, style="bold #e6e6e6"), "")
+                head = Text(meta.title, style="bold #e6e6e6")
                 out.add_row("file", str(path))
                 out.add_row("dimension", f"{meta.dim} ({', '.join(meta.variables)})")
                 if meta.reference is not None:
@@ -176,12 +178,12 @@ class PickerScreen(Screen):
                                  style="italic"))
             self._placeholders("problem's", "problem's", "problem's")
         else:
-            out.add_row(Text(path.stem, style="bold #e6e6e6"), "")
+            head = Text(path.stem, style="bold #e6e6e6")
             out.add_row("file", str(path))
             out.add_row(Text("invalid", style="bold #ff5f6d"), "")
             out.add_row("", Text(err or "", style="#ff5f6d"))
             self._placeholders("problem's", "problem's", "problem's")
-        self.query_one("#preview", Static).update(out)
+        self.query_one("#preview", Static).update(Group(head, out))
 
     def _placeholders(self, rel: str, abs_: str, workers: str) -> None:
         self.query_one("#in-rel", Input).placeholder = rel

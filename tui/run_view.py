@@ -88,14 +88,14 @@ class RunView(Screen):
 
     BINDINGS = [
         Binding("g", "begin", "Go"),
-        Binding("space", "hold", "Hold/resume"),
-        Binding("h", "halt", "Halt+keep"),
+        Binding("space", "hold", "Hold"),
+        Binding("h", "halt", "Halt"),
         Binding("right_square_bracket", "tighter", "Tol÷10"),
         Binding("left_square_bracket", "looser", "Tol×10"),
-        Binding("w", "write", "Write"),
+        Binding("w", "write", "Save"),
         Binding("a", "axes", "Axes"),
         Binding("v", "panel", "Panel"),
-        Binding("b", "back", "Problems"),
+        Binding("b", "back", "Back"),
         Binding("q", "leave", "Quit"),
     ]
 
@@ -121,6 +121,11 @@ class RunView(Screen):
         self._last_message = ""
         self._final_reported = False
 
+    def watch_state(self, value: str) -> None:
+        if self.is_mounted:
+            self.query_one("#readout", Readout).state = value
+            self.refresh_bindings()
+
     # -- layout ----------------------------------------------------------------
     def compose(self) -> ComposeResult:
         yield Header()
@@ -130,6 +135,8 @@ class RunView(Screen):
             yield r
             c = ConvergenceChart(self.meta, id="chart", classes="panel")
             c.border_title = "Convergence · log-log"
+            c.border_subtitle = ("[#e8c547]━ estimate[/] [#6cb6d9]━ true[/] [#5fd38a]━ goal[/]"
+                                 if self.meta.reference is not None else "[#e8c547]━ estimate[/] [#5fd38a]━ goal[/]")
             yield c
         yield Static("", id="ticker")
         with TabbedContent(id="lower"):
@@ -141,7 +148,7 @@ class RunView(Screen):
                 yield RefinementMap(self.meta, id="map")
             with TabPane("Notes", id="notes-tab"):
                 yield NotesLog(id="notes")
-        yield Footer()
+        yield Footer(compact=True)
 
     @property
     def notes(self) -> NotesLog:

@@ -43,33 +43,47 @@ class ConvergenceChart(PlotextPlot):
         if self._empty:
             self.refresh()
             return
-        plt.xscale("log")
-        plt.yscale("log")
-        plt.xlabel("evaluations")
+        # plotext's own log axes label ticks as long decimals; plot log10 and label decades ourselves
         h = np.asarray(snap.history, dtype=float)
         m = snap.components
-        n = h[:, 0]
-        keep = thin_log(n, max(20, 2 * max(self.size.width, 40)))
+        keep = thin_log(h[:, 0], max(20, 2 * max(self.size.width, 40)))
         h = h[keep]
         n = h[:, 0]
         j = 0 if m == 1 else int(np.argmax(snap.error / np.maximum(snap.goal, 1e-300)))
+        ys = []
         err = h[:, 2 + m + j]
         ok = (n > 0) & (err > 0) & np.isfinite(err)
         if ok.any():
-            plt.plot(n[ok].tolist(), err[ok].tolist(), label="estimate", color=(232, 197, 71), marker="braille")
+            x, y = np.log10(n[ok]), np.log10(err[ok])
+            ys.append(y)
+            plt.plot(x.tolist(), y.tolist(), color=(232, 197, 71), marker="braille")
         ref = self.meta.reference
         if ref is not None and j < len(ref):
             true = np.abs(h[:, 2 + j] - ref[j])
             okt = (n > 0) & (true > 0) & np.isfinite(true)
             if okt.any():
-                plt.plot(n[okt].tolist(), true[okt].tolist(), label="true", color=(108, 182, 217),
-                         marker="braille")
+                y = np.log10(true[okt])
+                ys.append(y)
+                plt.plot(np.log10(n[okt]).tolist(), y.tolist(), color=(108, 182, 217), marker="braille")
         g = float(snap.goal[j]) if snap.goal.size > j else float("nan")
         if g > 0 and np.isfinite(g) and ok.any():
-            lo, hi = float(n[ok].min()), float(n[ok].max())
-            if hi <= lo:
-                hi = lo * 2
-            plt.plot([lo, hi], [g, g], label="goal", color=(95, 211, 138), marker="braille")
-        if m > 1:
-            plt.title(f"component I{j} (furthest from its goal)")
+            lo, hi = float(np.log10(n[ok].min())), float(np.log10(n[ok].max()))
+            plt.plot([lo, max(hi, lo + 0.3)], [np.log10(g)] * 2, color=(95, 211, 138), marker="braille")
+            ys.append(np.array([np.log10(g)]))
+        if ys:
+            yall = np.concatenate(ys)
+            plt.yticks(*_decades(float(yall.min()), float(yall.max()), max(2, self.size.height // 3)))
+        if ok.any():
+            plt.xticks(*_decades(float(np.log10(n[ok].min())), float(np.log10(n[ok].max())),
+                                 max(2, self.size.width // 10)))
         self.refresh()
+
+
+def _decades(lo: float, hi: float, most: int) -> tuple[list[float], list[str]]:
+    """Tick positions (log10) at whole decades between lo and hi, at most ``most`` of them."""
+    a, b = int(np.floor(lo)), int(np.ceil(hi))
+    if b == a:
+        b = a + 1
+    step = max(1, int(np.ceil((b - a + 1) / most)))
+    ticks = list(range(a, b + 1, step))
+    return [float(t) for t in ticks], [f"1e{t}" for t in ticks]

@@ -48,7 +48,7 @@ class QueueTrend(Vertical):
         self.query_one("#trend-error", Sparkline).data = (err - err.min()).tolist()
         last = float(h[-1, 2 + m:].max())
         self.query_one("#trend-regions-label", Static).update(f"regions {fmt_count(snap.regions)}")
-        self.query_one("#trend-error-label", Static).update(f"total error {last:.2e} (log scale)")
+        self.query_one("#trend-error-label", Static).update(f"error {last:.2e} (log)")
 
 
 def bounds_text(lo, hi, names, width: int = 14) -> str:

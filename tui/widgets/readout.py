@@ -107,8 +107,11 @@ class Readout(Static):
             t.append("-\n", "dim")
         else:
             eta = forecast_seconds(s.history, s.goal, s.evaluations, s.rate)
-            t.append(("~" + fmt_seconds(eta)) if eta is not None else "? (no clear slope yet)")
-            t.append(" forecast\n", "dim")
+            if eta is None:
+                t.append("? (no clear slope yet)\n", "dim")
+            else:
+                t.append("~" + fmt_seconds(eta))
+                t.append(" (forecast)\n", "dim")
         t.append(ESTIMATE_NOTE, "italic dim")
         if word in STATUSES and word in FINAL:
             t.append(f"\n{word}: {STATUSES[word]}", "dim")
