@@ -84,6 +84,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import time
 from pathlib import Path
 from typing import Callable
@@ -224,7 +225,9 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
         raise _WorkerFailure(f"raised {_one_line(exc)}") from None
 
 
-def _noop() -> int:
+def _noop(pause: float = 0.0) -> int:
+    if pause:
+        time.sleep(pause)
     return os.getpid()
 
 
@@ -456,7 +459,8 @@ class PoolEvaluator(Evaluator):
         import joblib
         if self._parallel is None:
             return []
-        return sorted(set(self._parallel(joblib.delayed(_noop)() for _ in range(4 * self.workers))))
+        w = self._effective_workers()
+        return sorted(set(self._parallel(joblib.delayed(_noop)(0.1) for _ in range(2 * w))))
 
     def close(self) -> None:
         """Shut the pool down (and the dask client this evaluator opened); idempotent."""
@@ -494,7 +498,7 @@ class PoolEvaluator(Evaluator):
         return f"{self.workers} loky processes"
 
     def describe(self) -> str:
-        """One line, e.g. ``"2 loky processes"``, ``"dask at tcp://10.0.0.5:8786"`` or
+        """One line, e.g. ``"2 loky processes"``, ``"dask at tcp://host:8786"`` or
         ``"auto: in-process so far (0.05 us/point); 2 loky processes when a step is costly"``."""
         if not self.auto:
             return self._pool_words()
@@ -576,7 +580,11 @@ class PoolEvaluator(Evaluator):
         kind = type(exc).__name__
         first = (str(exc).strip().splitlines() or [""])[0].strip()
         if kind in ("TerminatedWorkerError", "BrokenProcessPool", "KilledWorker", "CommClosedError"):
-            detail = f" ({kind}: {_clip(first, 160)})" if first else f" ({kind})"
+            codes = re.search(r"exit codes of the workers are \{([^}]*)\}", str(exc))
+            if codes:
+                detail = f" ({kind}, exit code {codes.group(1)})"
+            else:
+                detail = f" ({kind}: {_clip(first, 120)})" if first else f" ({kind})"
             return f"a worker died while evaluating integrand {name}{detail}"
         return f"evaluating integrand {name} on {self._pool_words()} failed: {kind}: {_clip(first, 200)}"
 

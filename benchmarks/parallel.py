@@ -1,0 +1,156 @@
+"""Benchmark: parallel efficiency, and what the automatic mode costs a cheap problem.
+
+Run ``python benchmarks/parallel.py`` (add ``--quick`` for a short run).  It
+prints figures; it asserts nothing.
+
+1. Efficiency: a costly integrand (a 3-D sum of 240 cos*exp terms, a numpy
+   loop, a few microseconds to tens of microseconds a point depending on the
+   machine) integrated with a fixed evaluation budget, in-process and with
+   ``workers`` loky processes (and threads).  Efficiency = speedup / workers.
+   The integrand travels to the workers by import path (``spec`` kind
+   "python", this very file), as it does from a problem file.  Reported with
+   the pool already started (steady state) and including the pool start-up.
+   Target: >= 85 %.
+2. Auto overhead: a cheap expression integrand, in-process (no evaluator) vs
+   ``make_evaluator(workers, "auto")``; best of several repeats, run
+   alternately.  Target: <= 5 %.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime
+import os
+import platform
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+TERMS = 240
+
+
+def costly(X):
+    """A deliberately expensive elementwise integrand (numpy loop over terms)."""
+    x, y, z = X[:, 0], X[:, 1], X[:, 2]
+    acc = np.zeros(X.shape[0])
+    for k in range(1, TERMS + 1):
+        acc += np.cos(k * 0.05 * x + y) * np.exp(-(k / TERMS) * z * z)
+    return acc
+
+
+def _time_run(f, domain, evaluator, max_evals, rel_tol=1e-14):
+    import cubature
+    t0 = time.perf_counter()
+    res = cubature.integrate(f, domain, rel_tol=rel_tol, max_evals=max_evals, evaluator=evaluator)
+    return time.perf_counter() - t0, res
+
+
+def _spin(seconds: float) -> float:
+    """Pure-Python CPU work for ``seconds`` of wall time; returns the loop count done."""
+    n, t_end = 0, time.perf_counter() + seconds
+    while time.perf_counter() < t_end:
+        for _ in range(1000):
+            n += 1
+    return n
+
+
+def machine_check(workers: int) -> None:
+    """How much CPU the machine gives ``workers`` processes at once right now (others may be busy)."""
+    from joblib import Parallel, delayed
+    one = _spin(0.5)
+    with Parallel(n_jobs=workers, backend="loky") as par:
+        par(delayed(_spin)(0.05) for _ in range(workers))
+        many = sum(par(delayed(_spin)(0.5) for _ in range(workers)))
+    load = os.getloadavg() if hasattr(os, "getloadavg") else (float("nan"),) * 3
+    print(f"machine check: {workers} CPU-bound processes at once did {many / one:.2f}x the work of one "
+          f"(ideal {workers}); load average {load[0]:.2f} {load[1]:.2f} {load[2]:.2f}")
+
+
+def efficiency(workers: int, max_evals: int) -> None:
+    import cubature
+    from cubature.parallel import make_evaluator
+    from cubature.problem import integrand_from_spec
+
+    here = Path(__file__).resolve()
+    spec = {"kind": "python", "target": f"{here.name}:costly", "base_dir": str(here.parent)}
+    f = integrand_from_spec(spec)
+    domain = cubature.Box([-1.0, -1.0, -1.0], [1.0, 1.0, 1.0])
+
+    X = np.random.default_rng(1).uniform(-1, 1, (8192, 3))
+    t0 = time.perf_counter()
+    f(X)
+    per_point = (time.perf_counter() - t0) / X.shape[0]
+    print(f"integrand: {TERMS}-term cos*exp sum in 3-D, {per_point * 1e6:.1f} us a point (in-process)")
+
+    t_serial, r_serial = _time_run(f, domain, None, max_evals)
+    print(f"  in-process            : {t_serial:7.2f} s   {r_serial.evaluations} evaluations, "
+          f"{r_serial.steps} steps, value {r_serial.value:.15g}")
+    for backend in ("processes", "threads"):
+        t_start = time.perf_counter()
+        ev = make_evaluator(workers, backend, spec=spec)
+        startup = time.perf_counter() - t_start
+        try:
+            t_par, r_par = _time_run(f, domain, ev, max_evals)
+            words = ev.describe()
+        finally:
+            ev.close()
+        same = np.array_equal(r_par.values, r_serial.values)
+        speed = t_serial / t_par
+        speed_all = t_serial / (t_par + startup)
+        print(f"  {words:<22}: {t_par:7.2f} s   speedup {speed:4.2f}, efficiency {100 * speed / workers:5.1f} % "
+              f"(with {startup:.2f} s pool start-up: {100 * speed_all / workers:5.1f} %); "
+              f"value identical: {same}")
+
+
+def auto_overhead(workers: int, repeats: int, max_evals: int) -> None:
+    import cubature
+    from cubature.expr import compile_expression
+    from cubature.parallel import make_evaluator
+
+    f = compile_expression("exp(-(x**2 + y**2 + z**2)) * cos(x*y*z)", ["x", "y", "z"])
+    domain = cubature.Box([-2.0] * 3, [2.0] * 3)
+    _time_run(f, domain, None, max_evals)  # warm caches
+    serial, auto = [], []
+    modes = set()
+    for _ in range(repeats):
+        t, r0 = _time_run(f, domain, None, max_evals)
+        serial.append(t)
+        ev = make_evaluator(workers, "auto")
+        try:
+            t0 = time.perf_counter()
+            r1 = cubature.integrate(f, domain, rel_tol=1e-14, max_evals=max_evals, evaluator=ev)
+            auto.append(time.perf_counter() - t0)
+            modes.add(ev.mode)
+            desc = ev.describe()
+        finally:
+            ev.close()
+        assert np.array_equal(r0.values, r1.values)
+    ts, ta = min(serial), min(auto)
+    per_point = ts / r0.evaluations
+    print(f"cheap integrand (expression, ~{per_point * 1e9:.0f} ns a point including the engine), "
+          f"{r0.evaluations} evaluations, best of {repeats}:")
+    print(f"  in-process {ts:.3f} s, auto {ta:.3f} s -> overhead {100 * (ta / ts - 1):+.1f} %  "
+          f"(median {100 * (np.median(auto) / np.median(serial) - 1):+.1f} %); auto stayed {sorted(modes)}: {desc}")
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--workers", type=int, default=os.cpu_count() or 1, help="workers (default: all cores)")
+    ap.add_argument("--quick", action="store_true", help="smaller budgets, fewer repeats")
+    args = ap.parse_args(argv)
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+    import joblib
+    print(f"cubage parallel benchmark, {datetime.datetime.now().isoformat(timespec='seconds')}, "
+          f"{platform.node()}: {os.cpu_count()} cores, {args.workers} workers, python {platform.python_version()}, "
+          f"numpy {np.__version__}, joblib {joblib.__version__}")
+    machine_check(args.workers)
+    efficiency(args.workers, 200_000 if args.quick else 600_000)
+    machine_check(args.workers)
+    auto_overhead(args.workers, 3 if args.quick else 7, 500_000 if args.quick else 2_000_000)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
