@@ -552,7 +552,10 @@ def main(argv: list[str] | None = None) -> int:
     if argv and argv[0] == "bench":
         return _bench(argv[1:])
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:           # --help, --version, usage errors: argparse has printed
+        return exc.code if isinstance(exc.code, int) else EXIT_BAD_INPUT
     debug = bool(getattr(args, "debug", False))
     from .checkpoint import CheckpointError
     from .domains import DomainError

@@ -1,0 +1,526 @@
+"""The ``cubage`` command line, run as a user would: a subprocess per call.
+
+Every expected integral below comes from a closed form named beside it; the
+exit codes and message shapes are the command line's documented contract.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import json
+import math
+import os
+import subprocess
+import sys
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from cubature.live import time_to_goal
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def cubage(*args, cwd=None, timeout=60, input=None):
+    """Run ``python -m cubature.cli ARGS``; returns the CompletedProcess (text)."""
+    env = dict(os.environ)
+    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    env.pop("COLUMNS", None)
+    return subprocess.run([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=env,
+                          capture_output=True, text=True, timeout=timeout, input=input)
+
+
+class InProcess:
+    """What ``cubature.cli.main`` returned and printed (for the big corpus: no interpreter start per case)."""
+
+    def __init__(self, argv, capsys):
+        from cubature.cli import main
+        capsys.readouterr()
+        self.returncode = main([str(a) for a in argv])
+        cap = capsys.readouterr()
+        self.stdout, self.stderr = cap.out, cap.err
+
+
+@pytest.fixture
+def cli(capsys, monkeypatch):
+    """``cli(*argv, cwd=...)``: ``cubature.cli.main`` in this process (fast), with its output captured."""
+    def call(*argv, cwd=None):
+        if cwd is not None:
+            monkeypatch.chdir(cwd)
+        return InProcess(argv, capsys)
+    return call
+
+
+def write(tmp_path: Path, name: str, text: str) -> Path:
+    p = tmp_path / name
+    p.write_text(text, encoding="utf-8")
+    return p
+
+
+XY = """
+title = "x times y on the unit square"
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "x*y"
+[reference]
+value = 0.25
+source = "product formula: (1/2)*(1/2)"
+"""
+
+# a slow-ish smooth 3-D integrand, so that a tiny budget stops it short of the goal
+PEAK3 = """
+[domain]
+variables = ["x", "y", "z"]
+box = [[-1, 1], [-1, 1], [-1, 1]]
+[integrand]
+expr = "1 / (1e-3 + x*x + y*y + z*z)"
+[goal]
+rel_tol = 1e-10
+"""
+
+
+# --------------------------------------------------------------------------
+# help and version
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("sub", [["run"], ["check"], ["resume"], ["list"], ["tui"], ["watch"]])
+def test_help_of_every_command_exits_zero(sub, cli):
+    p = cli(*sub, "--help")
+    assert p.returncode == 0, p.stderr
+    assert p.stdout.startswith(f"usage: cubage {sub[0]}")   # argparse's help layout (common practice)
+    assert p.stderr == ""
+
+
+def test_top_level_help_in_a_real_process():
+    p = cubage("--help")
+    assert p.returncode == 0, p.stderr
+    assert p.stdout.startswith("usage: cubage")
+    for sub in ("run", "check", "resume", "list", "tui", "watch", "bench"):
+        assert sub in p.stdout
+
+
+def test_version_is_the_package_version():
+    p = cubage("--version")
+    # the version written in pyproject.toml
+    version = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]["version"]
+    assert p.returncode == 0
+    assert p.stdout.strip() == f"cubage {version}"
+
+
+def test_run_help_names_every_documented_option(cli):
+    out = cli("run", "--help").stdout
+    for opt in ("--json", "--run-dir", "--rel-tol", "--abs-tol", "--max-evals", "--time-limit", "--rule",
+                "--workers", "--backend", "--cluster", "--checkpoint-every", "--trust-code", "--debug"):
+        assert opt in out, opt
+
+
+# --------------------------------------------------------------------------
+# --json
+# --------------------------------------------------------------------------
+
+def _one_json(stdout: str) -> dict:
+    lines = [ln for ln in stdout.splitlines() if ln.strip()]
+    assert len(lines) == 1, stdout
+    obj = json.loads(lines[0])
+    assert isinstance(obj, dict)
+    return obj
+
+
+def test_json_prints_one_object_with_the_right_value(tmp_path):
+    f = write(tmp_path, "xy.toml", XY)
+    p = cubage("run", f, "--json", cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    obj = _one_json(p.stdout)
+    for key in ("value", "error", "evaluations", "regions", "status", "seconds", "reference", "true_error"):
+        assert key in obj, key
+    # ∫_[0,1]^2 x y = 1/4 (product formula, common practice)
+    assert obj["value"] == pytest.approx(0.25, rel=1e-12)
+    assert obj["status"] == "converged"
+    assert obj["reference"] == 0.25
+    assert abs(obj["true_error"]) < 1e-12
+    assert obj["evaluations"] > 0 and obj["regions"] >= 1
+
+
+def test_json_lists_for_a_vector_integrand(tmp_path, cli):
+    f = write(tmp_path, "vec.toml", """
+[domain]
+variables = ["x", "y"]
+box = [[0, 2], [0, 1]]
+[integrand]
+expr = ["1", "x", "y*y"]
+""")
+    p = cli("run", f, "--json", cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    obj = _one_json(p.stdout)
+    assert isinstance(obj["value"], list) and isinstance(obj["error"], list)
+    # over [0,2]x[0,1]: area 2, ∫x = 2, ∫y^2 = 2/3 (elementary antiderivatives, common practice)
+    np.testing.assert_allclose(obj["value"], [2.0, 2.0, 2.0 / 3.0], rtol=1e-10)
+
+
+def test_unbounded_gaussian_is_pi(tmp_path, cli):
+    f = write(tmp_path, "g.toml", """
+[domain]
+variables = ["x", "y"]
+box = [[-inf, inf], [-inf, inf]]
+[integrand]
+expr = "exp(-x*x - y*y)"
+[goal]
+rel_tol = 1e-8
+""")
+    p = cli("run", f, "--json", cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    # ∫_R^2 exp(-x^2-y^2) = pi (the Gaussian integral, common practice)
+    assert _one_json(p.stdout)["value"] == pytest.approx(math.pi, rel=1e-7)
+
+
+def test_simplex_area(tmp_path, cli):
+    f = write(tmp_path, "tri.toml", """
+[domain]
+variables = ["x", "y"]
+simplex = [[0, 0], [2, 0], [0, 3]]
+[integrand]
+expr = "x"
+""")
+    p = cli("run", f, "--json", cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    # ∫ x over a triangle = area * centroid_x = 3 * 2/3 = 2 (centroid formula, common practice)
+    assert _one_json(p.stdout)["value"] == pytest.approx(2.0, rel=1e-10)
+
+
+def test_bundled_problem_by_name_matches_its_reference(tmp_path, cli):
+    p = cli("run", "gaussian-overlap", "--json", cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    obj = _one_json(p.stdout)
+    # closed form via completing the square and erf (Abramowitz & Stegun 7.1.1), recomputed here
+    from math import erf, exp, pi, sqrt
+    a, b, total = 1.0, 2.0, 1.0
+    for c in (0.8, -0.5, 0.3):
+        m = b * c / (a + b)
+        total *= exp(-a * b * c * c / (a + b)) * sqrt(pi / (a + b)) / 2 * (
+            erf(sqrt(a + b) * (3 - m)) - erf(sqrt(a + b) * (-3 - m)))
+    assert obj["value"] == pytest.approx(total, rel=1e-7)
+
+
+def test_rule_option_changes_the_rule(tmp_path, cli):
+    f = write(tmp_path, "xy.toml", XY)
+    obj = _one_json(cli("run", f, "--json", "--rule", "genz-malik", cwd=tmp_path).stdout)
+    assert obj["rule"] == "genz-malik"
+    # x*y has degree 2, integrated exactly by a degree-7 rule (Genz & Malik 1980)
+    assert obj["value"] == pytest.approx(0.25, rel=1e-13)
+
+
+# --------------------------------------------------------------------------
+# exit codes 3 and 1
+# --------------------------------------------------------------------------
+
+def test_tiny_budget_exits_3_with_the_estimate(tmp_path):
+    f = write(tmp_path, "peak.toml", PEAK3)
+    p = cubage("run", f, "--json", "--max-evals", "2000", cwd=tmp_path)
+    assert p.returncode == 3, p.stderr
+    obj = _one_json(p.stdout)
+    assert obj["status"] == "max-evals"
+    assert 0 < obj["evaluations"] <= 2000
+    # the integrand is positive, so any estimate is a positive number (common practice)
+    assert isinstance(obj["value"], float) and obj["value"] > 0 and obj["error"] > 0
+    assert "stopped short of the goal" in p.stderr
+
+
+def test_time_limit_exits_3(tmp_path, cli):
+    f = write(tmp_path, "peak.toml", PEAK3)
+    p = cli("run", f, "--json", "--time-limit", "0.3", "--max-evals", "1e9", cwd=tmp_path)
+    assert p.returncode == 3, p.stderr
+    assert _one_json(p.stdout)["status"] == "time-limit"
+
+
+def test_summary_without_json_names_status_and_caution(tmp_path, cli):
+    f = write(tmp_path, "peak.toml", PEAK3)
+    p = cli("run", f, "--max-evals", "2000", cwd=tmp_path)
+    assert p.returncode == 3
+    assert "max-evals: evaluation budget spent before the goal was met" in p.stdout
+    assert "not a guaranteed bound" in p.stdout
+    # not a terminal: the plain log line on stderr, not the live panel
+    assert p.stderr.startswith("cubage| ")
+
+
+def test_nan_integrand_exits_1_naming_the_point(tmp_path):
+    f = write(tmp_path, "nan.toml", """
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "log(x - 0.5)"
+""")
+    p = cubage("run", f, "--json", cwd=tmp_path)
+    assert p.returncode == 1
+    assert "Traceback" not in p.stderr
+    # log of a negative number is NaN (IEEE 754, common practice): the message names the point
+    assert "integrand failed" in p.stderr and "nan" in p.stderr and "x = (" in p.stderr
+    assert _one_json(p.stdout)["status"] == "failed"
+
+
+def test_python_integrand_that_raises_exits_1(tmp_path):
+    write(tmp_path, "mine.py", "import numpy as np\n"
+                               "def f(X):\n"
+                               "    if X.shape[0] > 10:\n"
+                               "        raise ValueError('detector table missing')\n"
+                               "    return np.ones(X.shape[0])\n")
+    f = write(tmp_path, "py.toml", """
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+python = "mine.py:f"
+""")
+    p = cubage("run", f, "--trust-code", cwd=tmp_path)
+    assert p.returncode == 1
+    assert "detector table missing" in p.stderr and "Traceback" not in p.stderr
+
+
+def test_python_integrand_runs_with_trust_code(tmp_path, cli):
+    write(tmp_path, "mine.py", "import numpy as np\ndef f(X):\n    return X[:, 0] ** 2\n")
+    f = write(tmp_path, "py.toml", """
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 3]]
+[integrand]
+python = "mine.py:f"
+""")
+    p = cli("run", f, "--trust-code", "--json", cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    # ∫_0^1 x^2 dx * 3 = 1 (elementary antiderivative, common practice)
+    assert _one_json(p.stdout)["value"] == pytest.approx(1.0, rel=1e-12)
+
+
+# --------------------------------------------------------------------------
+# bad input: exit 2, one line, no traceback
+# --------------------------------------------------------------------------
+
+def _bad_corpus():
+    """The shared corpus tests/bad_inputs.py: (name, toml_text, [substrings of the first line])."""
+    spec = importlib.util.spec_from_file_location("cubage_bad_inputs", ROOT / "tests" / "bad_inputs.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return list(mod.BAD_INPUTS)
+
+
+BAD_CORPUS = _bad_corpus()
+
+
+def _assert_bad(p, *needles):
+    assert p.returncode == 2, (p.returncode, p.stdout, p.stderr)
+    assert "Traceback" not in p.stderr
+    assert p.stdout == ""
+    lines = p.stderr.splitlines()
+    assert lines, "no message"
+    head = lines[0]
+    # one line, except expression errors, which add the expression and a caret line
+    if len(lines) > 1:
+        assert len(lines) == 3 and "^" in lines[2], p.stderr
+    for n in needles:
+        assert n in head, (n, head)
+    return head
+
+
+def test_shared_bad_input_corpus_through_the_cli(tmp_path, capsys):
+    assert len(BAD_CORPUS) >= 40
+    for name, text, expected in BAD_CORPUS:
+        f = write(tmp_path, f"{name}.toml", text)
+        for cmd in ("run", "check"):
+            p = InProcess([cmd, f], capsys)
+            try:
+                _assert_bad(p, f"{name}.toml", *expected)
+            except AssertionError as exc:
+                raise AssertionError(f"{name} via cubage {cmd}: {exc}") from None
+
+
+@pytest.mark.parametrize("case", BAD_CORPUS[::40], ids=lambda c: c[0])
+def test_shared_bad_inputs_in_a_real_process(tmp_path, case):
+    name, text, expected = case
+    f = write(tmp_path, "bad.toml", text)
+    _assert_bad(cubage("run", f, "--json", cwd=tmp_path), "bad.toml", *expected)
+
+
+BAD_PROBLEMS = [
+    # (name, file text, substring of the one-line message)
+    ("unknown-key", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\nexpr='x'\nscale=2\n", "[integrand] scale"),
+    ("toml-syntax", "[domain\nvariables=['x']\n", "TOML syntax error"),
+    ("no-integrand", "[domain]\nvariables=['x']\nbox=[[0,1]]\n", "[integrand]"),
+    ("bad-bounds", "[domain]\nvariables=['x']\nbox=[[1,0]]\n[integrand]\nexpr='x'\n", "[domain] box"),
+    ("unknown-name", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\nexpr='sin(q)'\n", "[integrand] expr"),
+    ("python-untrusted", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\npython='m.py:f'\n", "--trust-code"),
+    ("zero-tolerances", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\nexpr='x'\n[goal]\nrel_tol=0\n",
+     "[goal]"),
+    ("gk-too-many-dims", "[domain]\nvariables=['a','b','c','d','g','h']\nbox=[[0,1],[0,1],[0,1],[0,1],[0,1],[0,1]]\n"
+                         "[integrand]\nexpr='a'\n[method]\nrule='gauss-kronrod'\n", "rule"),
+]
+
+
+@pytest.mark.parametrize("name,text,needle", BAD_PROBLEMS, ids=[c[0] for c in BAD_PROBLEMS])
+def test_bad_problem_files(tmp_path, capsys, name, text, needle):
+    f = write(tmp_path, "bad.toml", text)
+    for cmd in ("run", "check"):
+        head = _assert_bad(InProcess([cmd, f], capsys), needle)
+        assert "bad.toml" in head        # the message names the file
+
+
+BAD_OPTIONS = [
+    (["--rel-tol", "-1"], "--rel-tol"),
+    (["--rel-tol", "abc"], "--rel-tol"),
+    (["--abs-tol", "nan"], "--abs-tol"),
+    (["--max-evals", "0"], "--max-evals"),
+    (["--max-evals", "1.5"], "--max-evals"),
+    (["--time-limit", "0"], "--time-limit"),
+    (["--checkpoint-every", "-2"], "--checkpoint-every"),
+    (["--workers", "0"], "--workers"),
+    (["--rule", "simpson"], "--rule"),
+    (["--backend", "gpu"], "--backend"),
+    (["--rule", "grundmann-moller"], "--rule"),
+    (["--rel-tol", "0", "--abs-tol", "0"], "--rel-tol"),
+    (["--frobnicate"], "--frobnicate"),
+]
+
+
+@pytest.mark.parametrize("opts,needle", BAD_OPTIONS, ids=[" ".join(o) for o, _ in BAD_OPTIONS])
+def test_bad_options(tmp_path, capsys, opts, needle):
+    f = write(tmp_path, "xy.toml", XY)
+    _assert_bad(InProcess(["run", f, *opts], capsys), needle)
+
+
+def test_bad_option_in_a_real_process(tmp_path):
+    f = write(tmp_path, "xy.toml", XY)
+    _assert_bad(cubage("run", f, "--max-evals", "lots", cwd=tmp_path), "--max-evals")
+
+
+def test_missing_problem_names_it_and_suggests(tmp_path, cli):
+    head = _assert_bad(cli("run", "gausian-overlap", cwd=tmp_path), "gausian-overlap")
+    assert "gaussian-overlap" in head          # close match offered
+
+
+def test_expression_error_shows_caret_after_one_headline(tmp_path, cli):
+    f = write(tmp_path, "e.toml", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\nexpr='x + * 2'\n")
+    p = cli("run", f, cwd=tmp_path)
+    assert p.returncode == 2
+    lines = p.stderr.splitlines()
+    assert len(lines) == 3 and "[integrand] expr" in lines[0] and "x + * 2" in lines[1] and "^" in lines[2]
+
+
+def test_list_of_a_missing_folder_is_bad_input(tmp_path, cli):
+    _assert_bad(cli("list", tmp_path / "nowhere", cwd=tmp_path), "nowhere")
+
+
+def test_resume_of_a_missing_dir_is_bad_input(tmp_path, cli):
+    _assert_bad(cli("resume", tmp_path / "nowhere", cwd=tmp_path), "nowhere")
+
+
+# --------------------------------------------------------------------------
+# check and list
+# --------------------------------------------------------------------------
+
+def test_check_describes_rule_and_nodes(tmp_path, cli):
+    f = write(tmp_path, "p3.toml", PEAK3)
+    p = cli("check", f, cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    assert "dimension" in p.stdout and "3 (x, y, z)" in p.stdout
+    # Genz-Malik degree-7 rule: 2^d + 2d^2 + 2d + 1 = 33 nodes at d = 3 (Genz & Malik 1980)
+    assert "genz-malik" in p.stdout and "33 nodes per region" in p.stdout
+    f2 = write(tmp_path, "xy.toml", XY)
+    out = cli("check", f2, cwd=tmp_path).stdout
+    # tensor 15-point Kronrod rule in 2-D: 15^2 = 225 nodes (Kronrod 1965)
+    assert "gauss-kronrod" in out and "225 nodes per region" in out
+    assert "product formula" in out            # the reference and its source
+
+
+def test_check_simplex_rule(tmp_path, cli):
+    f = write(tmp_path, "tri.toml", "[domain]\nvariables=['x','y']\nsimplex=[[0,0],[1,0],[0,1]]\n"
+                                    "[integrand]\nexpr='x'\n")
+    p = cli("check", f, cwd=tmp_path)
+    assert p.returncode == 0
+    assert "grundmann-moller" in p.stdout and "simplex" in p.stdout
+
+
+def test_list_shows_name_dimension_kind_title(tmp_path, cli):
+    d = tmp_path / "probs"
+    d.mkdir()
+    write(d, "xy.toml", XY)
+    write(d, "tri.toml", "[domain]\nvariables=['x','y','z']\nsimplex=[[0,0,0],[1,0,0],[0,1,0],[0,0,1]]\n"
+                         "[integrand]\nexpr='x'\n")
+    write(d, "py.toml", "title='mine'\n[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\npython='m.py:f'\n")
+    p = cli("list", d, cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    rows = {ln.split()[0]: ln.split() for ln in p.stdout.splitlines()[1:]}
+    assert rows["xy"][1:3] == ["2", "box"] and "unit" in " ".join(rows["xy"])
+    assert rows["tri"][1:3] == ["3", "simplex"]
+    assert "--trust-code" in " ".join(rows["py"])
+
+
+def test_list_default_includes_bundled_problems(tmp_path, cli):
+    p = cli("list", cwd=tmp_path)
+    assert p.returncode == 0
+    assert "gaussian-overlap" in p.stdout
+
+
+# --------------------------------------------------------------------------
+# the terminal display
+# --------------------------------------------------------------------------
+
+def test_live_panel_on_a_terminal(tmp_path):
+    import pty
+    import select
+    f = write(tmp_path, "xy.toml", XY)
+    master, slave = pty.openpty()
+    env = dict(os.environ, PYTHONPATH=str(ROOT), TERM="xterm-256color", COLUMNS="100", LINES="40")
+    proc = subprocess.Popen([sys.executable, "-m", "cubature.cli", "run", str(f)], cwd=tmp_path, env=env,
+                            stdin=slave, stdout=slave, stderr=slave)
+    os.close(slave)
+    out = b""
+    try:
+        while True:
+            r, _, _ = select.select([master], [], [], 30)
+            if not r:
+                break
+            try:
+                chunk = os.read(master, 65536)
+            except OSError:
+                break
+            if not chunk:
+                break
+            out += chunk
+    finally:
+        proc.wait(timeout=30)
+        os.close(master)
+    text = out.decode("utf-8", "replace")
+    assert proc.returncode == 0
+    # the summary after the live panel
+    assert "converged: total error estimate met the goal" in text
+    assert "not a guaranteed bound" in text
+    assert "cubage| " not in text               # no plain log lines on a terminal
+
+
+# --------------------------------------------------------------------------
+# time to the goal (live.time_to_goal)
+# --------------------------------------------------------------------------
+
+def _history(n, err):
+    n = np.asarray(n, float)
+    return np.column_stack([n, np.ones_like(n), np.ones_like(n), np.asarray(err, float)])
+
+
+def test_time_to_goal_on_a_power_law():
+    # error = C n^-2 exactly; the goal is met at n* = sqrt(C/goal) (algebra, common practice)
+    C, goal, rate = 1e6, 1e-4, 1e5
+    n = np.geomspace(1e3, 1e4, 30)
+    t = time_to_goal(_history(n, C * n ** -2.0), np.array([goal]), rate)
+    n_star = math.sqrt(C / goal)
+    assert t == pytest.approx((n_star - n[-1]) / rate, rel=1e-6)
+
+
+def test_time_to_goal_unknown_or_met():
+    n = np.geomspace(1e3, 1e4, 30)
+    assert time_to_goal(_history(n, np.full(30, 1.0)), np.array([0.1]), 1e5) is None      # error flat
+    assert time_to_goal(_history(n[:3], [3, 2, 1]), np.array([0.1]), 1e5) is None          # too few points
+    assert time_to_goal(_history(n, 1.0 / n), np.array([1.0]), 1e5) == 0.0                 # already met
+    assert time_to_goal(_history(n, 1.0 / n), np.array([1e-9]), 0.0) is None               # no rate
