@@ -265,3 +265,26 @@ def test_python_integrand_failures(tmp_path, target, words):
     msg = str(info.value)
     assert "\n" not in msg and "[integrand] python" in msg and words in msg
     assert msg.startswith(str(prob))
+
+
+def test_mutated_problem_files_never_crash():
+    # random small edits of the shipped files must give a Problem or a ProblemError, nothing else
+    import random
+    rng = random.Random(7)
+    texts = [f.read_text() for f in list_problems([bundled_problem_dir()])]
+    alphabet = '[]{}="01.-x,_ e#\n*('
+    for _ in range(400):
+        s = list(rng.choice(texts))
+        for _ in range(rng.randint(1, 3)):
+            j = rng.randrange(len(s))
+            op = rng.random()
+            if op < 0.4:
+                del s[j]
+            elif op < 0.8:
+                s[j] = rng.choice(alphabet)
+            else:
+                s.insert(j, rng.choice(alphabet))
+        try:
+            parse_problem("".join(s), path="fuzz.toml")
+        except ProblemError as exc:
+            assert "\n" not in exc.headline and exc.headline.startswith("fuzz.toml")
