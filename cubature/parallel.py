@@ -216,6 +216,8 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
             raise _WorkerFailure(f"could not be loaded in the worker: {_one_line(exc)}") from None
     else:
         f = obj
+    if not X.flags.writeable:  # joblib hands large arrays over as read-only memory maps
+        X = np.array(X)
     try:
         with np.errstate(all="ignore"):
             return _eval_chunks(f, X, bounds - bounds[0])
