@@ -1,0 +1,224 @@
+"""Stopping a headless run: signals, kill -9, stop-request; resuming to the same bits.
+
+The engine's contract (cubature/engine.py, cubature/checkpoint.py) is that a
+run resumed from a checkpoint ends with exactly the same value as one that
+never stopped; these tests check that through the command line, with real
+processes and real signals.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+# ~2 s of work on one core: a 4-D Gaussian times a narrow Lorentzian ridge (no closed form needed:
+# the checks compare runs with each other, and with scipy below)
+SLOW = """
+title = "ridge in 4-D"
+[domain]
+variables = ["x", "y", "z", "w"]
+box = [[-2, 2], [-2, 2], [-2, 2], [-2, 2]]
+[integrand]
+expr = "exp(-(x*x + y*y + z*z + w*w)) / (1 + 100*(x - 0.3)**2 + 50*(y + 0.2)**2)"
+[goal]
+rel_tol = 3e-8
+"""
+
+# far more work than any test waits for
+ENDLESS = SLOW.replace("rel_tol = 3e-8", "rel_tol = 1e-13")
+
+
+def _env():
+    env = dict(os.environ)
+    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
+    return env
+
+
+def start(*args, cwd):
+    return subprocess.Popen([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=_env(),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+
+
+def cubage(*args, cwd, timeout=120):
+    return subprocess.run([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=_env(),
+                          capture_output=True, text=True, timeout=timeout)
+
+
+def wait_for(cond, proc, timeout=60.0, what="condition"):
+    t0 = time.monotonic()
+    while not cond():
+        if proc.poll() is not None:
+            out, err = proc.communicate()
+            pytest.fail(f"process ended (rc {proc.returncode}) before {what}: {err[-2000:]}")
+        if time.monotonic() - t0 > timeout:
+            proc.kill()
+            pytest.fail(f"timed out waiting for {what}")
+        time.sleep(0.05)
+
+
+def progress_lines(d: Path) -> int:
+    try:
+        return len((d / "progress.jsonl").read_text().splitlines())
+    except OSError:
+        return 0
+
+
+@pytest.fixture(scope="module")
+def work(tmp_path_factory):
+    """The problem file, and an uninterrupted run of it started in the background."""
+    base = tmp_path_factory.mktemp("signals")
+    prob = base / "slow.toml"
+    prob.write_text(SLOW)
+    ref = start("run", prob, "--json", cwd=base)
+    state = {"base": base, "prob": prob, "proc": ref, "result": None}
+    yield state
+    if ref.poll() is None:
+        ref.kill()
+        ref.wait()
+
+
+def reference_result(work) -> dict:
+    if work["result"] is None:
+        out, err = work["proc"].communicate(timeout=180)
+        assert work["proc"].returncode == 0, err
+        work["result"] = json.loads(out)
+    return work["result"]
+
+
+def _history_rows(d: Path) -> list[float]:
+    rows = []
+    for line in (d / "progress.jsonl").read_text().splitlines():
+        try:
+            rec = json.loads(line)
+        except ValueError:
+            continue          # a line cut by kill -9
+        rows += [r[0] for r in rec["history"]]
+    return rows
+
+
+def test_sigterm_then_resume_gives_the_same_bits(work):
+    d = work["base"] / "term"
+    p = start("run", work["prob"], "--json", "--run-dir", d, cwd=work["base"])
+    wait_for(lambda: progress_lines(d) >= 2, p, what="two progress lines")
+    p.send_signal(signal.SIGTERM)
+    out, err = p.communicate(timeout=60)
+    assert p.returncode == 3, err
+    stopped = json.loads(out)
+    assert stopped["status"] == "stopped" and stopped["stopped_by"] == "SIGTERM"
+    res = json.loads((d / "result.json").read_text())
+    assert res["status"] == "stopped" and res["value"] == stopped["value"]
+    assert (d / "checkpoint.npz").is_file() and not (d / "lock").exists()
+
+    r = cubage("resume", d, "--json", cwd=work["base"])
+    assert r.returncode == 0, r.stderr
+    done = json.loads(r.stdout)
+    ref = reference_result(work)
+    assert done["status"] == "converged"
+    # the engine's resume guarantee: bit-for-bit the uninterrupted value (and the same work)
+    assert done["value"] == ref["value"]
+    assert done["error"] == ref["error"]
+    assert done["evaluations"] == ref["evaluations"] and done["regions"] == ref["regions"]
+    assert json.loads((d / "result.json").read_text())["status"] == "converged"
+    rows = _history_rows(d)
+    assert rows == sorted(set(rows))          # appended to the same log, no row twice
+
+
+def test_kill_9_after_a_checkpoint_then_resume_gives_the_same_bits(work):
+    d = work["base"] / "kill"
+    p = start("run", work["prob"], "--run-dir", d, "--checkpoint-every", "0.5", cwd=work["base"])
+    wait_for(lambda: (d / "checkpoint.npz").is_file(), p, what="the first checkpoint")
+    time.sleep(0.3)
+    p.send_signal(signal.SIGKILL)
+    p.communicate(timeout=30)
+    assert p.returncode == -signal.SIGKILL
+    assert (d / "lock").is_file()             # nobody cleaned up: a stale lock
+    assert not (d / "result.json").exists()
+
+    r = cubage("resume", d, "--json", cwd=work["base"])
+    assert r.returncode == 0, r.stderr
+    assert "stale lock" in r.stderr
+    done = json.loads(r.stdout)
+    ref = reference_result(work)
+    assert done["status"] == "converged"
+    assert done["value"] == ref["value"] and done["evaluations"] == ref["evaluations"]
+    rows = _history_rows(d)
+    assert rows == sorted(set(rows))
+
+
+def test_value_agrees_with_scipy(work):
+    # an independent check of the figure the bit-for-bit tests compare against
+    from scipy.integrate import nquad
+    import math
+    ref = reference_result(work)
+
+    def f(w, z, y, x):
+        return math.exp(-(x * x + y * y + z * z + w * w)) / (1 + 100 * (x - 0.3) ** 2 + 50 * (y + 0.2) ** 2)
+
+    # separable: the z and w factors are (sqrt(pi) erf(2))^2 (Gaussian integral, A&S 7.1.1)
+    zw = (math.sqrt(math.pi) * math.erf(2.0)) ** 2
+    xy, _ = nquad(lambda y, x: f(0, 0, y, x), [[-2, 2], [-2, 2]], opts={"epsabs": 1e-13, "epsrel": 1e-11})
+    assert ref["value"] == pytest.approx(xy * zw, rel=1e-7)
+
+
+def test_stop_request_file_stops_with_exit_3(tmp_path):
+    prob = tmp_path / "endless.toml"
+    prob.write_text(ENDLESS)
+    d = tmp_path / "rd"
+    p = start("run", prob, "--json", "--run-dir", d, cwd=tmp_path)
+    wait_for(lambda: progress_lines(d) >= 1, p, what="the first progress line")
+    (d / "stop-request").touch()
+    out, err = p.communicate(timeout=60)
+    assert p.returncode == 3, err
+    res = json.loads(out)
+    assert res["status"] == "stopped" and res["stopped_by"] == "stop-request"
+    assert json.loads((d / "result.json").read_text())["status"] == "stopped"
+    assert (d / "checkpoint.npz").is_file()
+    assert not (d / "stop-request").exists()      # consumed, so a resume is not stopped at once
+
+
+def _in_process_with_signal(argv, signum, after, capsys):
+    """Run cubature.cli.main(argv) here and send ourselves ``signum`` after ``after`` seconds."""
+    from cubature.cli import main
+    timer = threading.Timer(after, os.kill, (os.getpid(), signum))
+    capsys.readouterr()
+    timer.start()
+    try:
+        code = main([str(a) for a in argv])
+    finally:
+        timer.cancel()
+    cap = capsys.readouterr()
+    return code, cap.out, cap.err
+
+
+def test_sigint_without_run_dir_stops_with_the_estimate(tmp_path, capsys):
+    prob = tmp_path / "endless.toml"
+    prob.write_text(ENDLESS)
+    before = signal.getsignal(signal.SIGINT)
+    code, out, err = _in_process_with_signal(["run", prob, "--json"], signal.SIGINT, 0.7, capsys)
+    assert code == 3, err
+    res = json.loads(out)
+    assert res["status"] == "stopped" and res["stopped_by"] == "SIGINT"
+    assert res["evaluations"] > 0 and res["value"] > 0    # positive integrand, so a positive estimate
+    assert signal.getsignal(signal.SIGINT) is before       # handlers restored
+
+
+def test_sighup_with_run_dir_checkpoints_and_stops(tmp_path, capsys):
+    prob = tmp_path / "endless.toml"
+    prob.write_text(ENDLESS)
+    d = tmp_path / "rd"
+    code, out, err = _in_process_with_signal(["run", prob, "--json", "--run-dir", d], signal.SIGHUP, 0.7, capsys)
+    assert code == 3, err
+    res = json.loads(out)
+    assert res["stopped_by"] == "SIGHUP"
+    assert json.loads((d / "result.json").read_text())["status"] == "stopped"
+    assert (d / "checkpoint.npz").is_file() and not (d / "lock").exists()
