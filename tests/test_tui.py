@@ -1,0 +1,416 @@
+"""The text UI, driven through Textual's headless harness (App.run_test + pilot).
+
+Integrals checked here have closed forms:
+
+* ``exp(x + y)`` on [0, 1]^2 is ``(e - 1)^2`` (separable, elementary calculus);
+* ``|u - v|`` on [0, 1]^2 is ``1/3`` (elementary: 2 * int_0^1 int_0^x (x - y) dy dx = 2/6).
+
+The kink along the diagonal keeps the engine busy for seconds, so it is the
+problem used for pausing, stopping and changing the goal mid-run.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import html
+import json
+import math
+import re
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from cubature import Box, Run
+from cubature.observe import snapshot_to_record
+
+from tui.app import CubageApp, collect_files, main
+from tui.confirm import AskModal
+from tui.follow import RunDirFollower
+from tui.forecast import density_grid, forecast_evaluations
+from tui.meta import meta_from_file
+from tui.picker import PickerScreen, parse_overrides
+from tui.run_view import RunView
+from tui.widgets.readout import Readout
+
+E2 = (math.e - 1.0) ** 2        # closed form of the exp(x+y) integral, see the module docstring
+THIRD = 1.0 / 3.0               # closed form of the |u-v| integral, see the module docstring
+
+EXP2 = """title = "exp(x+y) on the unit square"
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "exp(x + y)"
+[goal]
+rel_tol = 1e-10
+[reference]
+value = 2.9524924420125593
+source = "closed form (e-1)^2"
+"""
+
+KINK = """title = "kink along the diagonal"
+[domain]
+variables = ["u", "v"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "abs(u - v)"
+[goal]
+rel_tol = 1e-15
+max_evals = 2_000_000_000
+[reference]
+value = 0.3333333333333333
+source = "elementary integral"
+"""
+
+BAD = """title = "broken on purpose"
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "exp(x + )"
+"""
+
+PY = """title = "own code"
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+python = "tuicode.py:f"
+"""
+
+PYCODE = """import numpy as np
+def f(X):
+    return X[:, 0] * X[:, 1]
+"""
+
+
+@pytest.fixture
+def probs(tmp_path: Path) -> Path:
+    d = tmp_path / "probs"
+    d.mkdir()
+    (d / "a_exp2.toml").write_text(EXP2)
+    (d / "b_kink.toml").write_text(KINK)
+    (d / "c_bad.toml").write_text(BAD)
+    return d
+
+
+def screen_text(app) -> str:
+    """The visible screen as plain text (from Textual's SVG screenshot)."""
+    svg = app.export_screenshot()
+    text = re.sub(r"<[^>]+>", "", svg)
+    return html.unescape(text).replace("\xa0", " ")
+
+
+async def wait_until(pilot, cond, timeout: float = 15.0) -> bool:
+    end = time.monotonic() + timeout
+    while time.monotonic() < end:
+        if cond():
+            return True
+        await pilot.pause(0.1)
+    return bool(cond())
+
+
+async def open_problem(pilot, app, index: int) -> RunView:
+    await pilot.pause(0.2)
+    for _ in range(index):
+        await pilot.press("down")
+    await pilot.press("enter")
+    assert await wait_until(pilot, lambda: isinstance(app.screen, RunView), 5)
+    return app.screen
+
+
+def run(coro):
+    return asyncio.run(coro)
+
+
+# --------------------------------------------------------------------------
+# picker
+# --------------------------------------------------------------------------
+
+def test_picker_preview_shows_validation_error(probs):
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.2)
+            assert isinstance(app.screen, PickerScreen)
+            assert "a_exp2" in screen_text(app) and "c_bad" in screen_text(app)
+            await pilot.press("down", "down")
+            await pilot.pause(0.2)
+            text = screen_text(app)
+            # the parser's message for the broken expression, with its caret line
+            assert "[integrand] expr" in text
+            assert "exp(x + )" in text and "^" in text
+            await pilot.press("enter")          # an invalid problem does not open
+            await pilot.pause(0.2)
+            assert isinstance(app.screen, PickerScreen)
+    run(go())
+
+
+def test_picker_overrides_are_checked():
+    assert parse_overrides("1e-4", "", "2") == {"rel_tol": 1e-4, "workers": 2}
+    assert parse_overrides("", "", "auto") == {"workers": "auto"}
+    assert parse_overrides("", "", "") == {}
+    for bad, word in ((("abc", "", ""), "rel tol"), (("", "-1", ""), "abs tol"), (("", "", "0"), "workers"),
+                      (("0", "0", ""), "both")):
+        with pytest.raises(ValueError, match=word):
+            parse_overrides(*bad)
+
+
+def test_converged_run_matches_closed_form(probs):
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 0)
+            assert view.state == "ready"
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "converged")
+            res = view.run.result()
+            assert abs(res.value - E2) < 1e-8          # (e-1)^2, closed form
+            await pilot.pause(0.4)
+            text = screen_text(app)
+            assert "CONVERGED" in text and "NOT CONVERGED" not in text
+            assert "not a bound" in text
+    run(go())
+
+
+# --------------------------------------------------------------------------
+# live run: pause, tolerance, stop
+# --------------------------------------------------------------------------
+
+def test_pause_resume_numbers_change_and_goal_changes(probs):
+    # Note: while the engine works, each pilot.press waits up to ~1 s for the process to look idle
+    # (Textual's harness), so most keys here are pressed while the run is on hold.
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 1)
+            readout = view.query_one("#readout", Readout)
+            rel0 = view.run.settings.rel_tol
+            await pilot.press("g")
+            await pilot.press("right_square_bracket")       # tighten while running: rel_tol / 10
+            assert view.run.settings.rel_tol == pytest.approx(rel0 / 10, rel=1e-12)
+            await pilot.press("space")
+            assert await wait_until(pilot, lambda: readout.snap is not None and readout.snap.status == "paused")
+            e1 = readout.snap.evaluations
+            assert e1 > 0 and "PAUSED" in screen_text(app)
+            await pilot.press("space")
+            await pilot.pause(0.3)
+            await pilot.press("space")
+            assert await wait_until(pilot, lambda: readout.snap.status == "paused" and readout.snap.evaluations > e1)
+            assert readout.snap.evaluations > e1
+            await pilot.press("left_square_bracket", "left_square_bracket")   # loosen twice: x 100
+            assert view.run.settings.rel_tol == pytest.approx(rel0 * 10, rel=1e-12)
+            await pilot.press("h")                           # stop from hold
+            assert await wait_until(pilot, lambda: view.state == "stopped")
+    run(go())
+
+
+def test_stop_now_writes_unconverged_result(probs):
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 1)
+            await pilot.press("g")
+            await pilot.press("h")
+            assert await wait_until(pilot, lambda: view.state == "stopped" and view.result_file is not None)
+            await pilot.press("v")   # the map panel renders after the stop too
+            await pilot.press("a")
+            await pilot.pause(0.4)
+            text = screen_text(app)
+            assert "NOT CONVERGED" in text
+            assert "u" in text and "v" in text
+            return view.result_file
+    path = run(go())
+    assert path == probs / "b_kink.result.json"        # next to the problem file
+    rec = json.loads(path.read_text())
+    assert rec["status"] == "stopped" and rec["converged"] is False
+    assert math.isfinite(rec["value"]) and abs(rec["value"] - THIRD) < 1e-4   # 1/3, closed form
+    assert rec["evaluations"] > 0
+    assert "not a guaranteed bound" in rec["error_note"]
+
+
+def test_quit_while_running_asks_first(probs):
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 1)
+            await pilot.press("g")
+            await pilot.press("space")        # on hold: still a live run
+            await pilot.press("q")
+            await pilot.pause(0.2)
+            assert isinstance(app.screen, AskModal)
+            await pilot.press("n")
+            await pilot.pause(0.2)
+            assert app.screen is view and view.live
+            await pilot.press("b")
+            await pilot.pause(0.2)
+            assert isinstance(app.screen, AskModal)
+            await pilot.press("y")
+            assert await wait_until(pilot, lambda: isinstance(app.screen, PickerScreen))
+            assert await wait_until(pilot, lambda: view.run.done)
+    run(go())
+
+
+def test_python_integrand_needs_a_yes(tmp_path):
+    (tmp_path / "tuicode.py").write_text(PYCODE)
+    (tmp_path / "own.toml").write_text(PY)
+
+    async def go():
+        app = CubageApp(collect_files([str(tmp_path / "own.toml")]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.2)
+            assert "tuicode.py:f" in screen_text(app)
+            await pilot.press("enter")
+            await pilot.pause(0.2)
+            assert isinstance(app.screen, AskModal)
+            await pilot.press("n")
+            await pilot.pause(0.2)
+            assert isinstance(app.screen, PickerScreen)
+            assert not any(k.startswith("cubage_user_tuicode") for k in sys.modules)
+            await pilot.press("enter")
+            await pilot.pause(0.2)
+            await pilot.press("y")
+            assert await wait_until(pilot, lambda: isinstance(app.screen, RunView))
+            view = app.screen
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "converged")
+            # int_0^1 int_0^1 x y dx dy = 1/4 (closed form)
+            assert view.run.result().value == pytest.approx(0.25, abs=1e-10)
+    run(go())
+
+
+def test_layout_scales_up(probs):
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(160, 48)) as pilot:
+            view = await open_problem(pilot, app, 1)
+            await pilot.press("g")
+            await pilot.press("h")
+            assert await wait_until(pilot, lambda: view.state == "stopped")
+            await pilot.pause(0.3)
+            text = screen_text(app)
+            for word in ("Estimate", "Convergence", "Queue", "Map", "Notes", "evals", "regions"):
+                assert word in text
+            assert view.query_one("#chart").size.width > 80
+    run(go())
+
+
+# --------------------------------------------------------------------------
+# following a run directory
+# --------------------------------------------------------------------------
+
+def _write_records(run_obj: Run, path: Path, n_lines: int) -> int:
+    done = 0
+    with open(path, "a") as fh:
+        for k, snap in enumerate(run_obj):
+            rec = snapshot_to_record(snap, history_from=done, with_map=(k % 5 == 0))
+            done = len(snap.history)
+            fh.write(json.dumps(rec) + "\n")
+            if k + 1 >= n_lines:
+                break
+    return done
+
+
+def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
+    f = lambda X: np.abs(X[:, 0] - X[:, 1])  # noqa: E731
+    r = Run(f, Box([0, 0], [1, 1]), rel_tol=1e-15, max_evals=10**9, snapshot_interval=0.0, batch=1)
+    prog = tmp_path / "progress.jsonl"
+    rows = _write_records(r, prog, 6)
+    fol = RunDirFollower(tmp_path)
+    assert fol.poll() == 6
+    assert fol.snapshot.evaluations == r.evaluations
+    assert len(fol.snapshot.history) == rows               # rows accumulated over all records
+    assert fol.snapshot.map_centres.shape[1] == 2         # map kept from an earlier record
+    # half a line is held back until the rest arrives
+    snap = r.snapshot()
+    line = json.dumps(snapshot_to_record(snap, history_from=rows)) + "\n"
+    with open(prog, "a") as fh:
+        fh.write(line[:40])
+    assert fol.poll() == 0
+    with open(prog, "a") as fh:
+        fh.write(line[40:])
+    assert fol.poll() == 1 and fol.bad_lines == 0
+    assert fol.result is None
+    (tmp_path / "result.json").write_text(json.dumps({"status": "stopped", "value": 0.3, "error": 0.1}))
+    fol.poll()
+    assert fol.result["status"] == "stopped"
+    p = fol.request_stop()
+    assert p == tmp_path / "stop-request" and p.exists()
+
+
+def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
+    rd = tmp_path / "rd"
+    proc = subprocess.Popen([sys.executable, "-m", "cubature.cli", "run", str(probs / "b_kink.toml"),
+                             "--run-dir", str(rd)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            stdin=subprocess.DEVNULL)
+    try:
+        end = time.monotonic() + 20
+        while time.monotonic() < end and not ((rd / "progress.jsonl").exists()
+                                               and (rd / "progress.jsonl").stat().st_size > 0):
+            time.sleep(0.1)
+        assert (rd / "progress.jsonl").exists(), proc.stderr.read().decode() if proc.poll() is not None else ""
+
+        async def go():
+            app = CubageApp(follow=(RunDirFollower(rd), meta_from_file(rd / "problem.toml")))
+            async with app.run_test(size=(80, 24)) as pilot:
+                view = app.screen
+                assert isinstance(view, RunView)
+                readout = view.query_one("#readout", Readout)
+                assert await wait_until(pilot, lambda: readout.snap is not None and readout.snap.evaluations > 0)
+                e1 = readout.snap.evaluations
+                assert await wait_until(pilot, lambda: readout.snap.evaluations > e1)
+                await pilot.press("h")
+                # created by the key; the runner consumes it when it sees it
+                assert (rd / "stop-request").exists() or (rd / "result.json").exists()
+                assert await wait_until(pilot, lambda: view.state == "stopped", 20)
+                await pilot.pause(0.3)
+                text = screen_text(app)
+                assert "NOT CONVERGED" in text and "kink along the diagonal" in text
+        run(go())
+        assert proc.wait(timeout=20) == 3                  # the runner's exit code for a requested stop
+        res = json.loads((rd / "result.json").read_text())
+        assert res["status"] == "stopped" and abs(res["value"] - THIRD) < 1e-4   # 1/3, closed form
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+
+
+# --------------------------------------------------------------------------
+# helpers and bad input
+# --------------------------------------------------------------------------
+
+def test_forecast_on_a_power_law():
+    # err = C n^-2 exactly, so the goal g is reached at n = sqrt(C/g) (closed form of the power law)
+    n = np.geomspace(1e3, 1e6, 30)
+    C = 1e4
+    err = C * n**-2.0
+    hist = np.column_stack([n, n / 10, np.ones_like(n), err])
+    got = forecast_evaluations(hist, np.array([1e-12]))
+    assert got == pytest.approx(math.sqrt(C / 1e-12), rel=1e-6)
+    # a flat error gives no forecast
+    flat = np.column_stack([n, n / 10, np.ones_like(n), np.full_like(n, 1e-3)])
+    assert forecast_evaluations(flat, np.array([1e-12])) is None
+
+
+def test_density_grid_counts_points():
+    # four points, one in each quadrant of the unit square plus one extra top-right (counted by hand)
+    pts = np.array([[0.1, 0.1], [0.9, 0.1], [0.1, 0.9], [0.9, 0.9], [0.8, 0.7]])
+    g = density_grid(pts, [0, 0], [1, 1], 2, 2)
+    assert g.tolist() == [[1, 2], [1, 1]]      # row 0 is the top of the picture
+    assert g.sum() == 5
+
+
+def test_main_bad_input_exit_2(tmp_path, capsys):
+    assert main([str(tmp_path / "nope.toml")]) == 2
+    err = capsys.readouterr().err
+    assert "nope.toml" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    assert main(watch=str(tmp_path / "nodir")) == 2
+    assert "no such run directory" in capsys.readouterr().err
+    (tmp_path / "empty").mkdir()
+    assert main([str(tmp_path / "empty")]) == 2
+    assert "no problem files" in capsys.readouterr().err
