@@ -311,7 +311,7 @@ def classify(status: str, true_err: float, goal: float) -> str:
     """``"ok"``, ``"budget"`` (goal not reached: budget, time or region limit)
     or ``"wrong"`` (claims convergence but the true error exceeds
     ``WRONG_FACTOR`` times the goal); ``"failed"`` stays ``"failed"``."""
-    if status == "failed":
+    if status in ("failed", "engine-error"):
         return "failed"
     if status != "converged":
         return "budget"
@@ -329,7 +329,7 @@ def ratios_to_best(values: dict) -> dict:
 
 COLUMNS = ["group", "d", "tol", "method", "runs", "median_evals", "evals_vs_best", "median_seconds",
            "median_true_rel_err", "median_reported_rel_err", "reliability", "budget_failures",
-           "wrong_answers"]
+           "wrong_answers", "errors"]
 
 
 def aggregate(runs: list[dict]) -> list[dict]:
@@ -360,6 +360,7 @@ def aggregate(runs: list[dict]) -> list[dict]:
             "budget_failures": sum(r["outcome"] == "budget" for r in rs),
             "wrong_answers": sum(r["outcome"] == "wrong" for r in rs),
             "integrand_failures": sum(r["outcome"] == "failed" for r in rs),
+            "errors": sum(r["outcome"] == "failed" for r in rs),
         })
     by_problem: dict[tuple, dict] = {}
     for row in rows:
@@ -384,14 +385,20 @@ def run_strategy(strategy: Strategy, case: Case, tol: float, max_evals: int) -> 
     t0 = time.perf_counter()
     run = Run(case.f, case.domain, rule=strategy.rule, rel_tol=tol, abs_tol=0.0, max_evals=max_evals,
               fingerprint=f"bench:{case.group}:{case.d}:{case.draw}", **strategy.options)
-    message = ""
+    message = engine_error = ""
+    status = None
     try:
         res = run.run()
     except IntegrandError as exc:
         res = run.result()
         message = str(exc)
+    except Exception as exc:  # an engine defect must not end the whole suite: record it, say so
+        res = run.result()
+        engine_error = f"{type(exc).__name__}: {exc}"
+        status = "engine-error"
     return {"value": res.values, "error": res.errors, "evaluations": res.evaluations,
-            "seconds": time.perf_counter() - t0, "status": res.status, "message": message}
+            "seconds": time.perf_counter() - t0, "status": status or res.status, "message": message,
+            "engine_error": engine_error}
 
 
 def _fmt(v, kind="g") -> str:
@@ -421,7 +428,7 @@ _KINDS = {"tol": "tol", "median_evals": "int", "evals_vs_best": "ratio", "median
 SHORT = {"group": "case", "d": "d", "tol": "tol", "method": "method", "runs": "runs", "median_evals": "evals",
          "evals_vs_best": "x best", "median_seconds": "time s", "median_true_rel_err": "true err",
          "median_reported_rel_err": "rep. err", "reliability": "held", "budget_failures": "budget",
-         "wrong_answers": "wrong"}
+         "wrong_answers": "wrong", "errors": "errors"}
 
 
 def format_row(row: dict) -> list[str]:
@@ -582,6 +589,7 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
                     jobs.append((case, tol, "peer", pe))
     runs: list[dict] = []
     failed = []
+    engine_errors: dict[str, list[str]] = {}
     err_console = Console(stderr=True)
     prog = Progress(TextColumn("[bold]bench[/]"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
                     TextColumn("{task.description}"), console=err_console, transient=True,
@@ -600,6 +608,9 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
             r = best
             if r.get("message"):
                 failed.append(f"{case.group} d={case.d} {label}: {r['message']}")
+            if r.get("engine_error"):
+                engine_errors.setdefault(label, []).append(f"{case.group} d={case.d} draw {case.draw}: "
+                                                           f"{r['engine_error']}")
             terr = true_error(r["value"], case.exact)
             rep = float(np.max(r["error"])) if np.size(r["error"]) else math.inf
             rep = rep if np.isfinite(terr) else math.nan
@@ -611,6 +622,9 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
                          "scale": float(np.abs(case.exact).min()), "outcome": classify(r["status"], terr, goal)})
             prog.advance(task)
     rows = aggregate(runs)
+    for label, errs in engine_errors.items():
+        notes.append(f"{label}: the engine raised on {len(errs)} run(s), counted as failures "
+                     f"(first: {errs[0]})")
     out_dir.mkdir(parents=True, exist_ok=True)
     stamp = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
     header = [f"# cubage bench results ({stamp})", "",
@@ -620,7 +634,7 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
               "Reported errors are heuristic estimates, not bounds; 'reliability' is the share of runs whose "
               "true error was within the reported error. 'evals_vs_best' compares methods that met the goal "
               f"on every run; 'wrong_answers' counts runs that claimed convergence with a true error above "
-              f"{WRONG_FACTOR:g}x the goal."]
+              f"{WRONG_FACTOR:g}x the goal; 'errors' counts runs that raised (integrand or engine)."]
     header += [f"- note: {n}" for n in notes]
     write_markdown(out_dir / "results.md", rows, header)
     write_csv(out_dir / "results.csv", rows, COLUMNS)
