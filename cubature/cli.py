@@ -245,6 +245,7 @@ def _settings(problem, args) -> dict:
 
 def _parallel(problem, workers, backend, cluster):
     """(evaluator or None, description, note): the problem's method with overrides."""
+    given_workers, given_backend, given_cluster = workers, backend, cluster
     workers = workers if workers is not None else problem.method.workers
     backend = backend if backend is not None else problem.method.backend
     cluster = cluster if cluster is not None else problem.method.cluster
@@ -258,7 +259,12 @@ def _parallel(problem, workers, backend, cluster):
     try:
         ev = parallel.make_evaluator(workers=workers, backend=backend, cluster=cluster, spec=problem.integrand_spec)
     except (ValueError, TypeError) as exc:
-        raise UsageError(f"--workers/--backend/--cluster: {exc}") from None
+        msg = str(exc)
+        key = "cluster" if ("cluster" in msg or "scheduler" in msg) and cluster else \
+            "workers" if "workers" in msg else "backend"
+        given = {"workers": given_workers, "backend": given_backend, "cluster": given_cluster}[key]
+        where = f"--{key}" if given is not None else f"{_problem_where(problem)}: [method] {key}"
+        raise UsageError(f"{where}: {msg}") from None
     if ev is None:
         return None, "serial", None
     desc = ev.describe() if hasattr(ev, "describe") else type(ev).__name__
@@ -313,6 +319,23 @@ def _interactive(args) -> bool:
     return (not args.json) and sys.stdout.isatty() and os.environ.get("TERM") != "dumb"
 
 
+def _continue_hint(res, run, rundir) -> str:
+    """How to go on after stopping short of the goal (empty when there is nothing to say)."""
+    if res.status in ("converged", "failed"):
+        return ""
+    opt = ""
+    if res.status == "max-evals":
+        opt = f" --max-evals {2 * int(run.settings.max_evals):_}"
+    elif res.status == "time-limit" and run.settings.time_limit:
+        opt = f" --time-limit {2 * run.settings.time_limit:g}"
+    elif res.status in ("region-limit", "stalled"):
+        return "the goal may be out of reach for this rule; try a looser --rel-tol/--abs-tol or another --rule"
+    if rundir is not None:
+        return f"continue with: cubage resume {rundir.path}{opt}"
+    return f"run again with{opt} (or keep a --run-dir to be able to continue)" if opt else \
+        "keep a --run-dir to be able to continue a stopped run"
+
+
 def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_after: float = -1.0,
              checkpoint_every: float = 60.0) -> int:
     """Drive the run with the right display, write the result, print the ending; the exit code."""
@@ -345,8 +368,10 @@ def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_aft
         if out.stop_reason:
             more.append(f"{'stopped by':<11} {out.stop_reason}")
         if rundir is not None:
-            more.append(f"{'run dir':<11} {rundir.path}" +
-                        (f"   (continue with: cubage resume {rundir.path})" if code == EXIT_SHORT else ""))
+            more.append(f"{'run dir':<11} {rundir.path}")
+        hint = _continue_hint(res, run, rundir)
+        if hint:
+            more.append(f"{'next':<11} {hint}")
         for line in summary_lines(res, STATUSES, problem.reference, more):
             print(line, flush=True)
     if out.failure:
