@@ -414,3 +414,41 @@ def test_main_bad_input_exit_2(tmp_path, capsys):
     (tmp_path / "empty").mkdir()
     assert main([str(tmp_path / "empty")]) == 2
     assert "no problem files" in capsys.readouterr().err
+
+
+def test_integrand_failure_is_reported(tmp_path):
+    # log of a negative number is NaN for x < 0.3: the engine refuses it and names the point
+    (tmp_path / "nan.toml").write_text(EXP2.replace('"exp(x + y)"', '"log(x - 0.3)"').replace(
+        "[reference]\nvalue = 2.9524924420125593\nsource = \"closed form (e-1)^2\"\n", ""))
+
+    async def go():
+        app = CubageApp(collect_files([str(tmp_path)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 0)
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "failed")
+            await pilot.pause(0.3)
+            notes = "\n".join(view.notes.lines_text)
+            assert "integrand failure" in notes and "x = (" in notes
+            assert "FAILED" in screen_text(app)
+    run(go())
+
+
+def test_workers_override_goes_through_the_parallel_evaluator(probs):
+    pytest.importorskip("cubature.parallel")
+
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.2)
+            await pilot.press("tab", "tab", "tab")     # list -> rel tol -> abs tol -> workers
+            await pilot.press("2")
+            await pilot.press("enter")
+            assert await wait_until(pilot, lambda: isinstance(app.screen, RunView), 10)
+            view = app.screen
+            assert view.overrides == {"workers": 2}
+            assert view.evaluator is not None
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "converged", 30)
+            assert abs(view.run.result().value - E2) < 1e-8          # (e-1)^2, closed form
+    run(go())

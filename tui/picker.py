@@ -72,7 +72,7 @@ class PickerScreen(Screen):
 
     BINDINGS = [
         Binding("enter", "open", "Open & run", priority=True),
-        Binding("tab", "focus_next", "Next field", show=True),
+        Binding("tab", "app.focus_next", "Next field"),
         Binding("ctrl+r", "reload", "Reload"),
         Binding("escape", "focus_list", "List", show=False),
         Binding("ctrl+q", "app.quit", "Quit"),
@@ -93,6 +93,7 @@ class PickerScreen(Screen):
             yield ol
             with VerticalScroll(id="preview-scroll", classes="panel") as vs:
                 vs.border_title = "Preview"
+                vs.can_focus = False
                 yield Static("", id="preview")
         with Horizontal(id="overrides"):
             yield Label("rel tol")

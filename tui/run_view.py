@@ -52,26 +52,28 @@ def make_evaluator(problem, workers) -> tuple[object | None, str]:
     evaluator or None, str
         None means serial, in-process; the string says what was chosen.
     """
-    if workers in (None, 1, "1"):
-        return None, "serial (1 worker)"
+    method = problem.method
     try:
         from cubature import parallel  # written by another part of the project
         factory = parallel.make_evaluator
     except (ImportError, AttributeError):
-        return None, "serial (the parallel evaluators are not available in this install)"
+        if workers in (None, 1, "1") and not getattr(method, "cluster", None):
+            return None, "in-process"
+        return None, "in-process (the parallel evaluators are not available in this install)"
     try:
         params = inspect.signature(factory).parameters
     except (TypeError, ValueError):
         params = {}
-    offer = {"workers": workers, "backend": getattr(problem.method, "backend", "auto"),
-             "cluster": getattr(problem.method, "cluster", None), "spec": problem.integrand_spec,
-             "integrand_spec": problem.integrand_spec}
+    offer = {"workers": workers, "backend": getattr(method, "backend", "auto"),
+             "cluster": getattr(method, "cluster", None), "spec": problem.integrand_spec}
     kw = {k: v for k, v in offer.items() if k in params}
     try:
         ev = factory(**kw)
     except Exception as exc:  # noqa: BLE001 - fall back to serial, say why
-        return None, f"serial (parallel evaluator failed: {type(exc).__name__}: {exc})"
-    return ev, f"{workers} workers"
+        return None, f"in-process (parallel evaluator not started: {exc})"
+    describe = getattr(parallel, "describe_evaluator", None)
+    how = describe(ev) if callable(describe) else ("in-process" if ev is None else f"{workers} workers")
+    return ev, how
 
 
 class RunView(Screen):
