@@ -432,7 +432,7 @@ def cmd_resume(args) -> int:
     from .checkpoint import read_checkpoint
     from .engine import Run
     from .problem import ProblemError, parse_problem
-    from .rundir import PROBLEM, RunDir, RunDirError
+    from .rundir import PROBLEM, RESULT, RunDir, RunDirError
 
     rd = RunDir(Path(args.dir))
     info = rd.open_existing()
@@ -472,6 +472,7 @@ def cmd_resume(args) -> int:
         rd.add_resume(info, {"started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
                              "pid": os.getpid(), "cubage_version": __version__, "overrides": goal,
                              "from_evaluations": run.evaluations, "evaluation": desc})
+        rd.file(RESULT).unlink(missing_ok=True)   # a watcher must not take the old ending for this run's
         every = args.checkpoint_every if args.checkpoint_every is not None else \
             float(saved.get("checkpoint_every", 60.0))
         return _execute(run, problem, args, name=name, rundir=rd, method_text=f"{run.rule_name}, {desc}",

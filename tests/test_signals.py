@@ -119,9 +119,12 @@ def test_sigterm_then_resume_gives_the_same_bits(work):
     assert res["status"] == "stopped" and res["value"] == stopped["value"]
     assert (d / "checkpoint.npz").is_file() and not (d / "lock").exists()
 
-    r = cubage("resume", d, "--json", cwd=work["base"])
-    assert r.returncode == 0, r.stderr
-    done = json.loads(r.stdout)
+    r = start("resume", d, "--json", cwd=work["base"])
+    # while the resumed run works, the stopped run's ending is gone (a watcher must not show it)
+    wait_for(lambda: (d / "lock").exists() and not (d / "result.json").exists(), r, what="the resume to start")
+    out, err = r.communicate(timeout=120)
+    assert r.returncode == 0, err
+    done = json.loads(out)
     ref = reference_result(work)
     assert done["status"] == "converged"
     # the engine's resume guarantee: bit-for-bit the uninterrupted value (and the same work)
