@@ -287,15 +287,15 @@ def test_layout_scales_up(probs):
     async def go():
         app = CubageApp(collect_files([str(probs)]))
         async with app.run_test(size=(160, 48)) as pilot:
-            view = await open_problem(pilot, app, 1)
+            view = await open_problem(pilot, app, 0)
             await pilot.press("g")
-            await pilot.press("h")
-            assert await wait_until(pilot, lambda: view.state == "stopped")
+            assert await wait_until(pilot, lambda: view.state == "converged")
             await pilot.pause(0.3)
             text = screen_text(app)
-            for word in ("Estimate", "Convergence", "Queue", "Map", "Notes", "evals", "regions"):
+            for word in ("Estimate", "Convergence", "Queue", "Map", "Notes", "evals", "regions", "true"):
                 assert word in text
             assert view.query_one("#chart").size.width > 80
+            assert view.query_one("#lower").size.height > 15
     run(go())
 
 
@@ -452,3 +452,16 @@ def test_workers_override_goes_through_the_parallel_evaluator(probs):
             assert await wait_until(pilot, lambda: view.state == "converged", 30)
             assert abs(view.run.result().value - E2) < 1e-8          # (e-1)^2, closed form
     run(go())
+
+
+def test_meta_of_a_python_problem_without_importing_it(tmp_path):
+    # what the follower needs from DIR/problem.toml when the integrand is the user's code
+    (tmp_path / "metacode.py").write_text(PYCODE)
+    (tmp_path / "own.toml").write_text(PY.replace('box = [[0, 1], [0, 1]]', 'box = [[0, 1], [2, inf]]')
+                                       .replace("tuicode.py", "metacode.py")
+                                       + '[reference]\nvalue = 0.5\nsource = "by hand"\n')
+    meta = meta_from_file(tmp_path / "own.toml")
+    assert meta.title == "own code" and meta.variables == ["x", "y"]
+    assert meta.reference == [0.5] and meta.reference_source == "by hand"
+    assert meta.axis_note(0) == "" and "t/(1-t)" in meta.axis_note(1)   # [2, inf) is drawn mapped
+    assert not any(k.startswith("cubage_user_metacode") for k in sys.modules)

@@ -59,6 +59,24 @@ def parse_overrides(rel: str, abs_: str, workers: str) -> dict:
     return out
 
 
+def reflow(text: str) -> str:
+    """Join the lines of each paragraph (paragraphs are separated by blank lines)."""
+    paras = [" ".join(p.split()) for p in text.strip().split("\n\n")]
+    return "\n".join(p for p in paras if p)
+
+
+def short_path(path: Path) -> str:
+    """``path`` relative to the current folder when it lies inside it."""
+    try:
+        return str(Path(path).resolve().relative_to(Path.cwd().resolve()))
+    except ValueError:
+        return str(path)
+
+
+#: The problem highlighted first when it is among the files.
+DEFAULT_PROBLEM = "gaussian-overlap"
+
+
 class PickerScreen(Screen):
     """Choose a problem file, check its preview, override the goal, open it.
 
@@ -112,8 +130,10 @@ class PickerScreen(Screen):
         self.app.sub_title = "choose a problem"
         ol = self.query_one("#problem-list", OptionList)
         if self.files:
-            ol.highlighted = 0
-            self._preview(0)
+            stems = [f.stem for f in self.files]
+            first = stems.index(DEFAULT_PROBLEM) if DEFAULT_PROBLEM in stems else 0
+            ol.highlighted = first
+            self._preview(first)
         else:
             self.query_one("#preview", Static).update(Text("No problem files (*.toml) found in the given folders.",
                                                            style="bold #f08a5d"))
@@ -154,9 +174,9 @@ class PickerScreen(Screen):
         out.add_column(overflow="fold")
         if prob is not None:
             head = Text(prob.title or path.stem, style="bold #e6e6e6")
-            out.add_row("file", str(path))
+            out.add_row("file", short_path(path))
             if prob.notes:
-                out.add_row("notes", prob.notes.strip())
+                out.add_row("notes", reflow(prob.notes))
             for label, text in prob.describe():
                 out.add_row(label, text)
             g = prob.goal
@@ -166,12 +186,12 @@ class PickerScreen(Screen):
                 from .meta import meta_from_file
                 meta = meta_from_file(path)
                 head = Text(meta.title, style="bold #e6e6e6")
-                out.add_row("file", str(path))
+                out.add_row("file", short_path(path))
                 out.add_row("dimension", f"{meta.dim} ({', '.join(meta.variables)})")
                 if meta.reference is not None:
                     out.add_row("reference", f"{meta.reference}  ({meta.reference_source})")
             except ProblemError as exc:
-                out.add_row("file", str(path))
+                out.add_row("file", short_path(path))
                 out.add_row(Text("error", style="bold #ff5f6d"), Text(str(exc), style="#ff5f6d"))
             out.add_row("integrand", Text(f"python {target}", style="#e8c547"))
             out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
@@ -180,7 +200,7 @@ class PickerScreen(Screen):
             self._placeholders("problem's", "problem's", "problem's")
         else:
             head = Text(path.stem, style="bold #e6e6e6")
-            out.add_row("file", str(path))
+            out.add_row("file", short_path(path))
             out.add_row(Text("invalid", style="bold #ff5f6d"), "")
             out.add_row("", Text(err or "", style="#ff5f6d"))
             self._placeholders("problem's", "problem's", "problem's")

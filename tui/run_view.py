@@ -473,7 +473,10 @@ class RunView(Screen):
             settings = {"rel_tol": s.rel_tol, "abs_tol": s.abs_tol, "max_evals": s.max_evals,
                         "time_limit": s.time_limit, "rule": s.rule,
                         "workers": self.overrides.get("workers", self.problem.method.workers)}
-        path = result_path(self.meta)
+        if self.follower is not None:   # the run directory belongs to its runner: write beside us instead
+            path = Path.cwd() / f"{self.follower.dir.resolve().name}.result.json"
+        else:
+            path = result_path(self.meta)
         try:
             write_result(path, result_record(res, self.meta, settings))
         except OSError as exc:
