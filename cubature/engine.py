@@ -464,9 +464,9 @@ class Run:
         absq *= vol[:, None]
         return q, np.abs(absq), fr
 
-    def _errors(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
+    def _errors(self, q: np.ndarray, absq: np.ndarray, gap: np.ndarray | None = None) -> np.ndarray:
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
-        return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
+        return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate, gap)
 
     def _keys(self, err: np.ndarray, tol: np.ndarray | None = None) -> np.ndarray:
         key = err[:, 0] if self.m == 1 else (err * self.key_weight).max(axis=1)
@@ -631,10 +631,12 @@ class Run:
         kids = self.geometry.split(parents)
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
         self.queue.pop(k)
-        err = self._errors(q, absq)
         val = q[:, 0, :]
-        self.geometry.set_split_axes(kids, self._axis_values(fr, err))
         nch = self.geometry.children_per_split
+        # what the parents' rule missed, seen by their children (per parent, per component)
+        gap = np.abs(parents["value"] - val.reshape(nch, k, -1).sum(axis=0))
+        err = self._errors(q, absq, np.tile(gap / nch, (nch, 1)))
+        self.geometry.set_split_axes(kids, self._axis_values(fr, err))
         tol = None
         if self.settings.queue == "local":
             tol = np.tile(parents["tol"] / nch, nch)

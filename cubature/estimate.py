@@ -63,12 +63,14 @@ RATIO_LIMIT = 0.25
 SAFETY = 4.0
 #: factor of the floor opinion n2 * min(1, n2/|Q|); 0 switches the floor off
 FLOOR = 1.0
+#: share of the parent-children discrepancy a child's estimate may not fall below
+GAP_FACTOR = 0.05
 #: floor relative to |q7| that accounts for rounding in the sums
 ROUNDING = 64 * np.finfo(float).eps
 
 
 def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: np.ndarray,
-                  method: str = "sharp") -> np.ndarray:
+                  method: str = "sharp", gap: np.ndarray | None = None) -> np.ndarray:
     """Error estimates per region (and component).
 
     Parameters
@@ -79,6 +81,12 @@ def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: n
         The rule applied to ``|f|`` (volume times weighted mean of |f|), a
         scale for the rounding floor.
     method : {"sharp", "plain"}
+    gap : ndarray, shape (k, m), optional
+        For children of a split: ``|Q(parent) - sum Q(children)|`` shared
+        out over the children — what the parent's rule missed.  An estimate
+        is never allowed below ``GAP_FACTOR * gap``: a region whose own nodes
+        happen to miss a feature (a kink clipping a corner between the nodes
+        makes ``q7 == q5``) is still split when its parent saw the feature.
     """
     n1 = np.abs(q7 - q5)
     if method == "plain" or q3 is None:
@@ -95,4 +103,7 @@ def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: n
             err = np.maximum(err, FLOOR * n2 * rel2)
     else:
         raise ValueError(f"error estimate must be 'sharp' or 'plain', got {method!r}")
-    return np.maximum(err, ROUNDING * absq)
+    err = np.maximum(err, ROUNDING * absq)
+    if gap is not None:
+        err = np.maximum(err, GAP_FACTOR * gap)
+    return err
