@@ -321,6 +321,7 @@ def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
     prog = tmp_path / "progress.jsonl"
     rows = _write_records(r, prog, 6)
     fol = RunDirFollower(tmp_path)
+    # round trip: the follower's rebuilt state must equal the live run's own counters
     assert fol.poll() == 6
     assert fol.snapshot.evaluations == r.evaluations
     assert len(fol.snapshot.history) == rows               # rows accumulated over all records

@@ -136,5 +136,18 @@ def main(paths: list[str] | None = None, watch: str | None = None, trust_code: b
     return int(rc) if isinstance(rc, int) else int(app.return_code or 0)
 
 
+def _cli(argv: list[str] | None = None) -> int:
+    """``python -m tui.app [PATH ...] [--watch DIR] [--trust-code]`` (the same as ``cubage tui``/``watch``)."""
+    import argparse
+    ap = argparse.ArgumentParser(prog="python -m tui.app", description="cubage's text UI: pick a problem and "
+                                 "watch it integrate, or follow a run directory of a headless run.")
+    ap.add_argument("paths", nargs="*", metavar="PATH", help="problem files or folders (default: ./problems "
+                    "when present, else the bundled examples)")
+    ap.add_argument("--watch", metavar="DIR", help="follow this run directory instead")
+    ap.add_argument("--trust-code", action="store_true", help="import Python integrands without asking")
+    args = ap.parse_args(argv)
+    return main(args.paths or None, watch=args.watch, trust_code=args.trust_code)
+
+
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main(sys.argv[1:] or None))
+    sys.exit(_cli())

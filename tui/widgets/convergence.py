@@ -29,6 +29,9 @@ class ConvergenceChart(PlotextPlot):
 
     def render(self):
         if self._empty:
+            s = self.snap
+            if s is not None and s.evaluations > 0:
+                return Text("one step so far: nothing to chart yet", style="dim")
             return Text("waiting for the first steps", style="dim")
         try:
             return super().render()

@@ -65,24 +65,34 @@ class Readout(Static):
             t.append(ESTIMATE_NOTE, "italic dim")
             return t
         m = s.components
-        show = min(m, 3)
         ref = self.meta.reference
-        for j in range(show):
-            lab = "I" if m == 1 else f"I{j}"
-            t.append(f"{lab} = ", "bold")
-            t.append(value_text(float(s.value[j])), "bold #e6e6e6")
-            t.append("\n")
-            t.append("  ± ", "dim")
-            t.append(f"{float(s.error[j]):.3e}", "#e8c547")
+        if m == 1:
+            t.append("I = ", "bold")
+            t.append(value_text(float(s.value[0])), "bold #e6e6e6")
+            t.append("\n  ± ", "dim")
+            t.append(f"{float(s.error[0]):.3e}", "#e8c547")
             t.append(" est.", "dim")
-            if ref is not None and j < len(ref):
-                te = abs(float(s.value[j]) - ref[j])
+            if ref is not None:
                 t.append("  true ", "dim")
-                t.append(f"{te:.2e}", "#6cb6d9")
+                t.append(f"{abs(float(s.value[0]) - ref[0]):.2e}", "#6cb6d9")
             t.append("\n")
-        if m > show:
-            worst = int(np.argmax(s.error / np.maximum(s.goal, 1e-300)))
-            t.append(f"  (+{m - show} more; worst I{worst} ± {float(s.error[worst]):.2e})\n", "dim")
+        else:
+            # one line per component, as many as the panel has room for
+            fixed = 6 + (1 if ref is not None and len(ref) == m else 0)
+            room = max(1, (self.size.height or 9) - fixed)
+            show = m if m <= room else max(1, room - 1)
+            for j in range(show):
+                t.append(f"I{j} ", "bold")
+                t.append(f"{float(s.value[j]):.12g}", "bold #e6e6e6")
+                t.append(" ± ", "dim")
+                t.append(f"{float(s.error[j]):.2e}\n", "#e8c547")
+            if m > show:
+                worst = int(np.argmax(s.error / np.maximum(s.goal, 1e-300)))
+                t.append(f"+{m - show} more; furthest from goal: I{worst}\n", "dim")
+            if ref is not None and len(ref) == m:
+                true = np.abs(s.value - np.asarray(ref))
+                t.append("true error max ", "dim")
+                t.append(f"{float(true.max()):.2e}\n", "#6cb6d9")
         t.append("goal ", "dim")
         g = float(np.max(s.goal)) if s.goal.size else math.nan
         t.append(f"{g:.2e}", "bold")
@@ -113,6 +123,6 @@ class Readout(Static):
                 t.append("~" + fmt_seconds(eta))
                 t.append(" (forecast)\n", "dim")
         t.append(ESTIMATE_NOTE, "italic dim")
-        if word in STATUSES and word in FINAL:
+        if word in STATUSES and word in FINAL and t.plain.count("\n") + 2 <= (self.size.height or 99):
             t.append(f"\n{word}: {STATUSES[word]}", "dim")
         return t
