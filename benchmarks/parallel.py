@@ -104,7 +104,7 @@ def efficiency(workers: int, max_evals: int, repeats: int) -> None:
     f = integrand_from_spec(spec)
     domain = cubature.Box([-1.0, -1.0, -1.0], [1.0, 1.0, 1.0])
 
-    X = np.random.default_rng(1).uniform(-1, 1, (8192, 3))
+    X = np.asfortranarray(np.random.default_rng(1).uniform(-1, 1, (8192, 3)))
     f(X)
     t0 = time.process_time()
     f(X)
@@ -145,7 +145,7 @@ def efficiency(workers: int, max_evals: int, repeats: int) -> None:
 
     # the evaluator alone, 10 calls of one full step (32768 points): CPU a point summed over every
     # process of the pool (chunking, pickling, dispatch included) -- CPU time, little affected by load
-    Xs = np.random.default_rng(2).uniform(-1, 1, (1 << 15, 3))
+    Xs = np.asfortranarray(np.random.default_rng(2).uniform(-1, 1, (1 << 15, 3)))  # the engine's layout
     eval_cpu = {}
     for backend in ("processes", "threads"):
         with make_evaluator(workers, backend, spec=spec) as ev:

@@ -78,7 +78,7 @@ def test_chunk_bounds_depend_only_on_n_and_size():
     for n in (1, 63, 64, 65, 1000, 32768, 1_000_000):
         b = chunk_bounds(n)
         assert b[0] == 0 and b[-1] == n and np.all(np.diff(b) > 0)
-        size = min(4096, max(64, -(-n // 64)))
+        size = min(8192, max(64, -(-n // 16)))  # the documented rule: ceil(n/16) within [64, 8192]
         assert np.all(np.diff(b)[:-1] == size)
     assert chunk_bounds(10, 4).tolist() == [0, 4, 8, 10]
     assert chunk_bounds(0).tolist() == [0]
