@@ -258,7 +258,7 @@ class _Queue:
             self.key = self.key[: self.key.size - k]
 
     def push(self, idx: np.ndarray, key: np.ndarray) -> None:
-        keep = key >= self.thr
+        keep = (key >= self.thr) & (key > -np.inf)     # retired regions (key -inf) never re-enter
         if not keep.any():
             return
         idx, key = idx[keep], key[keep]
@@ -544,7 +544,7 @@ class Run:
         if self.queue.idx.size < kmax:
             self.queue.rebuild(self.store["key"], kmax)
         idx, key = self.queue.top(kmax)
-        if idx.size == 0 or s.batch != "auto" or s.queue == "local":
+        if s.batch != "auto" or s.queue == "local" or idx.size == 0:
             return int(idx.size)
         k = int(np.searchsorted(-key, -0.25 * key[0], side="right"))
         g = self.goal()

@@ -1,0 +1,309 @@
+"""Engine tests: accuracy against outside references, determinism, control, checkpoints, storage."""
+
+from __future__ import annotations
+
+import math
+import threading
+import time
+
+import numpy as np
+import pytest
+from scipy import integrate as si
+from scipy.special import erf
+
+import cubature
+from cubature import Box, CheckpointError, IntegrandError, Run, Simplex, integrate
+
+
+def gauss_box(X):
+    return np.exp(-(X * X).sum(axis=1))
+
+
+def erf_cube(d, a=0.0, b=1.0):
+    # int_a^b exp(-x^2) dx = sqrt(pi)/2 (erf(b) - erf(a))  (Abramowitz & Stegun 7.1.1), product over axes
+    return (math.sqrt(math.pi) / 2 * (erf(b) - erf(a))) ** d
+
+
+# ---------------------------------------------------------------- accuracy against closed forms
+
+@pytest.mark.parametrize("d", [2, 3, 4, 5, 6])
+def test_gaussian_box_all_dims(d):
+    res = integrate(gauss_box, Box([0.0] * d, [1.0] * d), rel_tol=1e-8)
+    exact = erf_cube(d)  # erf product (A&S 7.1.1)
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= max(res.error, 1e-8 * exact)
+    assert res.error <= 1e-8 * abs(res.value) * (1 + 1e-12)
+
+
+@pytest.mark.parametrize("d", [1, 2, 3, 4])
+def test_gaussian_over_whole_space(d):
+    # int_{R^d} exp(-|x|^2) dx = pi^(d/2)  (Gaussian integral, common practice)
+    res = integrate(gauss_box, Box([-np.inf] * d, [np.inf] * d), rel_tol=1e-7)
+    assert res.status == "converged"
+    assert res.value == pytest.approx(math.pi ** (d / 2), rel=1e-6)
+
+
+def test_half_infinite_axes():
+    # int_0^inf e^{-x} dx * int_{-inf}^{3} e^{-y^2} dy = 1 * sqrt(pi)/2 (1 + erf 3)  (A&S 7.1.1)
+    f = lambda X: np.exp(-X[:, 0] - X[:, 1] ** 2)
+    res = integrate(f, Box([0.0, -np.inf], [np.inf, 3.0]), rel_tol=1e-9)
+    assert res.value == pytest.approx(math.sqrt(math.pi) / 2 * (1 + erf(3.0)), rel=1e-8)
+
+
+def test_nodes_never_on_infinite_end():
+    seen = []
+
+    def f(X):
+        seen.append(np.isfinite(X).all())
+        return np.exp(-(X * X).sum(axis=1))
+    integrate(f, Box([0.0, -np.inf], [np.inf, np.inf]), rel_tol=1e-10)
+    assert all(seen)
+
+
+def dirichlet(alpha):
+    # int over the standard simplex of prod x_i^a_i (x_0 = 1 - sum) = prod a_i! / (d + sum a_i)!  (Dirichlet's formula)
+    return math.prod(math.factorial(a) for a in alpha) / math.factorial(len(alpha) - 1 + sum(alpha))
+
+
+@pytest.mark.parametrize("d", [2, 3, 4])
+def test_dirichlet_on_affine_simplices(d):
+    rng = np.random.default_rng(d)
+    std = np.vstack([np.zeros(d), np.eye(d)])
+    A = rng.normal(size=(d, d)) + 2 * np.eye(d)
+    shift = rng.normal(size=d)
+    verts = std @ A.T + shift
+    Ainv = np.linalg.inv(A)
+    alpha = [2, 1] + [1] * (d - 1)          # exponents of the barycentric coordinates b_0..b_d
+    jac = abs(np.linalg.det(A))
+
+    def f(X):
+        y = (X - shift) @ Ainv.T            # back to the standard simplex
+        b = np.column_stack([1 - y.sum(axis=1), y])
+        return np.prod(b ** np.array(alpha), axis=1) + np.cos(y[:, 0])
+
+    # cos part: int over the standard simplex of cos(y_0) = int_0^1 cos(t) (1-t)^(d-1)/(d-1)! dt (scipy.quad)
+    cos_part = si.quad(lambda t: math.cos(t) * (1 - t) ** (d - 1) / math.factorial(d - 1), 0, 1)[0]
+    exact = jac * (dirichlet(alpha) + cos_part)
+    res = integrate(f, Simplex(verts), rel_tol=1e-10)
+    assert res.status == "converged"
+    assert res.value == pytest.approx(exact, rel=1e-9)
+
+
+def test_simplex_corner_singularity():
+    # int over the standard 3-simplex of (x+y+z)^(-1/2): the sum s has density s^2/2, so int_0^1 s^(3/2)/2 ds = 1/5
+    res = integrate(lambda X: 1 / np.sqrt(X.sum(axis=1)), Simplex([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1]]),
+                    rel_tol=1e-6)
+    assert res.value == pytest.approx(0.2, rel=1e-5)
+
+
+def test_cross_check_with_nquad():
+    # an integrand without a closed form, checked against scipy.integrate.nquad
+    f3 = lambda x, y, z: math.exp(x * y) * math.cos(y + z * z)
+    ref = si.nquad(f3, [[0, 1], [0, 2], [-1, 1]], opts={"epsabs": 1e-12, "epsrel": 1e-12})[0]
+    f = lambda X: np.exp(X[:, 0] * X[:, 1]) * np.cos(X[:, 1] + X[:, 2] ** 2)
+    for rule in ("genz-malik", "gauss-kronrod"):
+        res = integrate(f, Box([0, 0, -1], [1, 2, 1]), rel_tol=1e-9, rule=rule)
+        assert res.value == pytest.approx(ref, rel=1e-8), rule
+
+
+def test_corner_singularity_cube():
+    # int over [0,1]^3 of 1/|x| = 3 ln((1+sqrt 3)/sqrt 2) - pi/4 (from memory), checked here against
+    # scipy.integrate.tplquad as well
+    closed = 3 * math.log((1 + math.sqrt(3)) / math.sqrt(2)) - math.pi / 4
+    res = integrate(lambda X: 1 / np.sqrt((X * X).sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-7)
+    assert res.value == pytest.approx(closed, rel=1e-6)
+
+
+def test_vector_integrand_every_component_meets_goal():
+    # components: x (mean 1/2 * 2 = 1 over [0,1]x[0,2]), x*y (1/2 * 2 = 1), cos(x+y) (closed form below)
+    f = lambda X: np.column_stack([X[:, 0], X[:, 0] * X[:, 1], np.cos(X[:, 0] + X[:, 1])])
+    # int_0^1 int_0^2 cos(x+y) = cos 1 + cos 2 - cos 0 - cos 3  (elementary antiderivative)
+    c = math.cos(1) + math.cos(2) - math.cos(0) - math.cos(3)
+    res = integrate(f, Box([0, 0], [1, 2]), rel_tol=1e-10)
+    assert res.values.shape == (3,) and res.errors.shape == (3,)
+    np.testing.assert_allclose(res.values, [1.0, 1.0, c], rtol=1e-10)
+    assert np.all(res.errors <= 1e-10 * np.abs(res.values) * (1 + 1e-12))
+
+
+def test_local_queue_and_split_all_strategies():
+    exact = erf_cube(3)  # A&S 7.1.1
+    for opts in ({"queue": "local"}, {"split": "all"}, {"batch": 1}, {"estimate": "plain"}):
+        res = integrate(gauss_box, Box([0] * 3, [1] * 3), rel_tol=1e-8, **opts)
+        assert res.status == "converged", opts
+        assert res.value == pytest.approx(exact, rel=1e-7), opts
+
+
+# ---------------------------------------------------------------- budgets, failures, control
+
+def test_budget_never_exceeded_and_status():
+    res = integrate(lambda X: 1 / np.sqrt((X * X).sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-14,
+                    max_evals=5000)
+    assert res.status == "max-evals"
+    assert res.evaluations <= 5000
+    assert math.isfinite(res.value) and res.error > 0
+
+
+def test_non_finite_value_names_the_point():
+    f = lambda X: np.log(X[:, 0] - 0.5)
+    with pytest.raises(IntegrandError) as exc:
+        integrate(f, Box([0, 0], [1, 1]))
+    assert "x = (" in str(exc.value) and "nan" in str(exc.value).lower()
+
+
+def test_raising_integrand_is_reported_and_state_kept():
+    calls = {"n": 0}
+
+    def f(X):
+        calls["n"] += 1
+        if calls["n"] == 3:
+            raise ZeroDivisionError("boom")
+        return np.cos(X.sum(axis=1))
+    run = Run(f, Box([0, 0, 0], [3, 3, 3]), rel_tol=1e-12)
+    run.step()
+    run.step()
+    before = run.result()
+    with pytest.raises(IntegrandError, match="ZeroDivisionError: boom"):
+        run.step()
+    after = run.result()
+    assert run.status == "failed"
+    assert after.value == before.value and after.evaluations == before.evaluations
+
+
+def test_wrong_shape_is_an_integrand_error():
+    with pytest.raises(IntegrandError, match="shape"):
+        integrate(lambda X: np.ones((X.shape[0], 2, 2)), Box([0, 0], [1, 1]))
+
+
+def test_stop_from_another_thread_keeps_estimate():
+    run = Run(lambda X: np.cos(40 * X.sum(axis=1)) + 1 / np.sqrt((X * X).sum(axis=1) + 1e-9),
+              Box([0] * 4, [1] * 4), rel_tol=1e-14, max_evals=10**9)
+    t = threading.Timer(0.5, run.stop)
+    t.start()
+    res = run.run()
+    t.join()
+    assert res.status == "stopped"
+    assert math.isfinite(res.value) and res.evaluations > 0
+
+
+def test_pause_and_resume():
+    run = Run(lambda X: np.cos(30 * X.sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-13, max_evals=3_000_000)
+    th = threading.Thread(target=run.run)
+    th.start()
+    time.sleep(0.2)
+    run.pause()
+    time.sleep(0.2)
+    a = run.snapshot().evaluations
+    time.sleep(0.3)
+    b = run.snapshot().evaluations
+    assert a == b and run.snapshot().status == "paused"
+    run.resume()
+    th.join(timeout=60)
+    assert run.done and run.result().evaluations > b
+
+
+def test_set_goal_mid_run_tightens():
+    run = Run(gauss_box, Box([0] * 3, [1] * 3), rel_tol=1e-4)
+    run.run()
+    loose = run.result()
+    run.set_goal(rel_tol=1e-10)
+    assert not run.done
+    res = run.run()
+    assert res.status == "converged" and res.evaluations > loose.evaluations
+    assert abs(res.value - erf_cube(3)) < 1e-9  # A&S 7.1.1
+
+
+def test_snapshot_contents():
+    run = Run(lambda X: 1 / np.sqrt((X * X).sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-6,
+              snapshot_interval=0.0)
+    snaps = list(run)
+    last = snaps[-1]
+    assert last.status == "converged"
+    assert last.regions == run.result().regions
+    assert len(last.top) == 10 and all(t.error[0] >= last.top[-1].error[0] for t in last.top)
+    # the top regions are the worst ones of all (the queue is exact)
+    assert last.top[0].error[0] == run.store["error"][:, 0].max()
+    assert last.map_centres.shape[1] == 3 and len(last.map_centres) <= 2000
+    assert last.history.shape[1] == 4 and np.all(np.diff(last.history[:, 0]) > 0)
+    assert last.depth_error.sum() == pytest.approx(last.error[0], rel=1e-6)
+
+
+# ---------------------------------------------------------------- determinism and checkpoints
+
+def hard(X):
+    return np.abs(X[:, 0] + X[:, 1] - 0.9) + np.exp(-50 * ((X - 0.3) ** 2).sum(axis=1))
+
+
+def test_bit_identical_repeat():
+    a = integrate(hard, Box([0] * 3, [1] * 3), rel_tol=1e-5)
+    b = integrate(hard, Box([0] * 3, [1] * 3), rel_tol=1e-5)
+    assert a.value == b.value and a.error == b.error and a.evaluations == b.evaluations
+
+
+@pytest.mark.parametrize("domain", [Box([0] * 3, [1] * 3), Simplex([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1]]),
+                                    Box([0, -np.inf], [1, np.inf])])
+def test_resume_is_bit_identical(tmp_path, domain):
+    f = hard if domain.dim == 3 else (lambda X: np.exp(-X[:, 1] ** 2) * np.abs(X[:, 0] - 0.37))
+    full = integrate(f, domain, rel_tol=1e-5)
+    run = Run(f, domain, rel_tol=1e-5)
+    for _ in range(7):
+        run.step()
+    assert not run.done
+    path = tmp_path / "state.npz"
+    run.save_checkpoint(path)
+    again = Run.from_checkpoint(path, f, domain)
+    res = again.run()
+    assert res.value == full.value and res.error == full.error and res.evaluations == full.evaluations
+
+
+def test_checkpoint_of_other_problem_refused(tmp_path):
+    run = Run(hard, Box([0] * 3, [1] * 3), rel_tol=1e-6, fingerprint="problem-A")
+    run.step()
+    run.save_checkpoint(tmp_path / "a.npz")
+    with pytest.raises(CheckpointError, match="another problem"):
+        Run.from_checkpoint(tmp_path / "a.npz", hard, Box([0] * 3, [2] * 3), fingerprint="problem-A")
+    with pytest.raises(CheckpointError, match="another problem"):
+        Run.from_checkpoint(tmp_path / "a.npz", hard, Box([0] * 3, [1] * 3), fingerprint="problem-B")
+
+
+def test_truncated_and_corrupted_checkpoints(tmp_path):
+    run = Run(hard, Box([0] * 3, [1] * 3), rel_tol=1e-6)
+    for _ in range(3):
+        run.step()
+    p = tmp_path / "c.npz"
+    run.save_checkpoint(p)
+    data = p.read_bytes()
+    (tmp_path / "t.npz").write_bytes(data[: len(data) // 2])
+    with pytest.raises(CheckpointError, match="truncated or corrupted"):
+        Run.from_checkpoint(tmp_path / "t.npz", hard, Box([0] * 3, [1] * 3))
+    bad = bytearray(data)
+    bad[len(bad) // 3] ^= 0xFF
+    (tmp_path / "x.npz").write_bytes(bytes(bad))
+    with pytest.raises(CheckpointError):
+        Run.from_checkpoint(tmp_path / "x.npz", hard, Box([0] * 3, [1] * 3))
+    (tmp_path / "junk.npz").write_bytes(b"not a checkpoint at all")
+    with pytest.raises(CheckpointError):
+        Run.from_checkpoint(tmp_path / "junk.npz", hard, Box([0] * 3, [1] * 3))
+
+
+def test_checkpoint_write_is_atomic_no_temp_left(tmp_path):
+    run = Run(hard, Box([0] * 3, [1] * 3), rel_tol=1e-6)
+    run.step()
+    run.save_checkpoint(tmp_path / "c.npz")
+    run.step()
+    run.save_checkpoint(tmp_path / "c.npz")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["c.npz"]
+
+
+# ---------------------------------------------------------------- storage
+
+def test_bytes_per_region_at_d6():
+    run = Run(lambda X: np.cos(X.sum(axis=1)), Box([0] * 6, [1] * 6), rel_tol=1e-6)
+    run.step()
+    assert run.store.bytes_per_region() <= 256
+
+
+def test_degenerate_domains_rejected():
+    with pytest.raises(cubature.DomainError, match="degenerate"):
+        Simplex([[0, 0], [1, 1], [2, 2]])
+    with pytest.raises(cubature.DomainError, match="not below"):
+        Box([0, 1], [1, 1])
