@@ -399,8 +399,11 @@ def cmd_run(args) -> int:
     try:
         if note:
             _err(f"cubage: note: {note}")
-        run = Run(problem.integrand, problem.domain, evaluator=ev, fingerprint=problem.fingerprint(),
-                  snapshot_interval=SNAPSHOT_INTERVAL, **settings)
+        try:
+            run = Run(problem.integrand, problem.domain, evaluator=ev, fingerprint=problem.fingerprint(),
+                      snapshot_interval=SNAPSHOT_INTERVAL, **settings)
+        except ValueError as exc:
+            raise UsageError(f"cubage run: {exc}") from None
         if args.run_dir:
             rd = RunDir(Path(args.run_dir))
             rd.check_new_run(problem.fingerprint())

@@ -326,6 +326,9 @@ class Run:
         self.geometry, self.rule_name = _make_geometry(domain, self.settings)
         self.settings.rule = self.rule_name
         self.rule = self.geometry.rule
+        if self.settings.max_evals < self.rule.size:
+            raise ValueError(f"max_evals {self.settings.max_evals} is below the {self.rule.size} nodes of one "
+                             f"region of the {self.rule_name} rule in {domain.dim}-D")
         w3 = _third_weights(self.rule) if self.settings.estimate == "sharp" else None
         self._w = np.stack([self.rule.weights, self.rule.weights_low] + ([w3] if w3 is not None else []))
         self._wt = np.ascontiguousarray(self._w.T)
