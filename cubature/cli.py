@@ -403,7 +403,7 @@ def cmd_run(args) -> int:
             run = Run(problem.integrand, problem.domain, evaluator=ev, fingerprint=problem.fingerprint(),
                       snapshot_interval=SNAPSHOT_INTERVAL, **settings)
         except ValueError as exc:
-            raise UsageError(f"cubage run: {exc}") from None
+            raise UsageError(str(exc)) from None
         if args.run_dir:
             rd = RunDir(Path(args.run_dir))
             rd.check_new_run(problem.fingerprint())
