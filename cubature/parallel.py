@@ -20,10 +20,12 @@ Backends
 ``"serial"``
     In-process, no joblib (``make_evaluator`` returns ``None``).
 ``"processes"``
-    joblib's loky process pool.  Works for any integrand.
+    A process pool of joblib's loky (``joblib.externals.loky``), used through
+    its executor.  Works for any integrand.
 ``"threads"``
-    joblib's thread pool; pays off only for integrands that release the GIL
-    (numpy ufuncs on large arrays do, pure-Python loops do not).
+    A thread pool (:class:`concurrent.futures.ThreadPoolExecutor`); pays off
+    only for integrands that release the GIL (numpy ufuncs on large arrays
+    do, pure-Python loops do not).
 ``"dask"``
     joblib's dask backend on a ``dask.distributed`` cluster (``cluster`` is
     ``"tcp://host:8786"``, a scheduler-file path or a ``Client``).  Needs the
@@ -32,9 +34,13 @@ Backends
     Serial until measurements say parallel pays, then ``processes`` (or
     ``dask`` when a cluster is given), see below.
 
-The pool is created once and kept for the whole run: one ``joblib.Parallel``
-object entered as a context manager, so there is no pool start-up per step.
-:meth:`Evaluator.close` (or leaving a ``with`` block) shuts it down.
+The pool is created once and kept for the whole run, so there is no pool
+start-up per step: for processes and threads one executor whose futures are
+waited on directly (``joblib.Parallel``'s result loop polls every 10 ms, a
+cost per step that a run of many short steps would feel), for dask one
+``joblib.Parallel`` object created under ``parallel_config(backend="dask")``
+and entered as a context manager.  :meth:`Evaluator.close` (or leaving a
+``with`` block) shuts it down.
 
 How integrands travel
 ---------------------
@@ -45,8 +51,8 @@ How integrands travel
   of kind ``"python"``) and is imported once in each worker process; both are
   cached in the one module-level dict :data:`_WORKER_INTEGRANDS`, keyed by the
   spec's JSON;
-* any other callable is pickled the way joblib does by default (cloudpickle
-  for processes and dask; threads share it).
+* any other callable is pickled as joblib does by default (cloudpickle, for
+  processes and dask; threads share it).
 
 The automatic rule
 ------------------
@@ -218,7 +224,7 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
             raise _WorkerFailure(f"could not be loaded in the worker: {_one_line(exc)}") from None
     else:
         f = obj
-    if not X.flags.writeable:  # joblib hands large arrays over as read-only memory maps
+    if not X.flags.writeable:  # arrays may arrive as read-only buffers or memory maps
         X = np.array(X)
     try:
         with np.errstate(all="ignore"):
@@ -354,7 +360,7 @@ class Evaluator:
 
 
 class PoolEvaluator(Evaluator):
-    """Chunked evaluation on a joblib pool (loky processes, threads or dask).
+    """Chunked evaluation on a pool: loky processes, threads or a dask cluster (via joblib).
 
     Parameters
     ----------
@@ -415,7 +421,7 @@ class PoolEvaluator(Evaluator):
         self._client = None
         self._own_client = False
         self._address = None
-        self._loky_executor = None
+        self._executor = None
         self._closed = False
         self._payload_cache: tuple | None = None
         if backend == "dask":
@@ -435,55 +441,76 @@ class PoolEvaluator(Evaluator):
         return self.workers
 
     def _start(self) -> None:
-        if self._parallel is not None:
+        if self._executor is not None or self._parallel is not None:
             return
-        import joblib
         if self.backend == "processes":
-            par = joblib.Parallel(n_jobs=self.workers, backend="loky", return_as="list", batch_size=1,
-                                  pre_dispatch="all")
+            from joblib.externals.loky import ProcessPoolExecutor
+            per = str(max(1, (os.cpu_count() or 1) // self.workers))
+            env = {"OMP_NUM_THREADS": per, "OPENBLAS_NUM_THREADS": per, "MKL_NUM_THREADS": per}
+            self._executor = ProcessPoolExecutor(max_workers=self.workers, env=env)
         elif self.backend == "threads":
-            par = joblib.Parallel(n_jobs=self.workers, backend="threading", return_as="list", batch_size=1,
-                                  pre_dispatch="all")
+            from concurrent.futures import ThreadPoolExecutor
+            self._executor = ThreadPoolExecutor(max_workers=self.workers, thread_name_prefix="cubage-eval")
         else:
+            import joblib
             with joblib.parallel_config(backend="dask", client=self._client, wait_for_workers_timeout=30):
                 par = joblib.Parallel(n_jobs=-1, return_as="list", batch_size=1, pre_dispatch="all")
-        par.__enter__()
-        self._parallel = par
-        if self.backend == "processes":
-            self._loky_executor = getattr(par._backend, "_workers", None)
-        # warm-up (spawns loky workers), then time one round of empty tasks
+            par.__enter__()
+            self._parallel = par
+        # warm-up (spawns the worker processes), then time one round of empty tasks
         w = self._effective_workers()
-        par(joblib.delayed(_noop)() for _ in range(w))
+        self._run_all([(_noop, ())] * w)
         t0 = time.perf_counter()
-        par(joblib.delayed(_noop)() for _ in range(w))
+        self._run_all([(_noop, ())] * w)
         self.dispatch_seconds = time.perf_counter() - t0
 
-    def worker_pids(self) -> list[int]:
-        """Process ids answering one round of empty tasks (for tests and diagnostics)."""
+    def _run_all(self, calls: list) -> list:
+        """Run ``[(fn, args), ...]`` on the pool; results in order."""
+        if self._executor is not None:
+            futures = [self._executor.submit(fn, *args) for fn, args in calls]
+            try:
+                return [fu.result() for fu in futures]
+            except BaseException:
+                for fu in futures:
+                    fu.cancel()
+                if self.backend == "processes":
+                    # kill what still runs (or is broken); a fresh pool starts on the next step
+                    ex, self._executor = self._executor, None
+                    try:
+                        ex.shutdown(wait=True, kill_workers=True)
+                    except Exception:  # noqa: BLE001
+                        pass
+                raise
         import joblib
-        if self._parallel is None:
+        return self._parallel(joblib.delayed(fn)(*args) for fn, args in calls)
+
+    def worker_pids(self) -> list[int]:
+        """Process ids answering a round of short tasks (for tests and diagnostics)."""
+        if self._executor is None and self._parallel is None:
             return []
         w = self._effective_workers()
-        return sorted(set(self._parallel(joblib.delayed(_noop)(0.1) for _ in range(2 * w))))
+        return sorted(set(self._run_all([(_noop, (0.1,))] * (2 * w))))
 
     def close(self) -> None:
         """Shut the pool down (and the dask client this evaluator opened); idempotent."""
         if self._closed:
             return
         self._closed = True
-        par, self._parallel = self._parallel, None
-        if par is not None:
-            ex = getattr(par._backend, "_workers", None) or self._loky_executor
+        ex, self._executor = self._executor, None
+        if ex is not None:
             try:
-                par.__exit__(None, None, None)
+                if self.backend == "threads":
+                    ex.shutdown(wait=True, cancel_futures=True)
+                else:
+                    ex.shutdown(wait=True)
             except Exception:  # noqa: BLE001 - closing must not raise
                 pass
-            if self.backend == "processes" and ex is not None and hasattr(ex, "shutdown"):
-                try:
-                    ex.shutdown(wait=True)
-                except Exception:  # noqa: BLE001
-                    pass
-        self._loky_executor = None
+        par, self._parallel = self._parallel, None
+        if par is not None:
+            try:
+                par.__exit__(None, None, None)
+            except Exception:  # noqa: BLE001
+                pass
         if self._client is not None and self._own_client:
             try:
                 self._client.close(timeout=10)
@@ -495,11 +522,9 @@ class PoolEvaluator(Evaluator):
     def _pool_words(self) -> str:
         if self.backend == "dask":
             return f"dask at {self._address}"
-        if self.workers == 1:
-            return "1 worker (joblib runs it in-process)"
         if self.backend == "threads":
-            return f"{self.workers} threads"
-        return f"{self.workers} loky processes"
+            return f"{self.workers} thread{'s' if self.workers != 1 else ''}"
+        return f"{self.workers} loky process{'es' if self.workers != 1 else ''}"
 
     def describe(self) -> str:
         """One line, e.g. ``"2 loky processes"``, ``"dask at tcp://host:8786"`` or
@@ -534,7 +559,8 @@ class PoolEvaluator(Evaluator):
         dispatch = self.dispatch_seconds if self.dispatch_seconds is not None else DISPATCH_GUESS[self.backend]
         if est <= max(MIN_PARALLEL_SECONDS, DISPATCH_FACTOR * dispatch):
             return False
-        return self._parallel is not None or self._serial_spent >= self.min_serial_seconds
+        started = self._executor is not None or self._parallel is not None
+        return started or self._serial_spent >= self.min_serial_seconds
 
     def _serial(self, f: Callable, X: np.ndarray):
         t0 = time.perf_counter()
@@ -563,17 +589,16 @@ class PoolEvaluator(Evaluator):
         return self._dispatch(f, X, bounds)
 
     def _dispatch(self, f: Callable, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
-        import joblib
         payload = self._payload(f)
         groups = _group(bounds, TASKS_PER_WORKER * self._effective_workers())
         # the engine's points are column-major; a row slice of them would be pickled in row-major
         # order, making column access slower in the worker -- keep the caller's layout
         fortran = self.backend != "threads" and X.flags.f_contiguous and not X.flags.c_contiguous
         parts_in = (np.asfortranarray(X[g[0]:g[-1]]) if fortran else X[g[0]:g[-1]] for g in groups)
-        tasks = (joblib.delayed(_run_task)(payload, part, g) for part, g in zip(parts_in, groups))
+        calls = [(_run_task, (payload, part, g)) for part, g in zip(parts_in, groups)]
         name = integrand_name(f, self.spec)
         try:
-            parts = self._parallel(tasks)
+            parts = self._run_all(calls)
         except _WorkerFailure as exc:
             raise IntegrandError(f"integrand {name} {exc.message} (in a worker: {self._pool_words()})") from None
         except (KeyboardInterrupt, SystemExit):
