@@ -220,7 +220,7 @@ class _Queue:
     after a resume.
     """
 
-    SIZE = 1 << 16
+    SIZE = 1 << 14
 
     def __init__(self):
         self.idx = np.zeros(0, np.int64)

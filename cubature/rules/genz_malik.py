@@ -79,11 +79,14 @@ class GenzMalikRule(BoxRule):
         n, d = fvals.shape[0], self.dim
         g = self.extra["groups"]
         f0 = fvals[:, 0:1]
-        s2 = fvals[:, g["axis2"][0]:g["axis2"][1]].reshape(n, d, 2).sum(axis=2)
-        s3 = fvals[:, g["axis3"][0]:g["axis3"][1]].reshape(n, d, 2).sum(axis=2)
+        a2 = fvals[:, g["axis2"][0]:g["axis2"][1]]
+        a3 = fvals[:, g["axis3"][0]:g["axis3"][1]]
+        s2 = a2.reshape(n, d, 2).sum(axis=2)
+        s3 = a3.reshape(n, d, 2).sum(axis=2)
         ratio = (LAMBDA2 / LAMBDA3) ** 2
         diff = np.abs((s2 - 2.0 * f0) - ratio * (s3 - 2.0 * f0))
-        scale = np.abs(fvals).max(axis=1)
+        # magnitude of the values the differences are made of (rounding-noise scale)
+        scale = np.maximum(np.abs(f0[:, 0]), np.maximum(np.abs(a2).max(axis=1), np.abs(a3).max(axis=1)))
         return choose_axis(diff, np.broadcast_to(halfwidths, (n, d)), scale)
 
 
