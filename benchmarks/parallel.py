@@ -3,19 +3,22 @@
 Run ``python benchmarks/parallel.py`` (add ``--quick`` for a short run).  It
 prints figures; it asserts nothing.
 
-1. Efficiency: a costly integrand (a 3-D sum of 240 cos*exp terms, a numpy
-   loop, a few microseconds to tens of microseconds a point depending on the
-   machine) integrated with a fixed evaluation budget, in-process and with
-   ``workers`` loky processes (and threads).  Efficiency = speedup / workers.
-   The integrand travels to the workers by import path (``spec`` kind
-   "python", this very file), as it does from a problem file.  Measured with
+1. Efficiency: two costly 3-D integrands integrated with a fixed evaluation
+   budget, in-process and with ``workers`` loky processes (and threads);
+   efficiency = speedup / workers.  "bessel" is an expression, a 12-term sum
+   of jv * cos (about 10-15 us a point), that travels to the workers as its
+   source (``spec`` kind "expr"); "numpy-loop" is a Python function looping
+   over 240 cos*exp terms (a few us a point, but some 1400 numpy calls per
+   chunk, so it shows what the per-call overhead of chunking costs) that
+   travels by import path (``spec`` kind "python", this very file), as from
+   a problem file.  Measured with
    the pool already started (its start-up is printed apart).  Target: >= 85 %.
    Because wall-clock figures mean little on a machine that other jobs keep
    busy, a "machine check" (how much work N CPU-bound processes get done at
    once, vs one) is printed before and after, and an idle-machine projection
-   from CPU times: the engine's own CPU stays serial, the pool's CPU a point
-   (measured over all its processes, pickling and dispatch included) spreads
-   over the workers.
+   from the CPU times of the same runs: the engine's own CPU stays serial,
+   all other CPU of the parallel run (summed over every process, pickling and
+   dispatch included) spreads evenly over the workers.
 2. Auto overhead: a cheap expression integrand, in-process (no evaluator) vs
    ``make_evaluator(workers, "auto")``; best of several repeats, run
    alternately.  Target: <= 5 %.
@@ -34,6 +37,7 @@ from pathlib import Path
 import numpy as np
 
 TERMS = 240
+BESSEL = " + ".join(f"jv({0.5 + k / 3:.4f}, 2 + {k}*x*x + y) * cos({k}*z)" for k in range(1, 13))
 
 
 def costly(X):
@@ -94,13 +98,18 @@ def _cpu() -> float:
     return total
 
 
-def efficiency(workers: int, max_evals: int, repeats: int) -> None:
+def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
     import cubature
     from cubature.parallel import make_evaluator
     from cubature.problem import integrand_from_spec
 
     here = Path(__file__).resolve()
-    spec = {"kind": "python", "target": f"{here.name}:costly", "base_dir": str(here.parent)}
+    if which == "bessel":
+        spec = {"kind": "expr", "source": BESSEL, "variables": ["x", "y", "z"], "constants": {}}
+        words = "12-term jv*cos expression"
+    else:
+        spec = {"kind": "python", "target": f"{here.name}:costly", "base_dir": str(here.parent)}
+        words = f"{TERMS}-term cos*exp numpy loop"
     f = integrand_from_spec(spec)
     domain = cubature.Box([-1.0, -1.0, -1.0], [1.0, 1.0, 1.0])
 
@@ -109,7 +118,7 @@ def efficiency(workers: int, max_evals: int, repeats: int) -> None:
     t0 = time.process_time()
     f(X)
     per_point = (time.process_time() - t0) / X.shape[0]
-    print(f"integrand: {TERMS}-term cos*exp sum in 3-D, {per_point * 1e6:.1f} us of CPU a point; "
+    print(f"{which}: {words} in 3-D, {per_point * 1e6:.1f} us of CPU a point; "
           f"budget {max_evals} evaluations; best of {repeats}")
 
     in_f = [0.0]
@@ -132,6 +141,7 @@ def efficiency(workers: int, max_evals: int, repeats: int) -> None:
         for backend in ("processes", "threads"):
             t_start = time.perf_counter()
             ev = make_evaluator(workers, backend, spec=spec)  # starts the pool (and warms it up)
+            ev(f, np.asfortranarray(X[:4096]))  # 16 chunks: every worker loads the integrand
             startup = time.perf_counter() - t_start
             try:
                 c0 = _cpu()
@@ -143,18 +153,6 @@ def efficiency(workers: int, max_evals: int, repeats: int) -> None:
             if backend not in best or t < best[backend][0]:
                 best[backend] = (t, cpu, res, startup, words)
 
-    # the evaluator alone, 10 calls of one full step (32768 points): CPU a point summed over every
-    # process of the pool (chunking, pickling, dispatch included) -- CPU time, little affected by load
-    Xs = np.asfortranarray(np.random.default_rng(2).uniform(-1, 1, (1 << 15, 3)))  # the engine's layout
-    eval_cpu = {}
-    for backend in ("processes", "threads"):
-        with make_evaluator(workers, backend, spec=spec) as ev:
-            ev(f, Xs)
-            c0 = _cpu()
-            for _ in range(10):
-                ev(f, Xs)
-            eval_cpu[backend] = (_cpu() - c0) / (10 * Xs.shape[0])
-
     t_s, cpu_s, r_s, cpu_f, _ = best["serial"]
     engine = max(cpu_s - cpu_f, 0.0)
     print(f"  in-process            : {t_s:7.2f} s wall, {cpu_s:6.2f} s CPU ({100 * cpu_f / cpu_s:.1f} % of it inside "
@@ -165,13 +163,13 @@ def efficiency(workers: int, max_evals: int, repeats: int) -> None:
         speed = t_s / t_p
         # an idle machine: the engine's own CPU stays serial in this process, all other CPU
         # (integrand, pickling, dispatch, in every process) spreads evenly over the workers
-        per_point_serial = cpu_f / r_s.evaluations
-        projected = engine + eval_cpu[backend] * r_s.evaluations / workers
+        # an idle machine: the engine's own CPU stays serial in this process, all other CPU of the
+        # parallel run (integrand, pickling, dispatch, in every process) spreads over the workers
+        projected = engine + max(cpu_p - engine, 0.0) / workers
         print(f"  {words:<22}: {t_p:7.2f} s wall (pool start-up {startup:.2f} s more); measured speedup "
               f"{speed:4.2f} = efficiency {100 * speed / workers:5.1f} %; value identical: {same}")
-        print(f"  {'':<22}  CPU a point {eval_cpu[backend] * 1e6:.2f} us summed over the pool vs "
-              f"{per_point_serial * 1e6:.2f} us in-process "
-              f"-> idle-machine projection (engine part serial) {100 * cpu_s / projected / workers:5.1f} %")
+        print(f"  {'':<22}  CPU {cpu_p:.2f} s summed over all processes vs {cpu_s:.2f} s in-process "
+              f"({100 * (cpu_p / cpu_s - 1):+.1f} %) -> idle-machine projection {100 * cpu_s / projected / workers:5.1f} %")
 
 
 def auto_overhead(workers: int, repeats: int, max_evals: int) -> None:
@@ -216,7 +214,8 @@ def main(argv=None) -> int:
           f"{platform.node()}: {os.cpu_count()} cores, {args.workers} workers, python {platform.python_version()}, "
           f"numpy {np.__version__}, joblib {joblib.__version__}")
     machine_check(args.workers)
-    efficiency(args.workers, 200_000 if args.quick else 600_000, 1 if args.quick else 2)
+    efficiency("bessel", args.workers, 100_000 if args.quick else 300_000, 1 if args.quick else 2)
+    efficiency("numpy-loop", args.workers, 200_000 if args.quick else 600_000, 1 if args.quick else 2)
     machine_check(args.workers)
     auto_overhead(args.workers, 3 if args.quick else 7, 500_000 if args.quick else 2_000_000)
     return 0

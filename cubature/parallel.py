@@ -235,6 +235,15 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
         raise _WorkerFailure(f"raised {_one_line(exc)}") from None
 
 
+def _preload(key: str) -> int:
+    """Warm-up task: re-create the integrand from its spec once in this worker (errors wait for real use)."""
+    try:
+        _worker_integrand(key)
+    except Exception:  # noqa: BLE001 - reported by the first real task instead
+        pass
+    return os.getpid()
+
+
 def _noop(pause: float = 0.0) -> int:
     if pause:
         time.sleep(pause)
@@ -457,9 +466,13 @@ class PoolEvaluator(Evaluator):
                 par = joblib.Parallel(n_jobs=-1, return_as="list", batch_size=1, pre_dispatch="all")
             par.__enter__()
             self._parallel = par
-        # warm-up (spawns the worker processes), then time one round of empty tasks
+        # warm-up (spawns the worker processes; loads the problem's integrand there when its spec
+        # is known), then time one round of empty tasks
         w = self._effective_workers()
-        self._run_all([(_noop, ())] * w)
+        if self.spec is not None and self.backend != "threads":
+            self._run_all([(_preload, (json.dumps(self.spec, sort_keys=True),))] * w)
+        else:
+            self._run_all([(_noop, ())] * w)
         t0 = time.perf_counter()
         self._run_all([(_noop, ())] * w)
         self.dispatch_seconds = time.perf_counter() - t0
