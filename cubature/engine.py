@@ -100,7 +100,7 @@ class Settings:
     batch: str | int = "auto"
     estimate: str = "sharp"
     max_regions: int | None = None
-    batch_points: int = 1 << 15
+    batch_points: int = 131072
 
     def validate(self) -> None:
         if not (self.rel_tol >= 0 and self.abs_tol >= 0) or math.isnan(self.rel_tol) or math.isnan(self.abs_tol):
