@@ -118,7 +118,7 @@ DISPATCH_GUESS = {"processes": 0.002, "threads": 0.0002, "dask": 0.005}
 STARTUP_SECONDS = {"processes": 0.5, "threads": 0.0, "dask": 0.0}
 
 #: Chunk size limits used when ``chunk_points`` is not given (see :func:`chunk_bounds`).
-CHUNK_MIN = 64
+CHUNK_MIN = 1024
 CHUNK_MAX = 8192
 CHUNKS_PER_STEP = 16
 #: Tasks per worker in one step (consecutive chunks are grouped into tasks).
@@ -142,9 +142,12 @@ def chunk_bounds(n: int, chunk_points: int | None = None) -> np.ndarray:
         Number of points in the step.
     chunk_points : int, optional
         Fixed chunk size.  Without it the size is ``ceil(n / 16)`` clamped to
-        [64, 8192]: a function of ``n`` alone (a full step of 32768 points
-        gives 16 chunks of 2048; much smaller chunks make integrands that
-        loop over numpy calls pay their per-call overhead too often).
+        [1024, 8192]: a function of ``n`` alone.  A full step of 32768 points
+        gives 16 chunks of 2048; a step under 2048 points is one chunk and
+        is evaluated in-process.  Smaller chunks would make integrands that
+        loop over numpy calls pay their per-call overhead too often; for an
+        integrand costing milliseconds a point on a large cluster, pass a
+        smaller ``chunk_points`` so that every worker gets work.
 
     Returns
     -------

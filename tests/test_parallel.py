@@ -75,10 +75,10 @@ def serial_results():
 
 def test_chunk_bounds_depend_only_on_n_and_size():
     # the contract of the module: boundaries cover [0, n] in order, sizes as documented
-    for n in (1, 63, 64, 65, 1000, 32768, 1_000_000):
+    for n in (1, 1023, 1024, 1025, 5000, 32768, 1_000_000):
         b = chunk_bounds(n)
         assert b[0] == 0 and b[-1] == n and np.all(np.diff(b) > 0)
-        size = min(8192, max(64, -(-n // 16)))  # the documented rule: ceil(n/16) within [64, 8192]
+        size = min(8192, max(1024, -(-n // 16)))  # the documented rule: ceil(n/16) within [1024, 8192]
         assert np.all(np.diff(b)[:-1] == size)
     assert chunk_bounds(10, 4).tolist() == [0, 4, 8, 10]
     assert chunk_bounds(0).tolist() == [0]
@@ -140,11 +140,13 @@ def test_dask_local_cluster_identical_values_and_failure(serial_results):
             g = _run(gauss3(), BOX3, ev)
             v = _run(vec2(), BOX2, ev)
             assert ev.steps_parallel > 0
+        with make_evaluator(2, "dask", address, chunk_points=16) as ev:  # small chunks: even step 1 is sent out
             with pytest.raises(cubature.IntegrandError) as info:
                 _run(raising, BOX2, ev)
             msg = str(info.value)
             # still usable after a failure
             again = _run(vec2(), BOX2, ev)
+            assert ev.steps_parallel > 0
     assert np.array_equal(g.values, serial_results["gauss3"].values)
     assert np.array_equal(v.values, serial_results["vec2"].values)
     assert np.array_equal(again.values, serial_results["vec2"].values)
