@@ -18,6 +18,7 @@ import numpy as np
 
 from cubature.engine import Snapshot
 from cubature.observe import record_to_snapshot
+from cubature.rundir import pid_alive
 
 PROGRESS = "progress.jsonl"
 RESULT = "result.json"
@@ -126,13 +127,7 @@ class RunDirFollower:
             return None
         if host and host != socket.gethostname():
             return None
-        try:
-            os.kill(pid, 0)
-        except ProcessLookupError:
-            return False
-        except PermissionError:
-            return True
-        return True
+        return pid_alive(pid)
 
     def request_stop(self) -> Path:
         """Create ``DIR/stop-request``; the runner checkpoints, writes its result and exits."""
