@@ -351,7 +351,6 @@ class Run:
         self.status = "running"
         self.message = ""
         self._hist: list[np.ndarray] = []
-        self.history = np.zeros((0, 2))
         self._depth_err = np.zeros(64)
         self._t_start = None
         self._last_snap = -math.inf
@@ -467,9 +466,9 @@ class Run:
         absq *= vol[:, None]
         return q, np.abs(absq), fr
 
-    def _errors(self, q: np.ndarray, absq: np.ndarray, gap: np.ndarray | None = None) -> np.ndarray:
+    def _errors(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
-        return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate, gap)
+        return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
 
     def _keys(self, err: np.ndarray, tol: np.ndarray | None = None) -> np.ndarray:
         key = err[:, 0] if self.m == 1 else (err * self.key_weight).max(axis=1)
@@ -636,9 +635,7 @@ class Run:
         self.queue.pop(k)
         val = q[:, 0, :]
         nch = self.geometry.children_per_split
-        # what the parents' rule missed, seen by their children (per parent, per component)
-        gap = np.abs(parents["value"] - val.reshape(nch, k, -1).sum(axis=0))
-        err = self._errors(q, absq, np.tile(gap / nch, (nch, 1)))
+        err = self._errors(q, absq)
         self.geometry.set_split_axes(kids, self._axis_values(fr, err))
         tol = None
         if self.settings.queue == "local":

@@ -188,19 +188,25 @@ def test_stop_from_another_thread_keeps_estimate():
 
 
 def test_pause_and_resume():
-    run = Run(lambda X: np.cos(30 * X.sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-13, max_evals=3_000_000)
+    run = Run(lambda X: np.cos(30 * X.sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-15, max_evals=10**10)
     th = threading.Thread(target=run.run)
     th.start()
-    time.sleep(0.2)
-    run.pause()
-    time.sleep(0.2)
-    a = run.snapshot().evaluations
-    time.sleep(0.3)
-    b = run.snapshot().evaluations
-    assert a == b and run.snapshot().status == "paused"
-    run.resume()
-    th.join(timeout=60)
-    assert run.done and run.result().evaluations > b
+    try:
+        while run.snapshot().evaluations == 0:
+            time.sleep(0.01)
+        run.pause()
+        time.sleep(0.3)                      # the step in flight finishes, then the run holds
+        a = run.snapshot().evaluations
+        time.sleep(0.3)
+        b = run.snapshot().evaluations
+        assert a == b and run.snapshot().status == "paused"
+        run.resume()
+        time.sleep(0.3)
+        assert run.snapshot().evaluations > b
+    finally:
+        run.stop()
+        th.join(timeout=60)
+    assert run.result().status == "stopped"
 
 
 def test_set_goal_mid_run_tightens():
