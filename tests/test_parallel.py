@@ -133,7 +133,7 @@ def test_plain_callable_vector_integrand_in_processes():
 def test_dask_local_cluster_identical_values_and_failure(serial_results):
     distributed = pytest.importorskip("distributed")
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, protocol="tcp",
-                                  host="127.0.0.1", dashboard_address=None) as lc:
+                                  host="127.0.0.1", dashboard_address="127.0.0.1:0") as lc:
         address = lc.scheduler_address
         with make_evaluator(2, "dask", address) as ev:
             assert ev.describe() == f"dask at {address}"
