@@ -13,7 +13,6 @@ Truncation is caught by the zip container's CRCs and the digest.
 from __future__ import annotations
 
 import hashlib
-import io
 import json
 import os
 import zipfile
@@ -38,18 +37,29 @@ def _digest(arrays: dict[str, np.ndarray]) -> str:
         h.update(name.encode())
         h.update(str(a.dtype).encode())
         h.update(str(a.shape).encode())
-        h.update(a.tobytes())
+        h.update(a.data if a.size else b"")  # the buffer itself: no copy of large columns
     return h.hexdigest()
 
 
-def write_atomic(path: Path, data: bytes) -> None:
-    """Write ``data`` to ``path`` atomically (temporary file, fsync, rename, fsync folder)."""
+def write_atomic(path: Path, data) -> None:
+    """Write to ``path`` atomically (temporary file, fsync, rename, fsync folder).
+
+    ``data`` is bytes, or a callable that writes into the open binary file
+    (so that large checkpoints are streamed, not built in memory first).
+    """
     path = Path(path)
     tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
-    with open(tmp, "wb") as fh:
-        fh.write(data)
-        fh.flush()
-        os.fsync(fh.fileno())
+    try:
+        with open(tmp, "wb") as fh:
+            if callable(data):
+                data(fh)
+            else:
+                fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
     os.replace(tmp, path)
     try:
         fd = os.open(path.parent, os.O_RDONLY)
@@ -81,9 +91,8 @@ def save_run(run, path) -> None:
         "queue_thr": run.queue.thr, "status": run.status if run.done else "running",
         "message": run.message, "digest": _digest(arrays),
     }
-    buf = io.BytesIO()
-    np.savez(buf, meta=np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8), **arrays)
-    write_atomic(Path(path), buf.getvalue())
+    meta_arr = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
+    write_atomic(Path(path), lambda fh: np.savez(fh, meta=meta_arr, **arrays))
 
 
 def read_checkpoint(path) -> tuple[dict, dict[str, np.ndarray]]:
