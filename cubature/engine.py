@@ -387,7 +387,11 @@ class Run:
     def set_goal(self, rel_tol: float | None = None, abs_tol: float | None = None,
                  max_evals: int | None = None, time_limit: float | None = None) -> None:
         """Change the goal while running (tighten or loosen).  A run that had
-        converged becomes running again if the new goal is not met."""
+        converged becomes running again if the new goal is not met.
+
+        With ``queue="local"`` the run stops when every region meets the
+        tolerance it was given when it was made, so a new tolerance has no
+        effect there (budgets and time limits still do)."""
         with self._lock:
             s = self.settings
             new = Settings(**{**s.__dict__})

@@ -127,8 +127,8 @@ class SimplexGeometry:
     children_per_split = 2
 
     def __init__(self, domain: Simplex, rule: SimplexRule, split: str = "bisect"):
-        if split not in ("bisect", "all"):
-            raise ValueError(f"split policy must be 'bisect' or 'all', got {split!r}")
+        if split != "bisect":
+            raise ValueError(f"simplices are split by longest-edge bisection only (split='bisect'), got {split!r}")
         self.domain = domain
         self.rule = rule
         self.dim = d = domain.dim
