@@ -431,7 +431,13 @@ class Run:
             raise
         except Exception as exc:  # the user's code: report, never crash the engine
             raise IntegrandError(f"integrand raised {type(exc).__name__}: {exc}") from exc
-        fx = np.asarray(fx, dtype=np.float64)
+        if np.iscomplexobj(fx):
+            raise IntegrandError("integrand returned complex values; return the real and imaginary parts as two "
+                                 "components, shape (n, 2)")
+        try:
+            fx = np.asarray(fx, dtype=np.float64)
+        except (TypeError, ValueError) as exc:
+            raise IntegrandError(f"integrand returned something that is not an array of numbers ({exc})") from None
         n = x.shape[0]
         if fx.ndim == 0:
             fx = np.full(n, float(fx))

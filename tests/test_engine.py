@@ -171,6 +171,13 @@ def test_raising_integrand_is_reported_and_state_kept():
     assert after.value == before.value and after.evaluations == before.evaluations
 
 
+def test_complex_and_non_numeric_results_are_integrand_errors():
+    with pytest.raises(IntegrandError, match="complex"):
+        integrate(lambda X: np.exp(1j * X[:, 0]), Box([0, 0], [1, 1]))
+    with pytest.raises(IntegrandError, match="not an array of numbers"):
+        integrate(lambda X: ["a"] * X.shape[0], Box([0, 0], [1, 1]))
+
+
 def test_wrong_shape_is_an_integrand_error():
     with pytest.raises(IntegrandError, match="shape"):
         integrate(lambda X: np.ones((X.shape[0], 2, 2)), Box([0, 0], [1, 1]))
