@@ -13,6 +13,7 @@ from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal
+from textual.css.query import NoMatches
 from textual.reactive import reactive
 from textual.screen import Screen
 from textual.widgets import Footer, Header, Static, TabbedContent, TabPane
@@ -131,9 +132,14 @@ class RunView(Screen):
         self._halting = False
 
     def watch_state(self, value: str) -> None:
-        if self.is_mounted:
-            self.query_one("#readout", Readout).state = value
-            self.refresh_bindings()
+        # also during on_mount (before is_mounted turns true): the first poll of a followed run sets the
+        # state there, and a later poll with the same word would not fire this watcher again
+        try:
+            readout = self.query_one("#readout", Readout)
+        except NoMatches:
+            return
+        readout.state = value
+        self.refresh_bindings()
 
     # -- layout ----------------------------------------------------------------
     def compose(self) -> ComposeResult:
