@@ -364,6 +364,7 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
                 assert await wait_until(pilot, lambda: readout.snap is not None and readout.snap.evaluations > 0)
                 e1 = readout.snap.evaluations
                 assert await wait_until(pilot, lambda: readout.snap.evaluations > e1)
+                assert readout.state == "running"          # the runner's word, from the first poll on
                 await pilot.press("h")
                 # the key creates stop-request; the runner consumes it, checkpoints and writes result.json
                 # (checked below, once the runner has exited)
