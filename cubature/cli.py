@@ -159,6 +159,10 @@ def build_parser() -> argparse.ArgumentParser:
     _add_goal_options(p)
     m = p.add_argument_group("method (overrides the problem's [method])")
     m.add_argument("--rule", choices=RULES, metavar="R", help=f"rule family: {', '.join(RULES)}")
+    m.add_argument("--second-opinion", action="store_true",
+                   help="afterwards integrate again with other nodes and region boundaries (another rule or "
+                        "split policy) to the same goal, and say whether the two answers agree within their "
+                        "error estimates (about doubles the work)")
     _add_parallel_options(p)
     _add_common(p, run_dir=True)
 
@@ -357,6 +361,10 @@ def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_aft
             show(out.snapshot, final=True)
     res = out.result
     extra = {"stopped_by": out.stop_reason} if out.stop_reason else {}
+    second = None
+    if getattr(args, "second_opinion", False) and not out.failure and not out.stop_reason and res.evaluations > 0:
+        second = _second_opinion(run, problem, res)
+        extra["second_opinion"] = second
     rec = _result_record(res, problem, name=name, run_dir=rundir.path if rundir else None, extra=extra)
     if rundir is not None:
         write_json(rundir.file(RESULT), rec)
@@ -372,14 +380,56 @@ def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_aft
         hint = _continue_hint(res, run, rundir)
         if hint:
             more.append(f"{'next':<11} {hint}")
+        if second is not None:
+            more.extend(_second_opinion_lines(second))
         for line in summary_lines(res, STATUSES, problem.reference, more):
             print(line, flush=True)
+    if second is not None and second.get("agree") is False:
+        _err("cubage: warning: the second opinion disagrees beyond both error estimates; at least one of them is "
+             "wrong (see the Cautions in the README)")
     if out.failure:
         kept = " (the estimate above is from before the failing step)" if res.evaluations > 0 and not args.json else ""
         _err(f"cubage: integrand failed: {out.failure}{kept}")
     elif code == EXIT_SHORT and args.json:
         _err(f"cubage: stopped short of the goal: {res.status} ({STATUSES.get(res.status, '')})")
     return code
+
+
+def _second_opinion(run, problem, res) -> dict:
+    """Integrate again with other nodes and boundaries (:func:`cubature.rules.second_opinion`); compare."""
+    import numpy as np
+    from .engine import IntegrandError, Run
+    from .rules import second_opinion
+    from .rundir import json_numbers
+    opts, words = second_opinion(problem.domain.kind, problem.domain.dim, run.rule_name, run.settings.split)
+    s = run.settings
+    try:
+        alt = Run(problem.integrand, problem.domain, evaluator=run.evaluator, fingerprint=problem.fingerprint(),
+                  rel_tol=s.rel_tol, abs_tol=s.abs_tol, max_evals=s.max_evals, time_limit=s.time_limit, **opts)
+        r2 = alt.run()
+    except (IntegrandError, ValueError) as exc:
+        return {"method": words, "status": "failed", "message": str(exc), "agree": None}
+    diff = np.abs(np.asarray(res.values) - np.asarray(r2.values))
+    agree = bool(np.all(diff <= np.asarray(res.errors) + np.asarray(r2.errors)))
+    scalar = np.ndim(res.value) == 0
+    return {"method": words, "value": json_numbers(r2.value), "error": json_numbers(r2.error),
+            "status": r2.status, "evaluations": int(r2.evaluations), "seconds": round(float(r2.seconds), 6),
+            "difference": json_numbers(float(diff[0]) if scalar else diff), "agree": agree}
+
+
+def _second_opinion_lines(so: dict) -> list[str]:
+    import numpy as np
+    from .live import fmt_err, fmt_value
+    head = f"{'second':<11} {so['method']}"
+    if so["status"] == "failed":
+        return [head, f"{'':<11} failed: {so.get('message', '')}"]
+    vals = np.atleast_1d(np.asarray(so["value"], dtype=float))
+    errs = np.atleast_1d(np.asarray(so["error"], dtype=float))
+    lines = [head] + [f"{'':<11} {fmt_value(v)} ± {fmt_err(e)}" for v, e in zip(vals, errs)]
+    verdict = ("agrees within the two error estimates" if so["agree"] else
+               "DISAGREES beyond both error estimates: at least one answer is wrong")
+    lines.append(f"{'':<11} {so['status']}, {so['evaluations']:,} evaluations; {verdict}")
+    return lines
 
 
 # --------------------------------------------------------------------------

@@ -32,7 +32,7 @@ SIMPLEX_RULES = ("grundmann-moller",)
 __all__ = [
     "RULE_NAMES", "BOX_RULES", "SIMPLEX_RULES", "BoxRule", "SimplexRule", "box_rule",
     "simplex_rule", "default_rule", "genz_malik_rule", "gauss_kronrod_rule",
-    "grundmann_moller_rule", "bisect_simplices", "simplex_volumes", "choose_axis",
+    "grundmann_moller_rule", "bisect_simplices", "simplex_volumes", "choose_axis", "second_opinion",
 ]
 
 
@@ -157,3 +157,30 @@ def default_rule(kind: str, dim: int) -> str:
     if kind == "simplex":
         return "grundmann-moller"
     raise ValueError(f"unknown domain kind {kind!r}; valid kinds: box, simplex")
+
+
+def second_opinion(kind: str, dim: int, rule: str, split: str = "bisect") -> tuple[dict, str]:
+    """Settings for an independent re-computation, and a description of them.
+
+    The point is different nodes and different region boundaries, so that
+    a feature one method cannot see (a kink clipping corners between the
+    nodes, a jump) is unlikely to be hidden from the other in the same way:
+
+    * boxes, d <= 3: the other box rule (Genz–Malik <-> Gauss–Kronrod);
+    * boxes, d = 1: Gauss–Kronrod with the plain ``|Q - Q_low|`` estimate;
+    * boxes, d >= 4: Genz–Malik with every axis split at once (when the main
+      run bisected) or bisection (when it split every axis), plain estimate;
+    * simplices: the Grundmann–Möller rule of degree 9 (degree 7 when the
+      main run used 9 or more).
+    """
+    if kind == "simplex":
+        return ({"rule": "grundmann-moller", "degree": 9}, "grundmann-moller degree 9")
+    if dim == 1:
+        return ({"rule": "gauss-kronrod", "estimate": "plain"}, "gauss-kronrod, plain |Q15 - Q7| estimate")
+    if dim <= 3:
+        other = "gauss-kronrod" if rule == "genz-malik" else "genz-malik"
+        return ({"rule": other}, other)
+    other_split = "all" if split == "bisect" else "bisect"
+    words = "every axis split at once" if other_split == "all" else "bisection"
+    return ({"rule": "genz-malik", "split": other_split, "estimate": "plain"},
+            f"genz-malik, {words}, plain |Q7 - Q5| estimate")
