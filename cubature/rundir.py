@@ -91,14 +91,18 @@ def _read_json(path: Path) -> dict | None:
     return obj if isinstance(obj, dict) else None
 
 
-def _proc_start(pid: int) -> str | None:
-    """Start time of ``pid`` in clock ticks since boot (Linux), to tell a reused pid apart."""
+def _proc_stat_field(pid: int, index: int) -> str | None:
+    """Field ``index`` (counted after the command name) of ``/proc/<pid>/stat``, or None (Linux only)."""
     try:
         with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
-            stat = fh.read()
-        return stat.rsplit(")", 1)[1].split()[19]
+            return fh.read().rsplit(")", 1)[1].split()[index]
     except (OSError, IndexError):
         return None
+
+
+def _proc_start(pid: int) -> str | None:
+    """Start time of ``pid`` in clock ticks since boot (Linux), to tell a reused pid apart."""
+    return _proc_stat_field(pid, 19)
 
 
 def pid_alive(pid: int) -> bool:
@@ -111,12 +115,8 @@ def pid_alive(pid: int) -> bool:
         return False
     except PermissionError:
         return True
-    try:
-        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as fh:
-            state = fh.read().rsplit(")", 1)[1].split()[0]
-        return state not in ("Z", "X")
-    except (OSError, IndexError):
-        return True
+    state = _proc_stat_field(pid, 0)
+    return state is None or state not in ("Z", "X")
 
 
 # --------------------------------------------------------------------------

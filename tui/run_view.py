@@ -280,6 +280,8 @@ class RunView(Screen):
 
     def _engine_done(self, err: str | None) -> None:
         self._engine_live = False
+        if not self._widgets_present():     # quitting: the engine ended while the screen was torn down
+            return
         self._tick()
         run = self.run
         st = run.status
@@ -294,7 +296,16 @@ class RunView(Screen):
             self._save("stopped early, current estimate kept")
         self.refresh_bindings()
 
+    def _widgets_present(self) -> bool:
+        try:
+            self.query_one("#readout", Readout)
+        except NoMatches:
+            return False
+        return True
+
     def _tick(self) -> None:
+        if not self._widgets_present():
+            return
         snap = self._pending
         if snap is not None and snap is not self._shown:
             self._show(snap)
