@@ -23,12 +23,19 @@ class Box:
     ----------
     lower, upper : array_like, shape (d,)
         Lower and upper bounds, ``lower < upper`` on every axis.
+    scale : array_like, shape (d,), optional
+        Length scale of the map of each *infinite* axis (ignored on finite
+        ones; default 1): the map sends half of the engine's axis to within
+        ``scale`` of the finite end (or of 0 for a doubly infinite axis), so
+        a value near the integrand's width lets the rule resolve it with few
+        regions.
     """
 
     lower: np.ndarray
     upper: np.ndarray
+    scale: np.ndarray
 
-    def __init__(self, lower, upper):
+    def __init__(self, lower, upper, scale=None):
         lo = np.atleast_1d(np.asarray(lower, dtype=float)).copy()
         hi = np.atleast_1d(np.asarray(upper, dtype=float)).copy()
         if lo.ndim != 1 or hi.ndim != 1 or lo.shape != hi.shape:
@@ -44,10 +51,16 @@ class Box:
             raise DomainError(f"box axis {i}: lower bound {lo[i]:g} is not below upper bound {hi[i]:g}")
         if np.isposinf(lo).any() or np.isneginf(hi).any():
             raise DomainError("box: a lower bound of +inf or an upper bound of -inf is empty")
-        lo.flags.writeable = False
-        hi.flags.writeable = False
+        sc = np.ones_like(lo) if scale is None else np.atleast_1d(np.asarray(scale, dtype=float)).copy()
+        if sc.shape != lo.shape:
+            raise DomainError(f"box scale must have one entry per axis ({lo.size}), got {sc.size}")
+        if not (np.isfinite(sc).all() and (sc > 0).all()):
+            raise DomainError("box scale entries must be positive finite numbers")
+        for a in (lo, hi, sc):
+            a.flags.writeable = False
         object.__setattr__(self, "lower", lo)
         object.__setattr__(self, "upper", hi)
+        object.__setattr__(self, "scale", sc)
 
     kind = "box"
 
@@ -68,11 +81,19 @@ class Box:
     def describe(self) -> str:
         """A short human-readable description."""
         rows = ", ".join(f"[{a:g}, {b:g}]" for a, b in zip(self.lower, self.upper))
+        if self._scaled():
+            rows += "; scale of the infinite axes " + ", ".join(f"{c:g}" for c in self.scale)
         return f"box {rows}"
 
+    def _scaled(self) -> bool:
+        return bool((~np.isfinite(self.lower) | ~np.isfinite(self.upper)).any() and (self.scale != 1).any())
+
     def to_json(self) -> dict:
-        """JSON-ready description (infinite bounds as strings)."""
-        return {"box": [[_jnum(a), _jnum(b)] for a, b in zip(self.lower, self.upper)]}
+        """JSON-ready description (infinite bounds as strings; the scale only when it matters)."""
+        out = {"box": [[_jnum(a), _jnum(b)] for a, b in zip(self.lower, self.upper)]}
+        if self._scaled():
+            out["scale"] = [float(c) for c in self.scale]
+        return out
 
 
 @dataclass(frozen=True, eq=False)

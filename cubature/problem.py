@@ -57,7 +57,7 @@ BACKENDS = ("auto", "serial", "processes", "threads", "dask")
 
 _TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "reference")
 _TABLE_KEYS = {
-    "domain": ("variables", "box", "simplex"),
+    "domain": ("variables", "box", "simplex", "scale"),
     "integrand": ("expr", "constants", "python"),
     "goal": ("rel_tol", "abs_tol", "max_evals", "time_limit"),
     "method": ("rule", "degree", "workers", "backend", "cluster"),
@@ -428,11 +428,24 @@ def _parse_domain(ctx, tbl):
                 raise ctx.error("domain", "box", f"{label}: low {a:g} is not below high {b:g}")
             lo.append(a)
             hi.append(b)
+        scale = None
+        if "scale" in tbl:
+            sc = tbl["scale"]
+            if not isinstance(sc, list) or len(sc) != d:
+                raise ctx.error("domain", "scale", f"must be a list of {d} positive numbers (one per variable), "
+                                                   f"got {sc!r}")
+            for i, c in enumerate(sc):
+                if not _is_number(c) or not (math.isfinite(float(c)) and float(c) > 0):
+                    raise ctx.error("domain", "scale", f"entry {i + 1} (variable {vs[i]}) must be a positive "
+                                                       f"finite number, got {c!r}")
+            scale = [float(c) for c in sc]
         try:
-            dom = Box(lo, hi)
+            dom = Box(lo, hi, scale=scale)
         except DomainError as exc:
             raise ctx.error("domain", "box", str(exc)) from None
         return list(vs), dom
+    if "scale" in tbl:
+        raise ctx.error("domain", "scale", "applies to the infinite axes of a box; a simplex has none")
     verts = tbl["simplex"]
     if not isinstance(verts, list):
         raise ctx.error("domain", "simplex", f"must be a list of vertices, got {_tname(verts)}")

@@ -7,12 +7,14 @@ separately:
 user axis              engine axis ``t``           ``x(t)``            ``|dx/dt|``
 =====================  ==========================  ==================  =====================
 ``[a, b]``             ``[a, b]``                  ``t``               ``1``
-``[a, inf)``           ``[0, 1)``                  ``a + t/(1-t)``     ``1/(1-t)^2``
-``(-inf, b]``          ``[0, 1)``                  ``b - t/(1-t)``     ``1/(1-t)^2``
-``(-inf, inf)``        ``(-1, 1)``                 ``t/(1-t^2)``       ``(1+t^2)/(1-t^2)^2``
+``[a, inf)``           ``[0, 1)``                  ``a + L t/(1-t)``   ``L/(1-t)^2``
+``(-inf, b]``          ``[0, 1)``                  ``b - L t/(1-t)``   ``L/(1-t)^2``
+``(-inf, inf)``        ``(-1, 1)``                 ``L t/(1-t^2)``     ``L (1+t^2)/(1-t^2)^2``
 =====================  ==========================  ==================  =====================
 
-These are the standard rational maps (common practice).  They are singular
+These are the standard rational maps (common practice); ``L`` is the axis's
+``Box.scale`` (default 1), best chosen near the width of the integrand along
+that axis.  They are singular
 only at ``t = +-1``; every rule's nodes lie strictly inside their region, so no
 node is placed there.  As a guard against rounding in very deep subdivisions,
 ``t`` is clipped to ``[-1 + 2^-52, 1 - 2^-53]`` before mapping.
@@ -56,6 +58,7 @@ class AxisMap:
         kinds[np.isinf(lo) & np.isfinite(hi)] = _LOWER_INF
         kinds[np.isinf(lo) & np.isinf(hi)] = _BOTH_INF
         self.kinds = kinds
+        self.scale = box.scale
         self.user_lower = lo
         self.user_upper = hi
         elo = np.where(kinds == _FINITE, lo, 0.0)
@@ -81,17 +84,18 @@ class AxisMap:
         for i in self._axes:
             k = self.kinds[i]
             ti = t[:, i]
+            L = self.scale[i]
             if k == _BOTH_INF:
                 ti = np.clip(ti, _T_MIN, _T_MAX)
                 s = 1.0 - ti * ti
-                x[:, i] = ti / s
-                jac *= (1.0 + ti * ti) / (s * s)
+                x[:, i] = L * ti / s
+                jac *= L * (1.0 + ti * ti) / (s * s)
             else:
                 ti = np.minimum(ti, _T_MAX)
                 s = 1.0 - ti
-                u = ti / s
+                u = L * ti / s
                 x[:, i] = self.user_lower[i] + u if k == _UPPER_INF else self.user_upper[i] - u
-                jac *= 1.0 / (s * s)
+                jac *= L / (s * s)
         return x, jac
 
     def bounds_to_user(self, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -102,14 +106,15 @@ class AxisMap:
         with np.errstate(divide="ignore"):
             for i in self._axes:
                 k = self.kinds[i]
+                L = self.scale[i]
                 a, b = lo[..., i], hi[..., i]
                 if k == _BOTH_INF:
-                    ulo[..., i] = np.where(a <= -1.0, -np.inf, a / (1.0 - a * a))
-                    uhi[..., i] = np.where(b >= 1.0, np.inf, b / (1.0 - b * b))
+                    ulo[..., i] = np.where(a <= -1.0, -np.inf, L * a / (1.0 - a * a))
+                    uhi[..., i] = np.where(b >= 1.0, np.inf, L * b / (1.0 - b * b))
                 elif k == _UPPER_INF:
-                    ulo[..., i] = self.user_lower[i] + a / (1.0 - a)
-                    uhi[..., i] = np.where(b >= 1.0, np.inf, self.user_lower[i] + b / (1.0 - b))
+                    ulo[..., i] = self.user_lower[i] + L * a / (1.0 - a)
+                    uhi[..., i] = np.where(b >= 1.0, np.inf, self.user_lower[i] + L * b / (1.0 - b))
                 else:
-                    uhi[..., i] = self.user_upper[i] - a / (1.0 - a)
-                    ulo[..., i] = np.where(b >= 1.0, -np.inf, self.user_upper[i] - b / (1.0 - b))
+                    uhi[..., i] = self.user_upper[i] - L * a / (1.0 - a)
+                    ulo[..., i] = np.where(b >= 1.0, -np.inf, self.user_upper[i] - L * b / (1.0 - b))
         return ulo, uhi

@@ -322,3 +322,20 @@ def test_degenerate_domains_rejected():
         Simplex([[0, 0], [1, 1], [2, 2]])
     with pytest.raises(cubature.DomainError, match="not below"):
         Box([0, 1], [1, 1])
+
+
+def test_scale_of_infinite_axes():
+    # int_{R^3} exp(-|x|^2 / (2 s^2)) dx = (2 pi)^(3/2) s^3  (Gaussian integral, common practice)
+    s = 100.0
+    f = lambda X: np.exp(-(X * X).sum(axis=1) / (2 * s * s))
+    exact = (2 * math.pi) ** 1.5 * s ** 3
+    plain = integrate(f, Box([-np.inf] * 3, [np.inf] * 3), rel_tol=1e-6)
+    scaled = integrate(f, Box([-np.inf] * 3, [np.inf] * 3, scale=[s] * 3), rel_tol=1e-6)
+    assert scaled.value == pytest.approx(exact, rel=1e-5) and plain.value == pytest.approx(exact, rel=1e-5)
+    assert scaled.evaluations * 5 < plain.evaluations
+    # half-infinite axes: int_0^inf e^{-x/50} dx * int_{-inf}^3 e^{-y^2} dy = 50 sqrt(pi)/2 (1 + erf 3)  (A&S 7.1.1)
+    res = integrate(lambda X: np.exp(-X[:, 0] / 50 - X[:, 1] ** 2), Box([0, -np.inf], [np.inf, 3], scale=[50, 1]),
+                    rel_tol=1e-9)
+    assert res.value == pytest.approx(50 * math.sqrt(math.pi) / 2 * (1 + erf(3.0)), rel=1e-8)
+    with pytest.raises(cubature.DomainError, match="positive"):
+        Box([0], [np.inf], scale=[0])

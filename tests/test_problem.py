@@ -288,3 +288,17 @@ def test_mutated_problem_files_never_crash():
             parse_problem("".join(s), path="fuzz.toml")
         except ProblemError as exc:
             assert "\n" not in exc.headline and exc.headline.startswith("fuzz.toml")
+
+
+def test_domain_scale_key(tmp_path):
+    # a scale per variable reaches the Box; bad scales are one-line errors naming the key
+    from cubature.problem import ProblemError, parse_problem
+    good = '[domain]\nvariables = ["x", "y"]\nbox = [[0, inf], [-inf, inf]]\nscale = [20, 3]\n[integrand]\nexpr = "exp(-x/20 - y*y/9)"\n'
+    p = parse_problem(good, path=tmp_path / "s.toml")
+    assert list(p.domain.scale) == [20.0, 3.0]
+    for bad, what in (("scale = [20]", "2 positive numbers"), ("scale = [20, -1]", "positive"),
+                      ('scale = [20, "a"]', "positive")):
+        with pytest.raises(ProblemError) as exc:
+            parse_problem(good.replace("scale = [20, 3]", bad), path=tmp_path / "s.toml")
+        msg = str(exc.value)
+        assert "\n" not in msg and "[domain] scale" in msg and what in msg

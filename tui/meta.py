@@ -15,9 +15,9 @@ from cubature.problem import Problem, ProblemError, load_problem
 AXIS_FINITE, AXIS_UPPER_INF, AXIS_LOWER_INF, AXIS_BOTH_INF = "finite", "upper-inf", "lower-inf", "both-inf"
 
 _AXIS_NOTE = {
-    AXIS_UPPER_INF: "[{a:g}, inf) drawn as t in [0,1), {v} = {a:g} + t/(1-t)",
-    AXIS_LOWER_INF: "(-inf, {b:g}] drawn as t in [0,1), {v} = {b:g} - t/(1-t)",
-    AXIS_BOTH_INF: "(-inf, inf) drawn as t in (-1,1), {v} = t/(1-t^2)",
+    AXIS_UPPER_INF: "[{a:g}, inf) drawn as t in [0,1), {v} = {a:g} + {L}t/(1-t)",
+    AXIS_LOWER_INF: "(-inf, {b:g}] drawn as t in [0,1), {v} = {b:g} - {L}t/(1-t)",
+    AXIS_BOTH_INF: "(-inf, inf) drawn as t in (-1,1), {v} = {L}t/(1-t^2)",
 }
 
 
@@ -49,6 +49,7 @@ class ProblemMeta:
     axis_kinds: list[str] = field(default_factory=list)
     reference: list[float] | None = None
     reference_source: str = ""
+    scale: list[float] = field(default_factory=list)
 
     @property
     def dim(self) -> int:
@@ -59,8 +60,9 @@ class ProblemMeta:
         k = self.axis_kinds[i] if i < len(self.axis_kinds) else AXIS_FINITE
         if k == AXIS_FINITE:
             return ""
+        L = self.scale[i] if i < len(self.scale) else 1.0
         return f"{self.variables[i]}: " + _AXIS_NOTE[k].format(a=self.lower[i], b=self.upper[i],
-                                                               v=self.variables[i])
+                                                               v=self.variables[i], L="" if L == 1 else f"{L:g}*")
 
     @classmethod
     def from_problem(cls, p: Problem) -> "ProblemMeta":
@@ -77,8 +79,9 @@ class ProblemMeta:
             lo, hi, kind = v.min(axis=0).tolist(), v.max(axis=0).tolist(), "simplex"
         else:
             lo, hi, kind = [float(x) for x in dom.lower], [float(x) for x in dom.upper], "box"
+        scale = [float(x) for x in getattr(dom, "scale", [])]
         return cls(p.title or (p.path.stem if p.path else "problem"), p.path, list(p.variables), kind, lo, hi,
-                   _kinds(lo, hi), ref, src)
+                   _kinds(lo, hi), ref, src, scale)
 
 
 def _kinds(lo, hi) -> list[str]:
@@ -141,7 +144,8 @@ def meta_from_file(path) -> ProblemMeta:
             v = data["reference"]["value"]
             ref = [float(x) for x in v] if isinstance(v, list) else [float(v)]
             src = str(data["reference"].get("source", ""))
+        scale = [float(x) for x in dom.get("scale", [])]
         return ProblemMeta(str(data.get("title") or path.stem), path, variables, kind, lo, hi, _kinds(lo, hi),
-                           ref, src or "")
+                           ref, src or "", scale)
     except (KeyError, TypeError, ValueError, IndexError, OSError, tomllib.TOMLDecodeError) as exc:
         raise ProblemError(f"cannot read title/variables/domain: {exc}", path=str(path)) from None
