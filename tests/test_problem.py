@@ -1,6 +1,5 @@
 """Tests of problem-file parsing and validation."""
 
-import os
 import sys
 from pathlib import Path
 

@@ -33,6 +33,7 @@ __all__ = [
     "RULE_NAMES", "BOX_RULES", "SIMPLEX_RULES", "BoxRule", "SimplexRule", "box_rule",
     "simplex_rule", "default_rule", "genz_malik_rule", "gauss_kronrod_rule",
     "grundmann_moller_rule", "bisect_simplices", "simplex_volumes", "choose_axis", "second_opinion",
+    "GAUSS_KRONROD_MAX_DIM",
 ]
 
 
