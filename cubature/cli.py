@@ -66,18 +66,19 @@ def _tolerance(text: str) -> float:
     return x
 
 
-def _seconds(text: str) -> float:
-    x = _number(text, "must be a number of seconds > 0")
-    if not (0 < x < math.inf):
-        raise argparse.ArgumentTypeError(f"must be a number of seconds > 0, got {text!r}")
+def _duration(text: str, *, zero_ok: bool, what: str) -> float:
+    x = _number(text, what)
+    if not ((0 <= x if zero_ok else 0 < x) and x < math.inf):
+        raise argparse.ArgumentTypeError(f"must be a number of seconds {'>=' if zero_ok else '>'} 0, got {text!r}")
     return x
+
+
+def _seconds(text: str) -> float:
+    return _duration(text, zero_ok=False, what="must be a number of seconds > 0")
 
 
 def _every(text: str) -> float:
-    x = _number(text, "must be a number of seconds (0 = only at the end)")
-    if not (0 <= x < math.inf):
-        raise argparse.ArgumentTypeError(f"must be a number of seconds >= 0, got {text!r}")
-    return x
+    return _duration(text, zero_ok=True, what="must be a number of seconds (0 = only at the end)")
 
 
 def _count(text: str) -> int:
