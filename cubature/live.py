@@ -295,4 +295,6 @@ def summary_lines(result, statuses: dict, reference=None, extra: Sequence[str] =
         lines.append(f"{'reference':<11} {reference.source}")
     lines.extend(extra)
     lines.append(f"{'note':<11} {CAUTION}")
+    if not any(str(x).startswith("second ") for x in extra):
+        lines.append(f"{'':<11} (cross-check with other nodes: cubage run FILE --second-opinion)")
     return lines
