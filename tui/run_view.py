@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import functools
 import inspect
 import time
 from pathlib import Path
@@ -74,6 +75,22 @@ def make_evaluator(problem, workers) -> tuple[object | None, str]:
     describe = getattr(parallel, "describe_evaluator", None)
     how = describe(ev) if callable(describe) else ("in-process" if ev is None else f"{workers} workers")
     return ev, how
+
+
+def _while_shown(method):
+    """Run a UI update only while the screen's widgets exist.
+
+    The engine thread and the timers may deliver an update while the app is
+    quitting and the screen's widgets are being removed one by one; such a
+    late update has nothing to show and is dropped.
+    """
+    @functools.wraps(method)
+    def wrapper(self, *args, **kwargs):
+        try:
+            return method(self, *args, **kwargs)
+        except NoMatches:
+            return None
+    return wrapper
 
 
 class RunView(Screen):
@@ -277,10 +294,9 @@ class RunView(Screen):
         self.state = self._derive_state()
         self.refresh_bindings()
 
+    @_while_shown
     def _engine_done(self, err: str | None) -> None:
         self._engine_live = False
-        if not self._widgets_present():     # quitting: the engine ended while the screen was torn down
-            return
         self._tick()
         run = self.run
         st = run.status
@@ -295,16 +311,8 @@ class RunView(Screen):
             self._save("stopped early, current estimate kept")
         self.refresh_bindings()
 
-    def _widgets_present(self) -> bool:
-        try:
-            self.query_one("#readout", Readout)
-        except NoMatches:
-            return False
-        return True
-
+    @_while_shown
     def _tick(self) -> None:
-        if not self._widgets_present():
-            return
         snap = self._pending
         if snap is not None and snap is not self._shown:
             self._show(snap)
@@ -312,6 +320,7 @@ class RunView(Screen):
             self.state = self._derive_state()
 
     # -- the run, followed from its directory ----------------------------------------
+    @_while_shown
     def _poll_follower(self) -> None:
         f = self.follower
         try:
