@@ -669,16 +669,20 @@ def _parse_goal(ctx, tbl) -> Goal:
     return g
 
 
+def _choice(ctx, key: str, v, choices) -> str:
+    """A [method] string that must be one of ``choices`` (one-line error with a suggestion otherwise)."""
+    if not isinstance(v, str):
+        raise ctx.error("method", key, f"must be a string, got {_tname(v)}")
+    if v not in choices:
+        raise ctx.error("method", key, f"unknown {key} '{v}'{_suggest(v, choices)} (valid: {', '.join(choices)})")
+    return v
+
+
 def _parse_method(ctx, tbl, domain) -> Method:
     m = Method()
     d = domain.dim
     if "rule" in tbl:
-        r = tbl["rule"]
-        if not isinstance(r, str):
-            raise ctx.error("method", "rule", f"must be a string, got {_tname(r)}")
-        if r not in RULES:
-            raise ctx.error("method", "rule", f"unknown rule '{r}'{_suggest(r, RULES)} "
-                                              f"(valid: {', '.join(RULES)})")
+        r = _choice(ctx, "rule", tbl["rule"], RULES)
         if isinstance(domain, Simplex) and r != "grundmann-moller":
             raise ctx.error("method", "rule", f"{r} is a rule for boxes; for a simplex use grundmann-moller")
         if isinstance(domain, Box) and r == "grundmann-moller":
@@ -706,13 +710,7 @@ def _parse_method(ctx, tbl, domain) -> Method:
             raise ctx.error("method", "workers", f"must be at least 1, got {v}")
         m.workers = v
     if "backend" in tbl:
-        v = tbl["backend"]
-        if not isinstance(v, str):
-            raise ctx.error("method", "backend", f"must be a string, got {_tname(v)}")
-        if v not in BACKENDS:
-            raise ctx.error("method", "backend", f"unknown backend '{v}'{_suggest(v, BACKENDS)} "
-                                                 f"(valid: {', '.join(BACKENDS)})")
-        m.backend = v
+        m.backend = _choice(ctx, "backend", tbl["backend"], BACKENDS)
     if "cluster" in tbl:
         v = tbl["cluster"]
         if not isinstance(v, str) or not v.strip():
