@@ -23,7 +23,7 @@ import numpy as np
 from scipy import integrate as si
 from scipy.special import erf
 
-import cubature
+import cubage
 
 # ---- problems (name, f, lower, upper, reference or None, note) -----------------------------
 
@@ -95,7 +95,7 @@ class Counter:
 def run_cubage(f, lo, hi, rel_tol, **opts):
     c = Counter(f)
     t = time.perf_counter()
-    r = cubature.integrate(c, cubature.Box(lo, hi), rel_tol=rel_tol, max_evals=200_000_000, **opts)
+    r = cubage.integrate(c, cubage.Box(lo, hi), rel_tol=rel_tol, budget=200_000_000, **opts)
     return r.value, r.error, r.evaluations, time.perf_counter() - t, r.status
 
 
@@ -156,7 +156,7 @@ def main():
 
     print("\n## batch policy: evaluations with batch='auto' vs strictly one region per step")
     rows = []
-    for name, f, lo, hi, ref in probs:
+    for name, f, lo, hi, _ref in probs:
         a = run_cubage(f, lo, hi, tol)
         one = run_cubage(f, lo, hi, tol, batch=1)
         rows.append([name, a[2], one[2], fmt(a[2] / one[2]), fmt(a[3]), fmt(one[3])])
@@ -171,12 +171,12 @@ def main():
     print("\n## throughput, trivial 4-D integrand (sum of coordinates), one core")
     f = lambda X: X[:, 0] + X[:, 1] + X[:, 2] + X[:, 3]
     t = time.perf_counter()
-    r = cubature.integrate(lambda X: np.exp(-(X * X).sum(axis=1)), cubature.Box([0] * 4, [1] * 4), rel_tol=1e-16,
-                           max_evals=20_000_000)
+    r = cubage.integrate(lambda X: np.exp(-(X * X).sum(axis=1)), cubage.Box([0] * 4, [1] * 4), rel_tol=1e-16,
+                           budget=20_000_000)
     s1 = time.perf_counter() - t
     print(f"exp(-|x|^2): {r.evaluations / s1 / 1e6:.1f} M evaluations/s ({r.evaluations} in {s1:.2f} s)")
     t = time.perf_counter()
-    r = cubature.integrate(f, cubature.Box([0] * 4, [1] * 4), rel_tol=1e-16, max_evals=20_000_000, estimate="plain")
+    r = cubage.integrate(f, cubage.Box([0] * 4, [1] * 4), rel_tol=1e-16, budget=20_000_000, estimate="plain")
     s1 = time.perf_counter() - t
     print(f"sum of coordinates (a cubic-exact integrand, so every region is exact and the "
           f"split pattern is uniform): {r.evaluations / s1 / 1e6:.1f} M evaluations/s")
@@ -190,7 +190,7 @@ def main():
     for label, g in (("product of exp, cos, erf (5 factors)", g5), ("the same with 3 more factors", g8),
                      ("the same with 9 more factors", g14)):
         t = time.perf_counter()
-        r = cubature.integrate(g, cubature.Box([0] * 6, [1] * 6), rel_tol=1e-16, max_evals=10_000_000)
+        r = cubage.integrate(g, cubage.Box([0] * 6, [1] * 6), rel_tol=1e-16, budget=10_000_000)
         wall = time.perf_counter() - t
         # bare: the same number of points, in the same column-major layout the engine hands out
         X = np.asfortranarray(np.random.default_rng(0).random((1 << 15, 6)))

@@ -49,10 +49,10 @@ def costly(X):
     return acc
 
 
-def _time_run(f, domain, evaluator, max_evals, rel_tol=1e-14):
-    import cubature
+def _time_run(f, domain, evaluator, budget, rel_tol=1e-14):
+    import cubage
     t0 = time.perf_counter()
-    res = cubature.integrate(f, domain, rel_tol=rel_tol, max_evals=max_evals, evaluator=evaluator)
+    res = cubage.integrate(f, domain, rel_tol=rel_tol, budget=budget, evaluator=evaluator)
     return time.perf_counter() - t0, res
 
 
@@ -98,10 +98,10 @@ def _cpu() -> float:
     return total
 
 
-def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
-    import cubature
-    from cubature.parallel import make_evaluator
-    from cubature.problem import integrand_from_spec
+def efficiency(which: str, workers: int, budget: int, repeats: int) -> None:
+    import cubage
+    from cubage.engine.parallel import make_evaluator
+    from cubage.problem.problem_file import integrand_from_spec
 
     here = Path(__file__).resolve()
     if which == "bessel":
@@ -111,7 +111,7 @@ def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
         spec = {"kind": "python", "target": f"{here.name}:costly", "base_dir": str(here.parent)}
         words = f"{TERMS}-term cos*exp numpy loop"
     f = integrand_from_spec(spec)
-    domain = cubature.Box([-1.0, -1.0, -1.0], [1.0, 1.0, 1.0])
+    domain = cubage.Box([-1.0, -1.0, -1.0], [1.0, 1.0, 1.0])
 
     X = np.asfortranarray(np.random.default_rng(1).uniform(-1, 1, (8192, 3)))
     f(X)
@@ -119,7 +119,7 @@ def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
     f(X)
     per_point = (time.process_time() - t0) / X.shape[0]
     print(f"{which}: {words} in 3-D, {per_point * 1e6:.1f} us of CPU a point; "
-          f"budget {max_evals} evaluations; best of {repeats}")
+          f"budget {budget} evaluations; best of {repeats}")
 
     in_f = [0.0]
 
@@ -134,7 +134,7 @@ def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
     for _ in range(repeats):
         in_f[0] = 0.0
         c0 = _cpu()
-        t, res = _time_run(timed, domain, None, max_evals)
+        t, res = _time_run(timed, domain, None, budget)
         cpu = _cpu() - c0
         if "serial" not in best or cpu < best["serial"][1]:
             best["serial"] = (t, cpu, res, in_f[0], "in-process")
@@ -145,7 +145,7 @@ def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
             startup = time.perf_counter() - t_start
             try:
                 c0 = _cpu()
-                t, res = _time_run(f, domain, ev, max_evals)
+                t, res = _time_run(f, domain, ev, budget)
                 cpu = _cpu() - c0
                 words = ev.describe()
             finally:
@@ -169,26 +169,27 @@ def efficiency(which: str, workers: int, max_evals: int, repeats: int) -> None:
         print(f"  {words:<22}: {t_p:7.2f} s wall (pool start-up {startup:.2f} s more); measured speedup "
               f"{speed:4.2f} = efficiency {100 * speed / workers:5.1f} %; value identical: {same}")
         print(f"  {'':<22}  CPU {cpu_p:.2f} s summed over all processes vs {cpu_s:.2f} s in-process "
-              f"({100 * (cpu_p / cpu_s - 1):+.1f} %) -> idle-machine projection {100 * cpu_s / projected / workers:5.1f} %")
+              f"({100 * (cpu_p / cpu_s - 1):+.1f} %) -> idle-machine projection "
+              f"{100 * cpu_s / projected / workers:5.1f} %")
 
 
-def auto_overhead(workers: int, repeats: int, max_evals: int) -> None:
-    import cubature
-    from cubature.expr import compile_expression
-    from cubature.parallel import make_evaluator
+def auto_overhead(workers: int, repeats: int, budget: int) -> None:
+    import cubage
+    from cubage.engine.parallel import make_evaluator
+    from cubage.problem.expr import compile_expression
 
     f = compile_expression("exp(-(x**2 + y**2 + z**2)) * cos(x*y*z)", ["x", "y", "z"])
-    domain = cubature.Box([-2.0] * 3, [2.0] * 3)
-    _time_run(f, domain, None, max_evals)  # warm caches
+    domain = cubage.Box([-2.0] * 3, [2.0] * 3)
+    _time_run(f, domain, None, budget)  # warm caches
     serial, auto = [], []
     modes = set()
     for _ in range(repeats):
-        t, r0 = _time_run(f, domain, None, max_evals)
+        t, r0 = _time_run(f, domain, None, budget)
         serial.append(t)
         ev = make_evaluator(workers, "auto")
         try:
             t0 = time.perf_counter()
-            r1 = cubature.integrate(f, domain, rel_tol=1e-14, max_evals=max_evals, evaluator=ev)
+            r1 = cubage.integrate(f, domain, rel_tol=1e-14, budget=budget, evaluator=ev)
             auto.append(time.perf_counter() - t0)
             modes.add(ev.mode)
             desc = ev.describe()

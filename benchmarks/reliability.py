@@ -2,15 +2,15 @@
 
 For every family, dimension, tolerance and draw this integrates with the
 "sharp" estimate (and, for the evaluation ratio, with "plain") and counts how
-often the true error (closed form, :mod:`cubature.genz`) is within the
+often the true error (closed form, :mod:`cubage.bench.genz_families`) is within the
 reported error.  It prints one line per (family, d, tol) and a summary; the
-figures calibrate ``RATIO_LIMIT`` / ``SAFETY`` in :mod:`cubature.estimate`.
+figures calibrate ``RATIO_LIMIT`` / ``SAFETY`` in :mod:`cubage.engine.estimate`.
 
 Usage::
 
     python benchmarks/reliability.py [--draws 50] [--dims 2 3 4 5 6]
         [--tols 1e-4 1e-6 1e-8] [--rules default genz-malik] [--seed 1]
-        [--ratio-limit X] [--safety Y] [--max-evals N] [--no-plain]
+        [--ratio-limit X] [--safety Y] [--budget N] [--no-plain]
 
 ``--ratio-limit`` / ``--safety`` override the constants for this process
 only (for exploring); the defaults measure what is committed.
@@ -27,11 +27,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-import cubature  # noqa: E402
-from cubature import estimate, genz  # noqa: E402
+import cubage  # noqa: E402
+from cubage.bench import genz_families as genz
+from cubage.engine import estimate
 
 
-def study(families, dims, tols, draws, rules, seed, max_evals, plain=True, out=sys.stdout):
+def study(families, dims, tols, draws, rules, seed, budget, plain=True, out=sys.stdout):
     """Run the study; returns a list of per-run dicts."""
     rows = []
     for rule in rules:
@@ -42,14 +43,14 @@ def study(families, dims, tols, draws, rules, seed, max_evals, plain=True, out=s
                     continue
                 rng = np.random.default_rng([seed, genz.FAMILIES.index(fam), d])
                 cases = [genz.draw(fam, d, rng) for _ in range(draws)]
-                box = cubature.Box([0.0] * d, [1.0] * d)
+                box = cubage.Box([0.0] * d, [1.0] * d)
                 for tol in tols:
                     ok = conv = within = 0
                     ev_s = ev_p = 0
                     worst = 0.0
                     t0 = time.perf_counter()
                     for c in cases:
-                        r = cubature.integrate(c.f, box, rel_tol=tol, rule=rname, max_evals=max_evals)
+                        r = cubage.integrate(c.f, box, rel_tol=tol, rule=rname, budget=budget)
                         true = abs(r.value - c.exact)
                         good = true <= r.error
                         ok += good
@@ -60,7 +61,7 @@ def study(families, dims, tols, draws, rules, seed, max_evals, plain=True, out=s
                         rec = dict(rule=rule, family=fam, d=d, tol=tol, true=true, reported=r.error,
                                    evals=r.evaluations, status=r.status, exact=c.exact)
                         if plain:
-                            rp = cubature.integrate(c.f, box, rel_tol=tol, rule=rname, max_evals=max_evals,
+                            rp = cubage.integrate(c.f, box, rel_tol=tol, rule=rname, budget=budget,
                                                     estimate="plain")
                             ev_p += rp.evaluations
                             rec.update(plain_evals=rp.evaluations, plain_true=abs(rp.value - c.exact),
@@ -105,7 +106,7 @@ def main(argv=None) -> int:
     p.add_argument("--rules", nargs="+", default=["default", "genz-malik"],
                    help="'default' (the engine's choice per dimension) and/or rule names")
     p.add_argument("--seed", type=int, default=1)
-    p.add_argument("--max-evals", type=int, default=2_000_000, help="budget per run (default 2e6)")
+    p.add_argument("--budget", type=int, default=2_000_000, help="budget per run (default 2e6)")
     p.add_argument("--ratio-limit", type=float, help="override estimate.RATIO_LIMIT for this process")
     p.add_argument("--safety", type=float, help="override estimate.SAFETY for this process")
     p.add_argument("--floor", type=float, help="override estimate.FLOOR for this process")
@@ -117,9 +118,10 @@ def main(argv=None) -> int:
         estimate.SAFETY = a.safety
     if a.floor is not None:
         estimate.FLOOR = a.floor
-    print(f"FLOOR={estimate.FLOOR} RATIO_LIMIT={estimate.RATIO_LIMIT} SAFETY={estimate.SAFETY} draws={a.draws} seed={a.seed}")
+    print(f"FLOOR={estimate.FLOOR} RATIO_LIMIT={estimate.RATIO_LIMIT} SAFETY={estimate.SAFETY} "
+          f"draws={a.draws} seed={a.seed}")
     t0 = time.perf_counter()
-    rows = study(a.families, a.dims, a.tols, a.draws, a.rules, a.seed, a.max_evals, plain=not a.no_plain)
+    rows = study(a.families, a.dims, a.tols, a.draws, a.rules, a.seed, a.budget, plain=not a.no_plain)
     summary(rows)
     print(f"total {time.perf_counter() - t0:.0f}s")
     return 0

@@ -98,7 +98,7 @@ BAD_INPUTS: list[tuple[str, str, list[str]]] = [
     ("constants-shadow-variable", _p(GOOD_DOMAIN, "[integrand]\nexpr = \"x\"\nconstants = { y = 1 }\n"), ["[integrand] constants", "variable"]),
     ("constants-function-name", _p(GOOD_DOMAIN, "[integrand]\nexpr = \"x\"\nconstants = { sin = 1 }\n"), ["[integrand] constants", "function"]),
     ("constants-underscore", _p(GOOD_DOMAIN, "[integrand]\nexpr = \"x\"\nconstants = { _k = 1 }\n"), ["[integrand] constants", "'_'"]),
-    ("python-without-trust", _p(GOOD_DOMAIN, "[integrand]\npython = \"mymod:f\"\n"), ["[integrand] python", "--trust-code"]),
+    ("python-without-trust", _p(GOOD_DOMAIN, "[integrand]\npython = \"mymod:f\"\n"), ["[integrand] python", "--allow-python"]),
     ("python-bad-target", _p(GOOD_DOMAIN, "[integrand]\npython = \"mymod\"\n"), ["[integrand] python", "module:function"]),
     ("python-not-string", _p(GOOD_DOMAIN, "[integrand]\npython = 1\n"), ["[integrand] python", "integer"]),
     # --- goal ---------------------------------------------------------------
@@ -107,9 +107,10 @@ BAD_INPUTS: list[tuple[str, str, list[str]]] = [
     ("rel-tol-bool", _with(extra="[goal]\nrel_tol = true"), ["[goal] rel_tol", "boolean"]),
     ("abs-tol-negative", _with(extra="[goal]\nabs_tol = -1"), ["[goal] abs_tol", "negative"]),
     ("tolerances-both-zero", _with(extra="[goal]\nrel_tol = 0\nabs_tol = 0"), ["[goal] abs_tol", "both zero"]),
-    ("max-evals-float", _with(extra="[goal]\nmax_evals = 1e6"), ["[goal] max_evals", "whole number"]),
-    ("max-evals-zero", _with(extra="[goal]\nmax_evals = 0"), ["[goal] max_evals", "positive"]),
-    ("max-evals-bool", _with(extra="[goal]\nmax_evals = true"), ["[goal] max_evals", "boolean"]),
+    ("old-max-evals-key", _with(extra="[goal]\nmax_evals = 1000"), ["[goal] max_evals", "now called 'budget'"]),
+    ("budget-float", _with(extra="[goal]\nbudget = 1e6"), ["[goal] budget", "whole number"]),
+    ("budget-zero", _with(extra="[goal]\nbudget = 0"), ["[goal] budget", "positive"]),
+    ("budget-bool", _with(extra="[goal]\nbudget = true"), ["[goal] budget", "boolean"]),
     ("time-limit-zero", _with(extra="[goal]\ntime_limit = 0"), ["[goal] time_limit", "positive"]),
     ("time-limit-string", _with(extra="[goal]\ntime_limit = \"1h\""), ["[goal] time_limit", "string"]),
     # --- method -------------------------------------------------------------

@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from cubature import bench
+from cubage.bench import suite as bench
 
 
 def test_reliability_share_on_constructed_case():
@@ -35,7 +35,7 @@ def test_classify():
     # definitions of our table: wrong = converged but true error > 10x goal; budget = goal not reached
     assert bench.classify("converged", 5e-9, 1e-9) == "ok"
     assert bench.classify("converged", 2e-8, 1e-9) == "wrong"
-    assert bench.classify("max-evals", 2e-8, 1e-9) == "budget"
+    assert bench.classify("budget-spent", 2e-8, 1e-9) == "budget"
     assert bench.classify("failed", 0.0, 1e-9) == "failed"
 
 

@@ -18,25 +18,25 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from cubature.live import time_to_goal
+from cubage.cli.terminal_display import time_to_goal
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
 def cubage(*args, cwd=None, timeout=60, input=None):
-    """Run ``python -m cubature.cli ARGS``; returns the CompletedProcess (text)."""
+    """Run ``python -m cubage.cli.commands ARGS``; returns the CompletedProcess (text)."""
     env = dict(os.environ)
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
     env.pop("COLUMNS", None)
-    return subprocess.run([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=env,
+    return subprocess.run([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=env,
                           capture_output=True, text=True, timeout=timeout, input=input)
 
 
 class InProcess:
-    """What ``cubature.cli.main`` returned and printed (for the big corpus: no interpreter start per case)."""
+    """What ``cubage.cli.commands.main`` returned and printed (for the big corpus: no interpreter start per case)."""
 
     def __init__(self, argv, capsys):
-        from cubature.cli import main
+        from cubage.cli.commands import main
         capsys.readouterr()
         self.returncode = main([str(a) for a in argv])
         cap = capsys.readouterr()
@@ -45,7 +45,7 @@ class InProcess:
 
 @pytest.fixture
 def cli(capsys, monkeypatch):
-    """``cli(*argv, cwd=...)``: ``cubature.cli.main`` in this process (fast), with its output captured."""
+    """``cli(*argv, cwd=...)``: ``cubage.cli.commands.main`` in this process (fast), with its output captured."""
     def call(*argv, cwd=None):
         if cwd is not None:
             monkeypatch.chdir(cwd)
@@ -113,8 +113,8 @@ def test_version_is_the_package_version():
 
 def test_run_help_names_every_documented_option(cli):
     out = cli("run", "--help").stdout
-    for opt in ("--json", "--run-dir", "--rel-tol", "--abs-tol", "--max-evals", "--time-limit", "--rule",
-                "--workers", "--backend", "--cluster", "--checkpoint-every", "--trust-code", "--debug"):
+    for opt in ("--json", "--run-dir", "--rel-tol", "--abs-tol", "--budget", "--time-limit", "--rule",
+                "--workers", "--backend", "--cluster", "--checkpoint-every", "--allow-python", "--debug"):
         assert opt in out, opt
 
 
@@ -219,10 +219,10 @@ def test_rule_option_changes_the_rule(tmp_path, cli):
 
 def test_tiny_budget_exits_3_with_the_estimate(tmp_path):
     f = write(tmp_path, "peak.toml", PEAK3)
-    p = cubage("run", f, "--json", "--max-evals", "2000", cwd=tmp_path)
+    p = cubage("run", f, "--json", "--budget", "2000", cwd=tmp_path)
     assert p.returncode == 3, p.stderr
     obj = _one_json(p.stdout)
-    assert obj["status"] == "max-evals"
+    assert obj["status"] == "budget-spent"
     assert 0 < obj["evaluations"] <= 2000
     # the integrand is positive, so any estimate is a positive number (common practice)
     assert isinstance(obj["value"], float) and obj["value"] > 0 and obj["error"] > 0
@@ -232,16 +232,16 @@ def test_tiny_budget_exits_3_with_the_estimate(tmp_path):
 def test_time_limit_exits_3(tmp_path, cli):
     f = write(tmp_path, "peak.toml", PEAK3)
     # a goal below rounding level cannot be met, so the clock is what stops the run
-    p = cli("run", f, "--json", "--time-limit", "0.3", "--rel-tol", "1e-16", "--max-evals", "1e9", cwd=tmp_path)
+    p = cli("run", f, "--json", "--time-limit", "0.3", "--rel-tol", "1e-16", "--budget", "1e9", cwd=tmp_path)
     assert p.returncode == 3, p.stderr
     assert _one_json(p.stdout)["status"] == "time-limit"
 
 
 def test_summary_without_json_names_status_and_caution(tmp_path, cli):
     f = write(tmp_path, "peak.toml", PEAK3)
-    p = cli("run", f, "--max-evals", "2000", cwd=tmp_path)
+    p = cli("run", f, "--budget", "2000", cwd=tmp_path)
     assert p.returncode == 3
-    assert "max-evals: evaluation budget spent before the goal was met" in p.stdout
+    assert "budget-spent: evaluation budget spent before the goal was met" in p.stdout
     assert "not a guaranteed bound" in p.stdout
     # not a terminal: the plain log line on stderr, not the live panel
     assert p.stderr.startswith("cubage| ")
@@ -276,12 +276,12 @@ box = [[0, 1], [0, 1]]
 [integrand]
 python = "mine.py:f"
 """)
-    p = cubage("run", f, "--trust-code", cwd=tmp_path)
+    p = cubage("run", f, "--allow-python", cwd=tmp_path)
     assert p.returncode == 1
     assert "detector table missing" in p.stderr and "Traceback" not in p.stderr
 
 
-def test_python_integrand_runs_with_trust_code(tmp_path, cli):
+def test_python_integrand_runs_with_allow_python(tmp_path, cli):
     write(tmp_path, "mine.py", "import numpy as np\ndef f(X):\n    return X[:, 0] ** 2\n")
     f = write(tmp_path, "py.toml", """
 [domain]
@@ -290,7 +290,7 @@ box = [[0, 1], [0, 3]]
 [integrand]
 python = "mine.py:f"
 """)
-    p = cli("run", f, "--trust-code", "--json", cwd=tmp_path)
+    p = cli("run", f, "--allow-python", "--json", cwd=tmp_path)
     assert p.returncode == 0, p.stderr
     # ∫_0^1 x^2 dx * 3 = 1 (elementary antiderivative, common practice)
     assert _one_json(p.stdout)["value"] == pytest.approx(1.0, rel=1e-12)
@@ -352,7 +352,7 @@ BAD_PROBLEMS = [
     ("no-integrand", "[domain]\nvariables=['x']\nbox=[[0,1]]\n", "[integrand]"),
     ("bad-bounds", "[domain]\nvariables=['x']\nbox=[[1,0]]\n[integrand]\nexpr='x'\n", "[domain] box"),
     ("unknown-name", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\nexpr='sin(q)'\n", "[integrand] expr"),
-    ("python-untrusted", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\npython='m.py:f'\n", "--trust-code"),
+    ("python-untrusted", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\npython='m.py:f'\n", "--allow-python"),
     ("zero-tolerances", "[domain]\nvariables=['x']\nbox=[[0,1]]\n[integrand]\nexpr='x'\n[goal]\nrel_tol=0\n",
      "[goal]"),
     ("gk-too-many-dims", "[domain]\nvariables=['a','b','c','d','g','h']\nbox=[[0,1],[0,1],[0,1],[0,1],[0,1],[0,1]]\n"
@@ -372,8 +372,8 @@ BAD_OPTIONS = [
     (["--rel-tol", "-1"], "--rel-tol"),
     (["--rel-tol", "abc"], "--rel-tol"),
     (["--abs-tol", "nan"], "--abs-tol"),
-    (["--max-evals", "0"], "--max-evals"),
-    (["--max-evals", "1.5"], "--max-evals"),
+    (["--budget", "0"], "--budget"),
+    (["--budget", "1.5"], "--budget"),
     (["--time-limit", "0"], "--time-limit"),
     (["--checkpoint-every", "-2"], "--checkpoint-every"),
     (["--workers", "0"], "--workers"),
@@ -393,7 +393,7 @@ def test_bad_options(tmp_path, capsys, opts, needle):
 
 def test_bad_option_in_a_real_process(tmp_path):
     f = write(tmp_path, "xy.toml", XY)
-    _assert_bad(cubage("run", f, "--max-evals", "lots", cwd=tmp_path), "--max-evals")
+    _assert_bad(cubage("run", f, "--budget", "lots", cwd=tmp_path), "--budget")
 
 
 def test_missing_problem_names_it_and_suggests(tmp_path, cli):
@@ -455,7 +455,7 @@ def test_list_shows_name_dimension_kind_title(tmp_path, cli):
     rows = {ln.split()[0]: ln.split() for ln in p.stdout.splitlines()[1:]}
     assert rows["xy"][1:3] == ["2", "box"] and "unit" in " ".join(rows["xy"])
     assert rows["tri"][1:3] == ["3", "simplex"]
-    assert "--trust-code" in " ".join(rows["py"])
+    assert "--allow-python" in " ".join(rows["py"])
 
 
 def test_list_default_includes_bundled_problems(tmp_path, cli):
@@ -474,7 +474,7 @@ def test_live_panel_on_a_terminal(tmp_path):
     f = write(tmp_path, "xy.toml", XY)
     master, slave = pty.openpty()
     env = dict(os.environ, PYTHONPATH=str(ROOT), TERM="xterm-256color", COLUMNS="100", LINES="40")
-    proc = subprocess.Popen([sys.executable, "-m", "cubature.cli", "run", str(f)], cwd=tmp_path, env=env,
+    proc = subprocess.Popen([sys.executable, "-m", "cubage", "run", str(f)], cwd=tmp_path, env=env,
                             stdin=slave, stdout=slave, stderr=slave)
     os.close(slave)
     out = b""

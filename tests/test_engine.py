@@ -11,8 +11,8 @@ import pytest
 from scipy import integrate as si
 from scipy.special import erf
 
-import cubature
-from cubature import Box, CheckpointError, IntegrandError, Run, Simplex, integrate
+import cubage
+from cubage import Box, CheckpointError, IntegrandError, Run, Simplex, integrate
 
 
 def gauss_box(X):
@@ -137,8 +137,8 @@ def test_local_queue_and_split_all_strategies():
 
 def test_budget_never_exceeded_and_status():
     res = integrate(lambda X: 1 / np.sqrt((X * X).sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-14,
-                    max_evals=5000)
-    assert res.status == "max-evals"
+                    budget=5000)
+    assert res.status == "budget-spent"
     assert res.evaluations <= 5000
     assert math.isfinite(res.value) and res.error > 0
 
@@ -185,7 +185,7 @@ def test_wrong_shape_is_an_integrand_error():
 
 def test_stop_from_another_thread_keeps_estimate():
     run = Run(lambda X: np.cos(40 * X.sum(axis=1)) + 1 / np.sqrt((X * X).sum(axis=1) + 1e-9),
-              Box([0] * 4, [1] * 4), rel_tol=1e-14, max_evals=10**9)
+              Box([0] * 4, [1] * 4), rel_tol=1e-14, budget=10**9)
     t = threading.Timer(0.5, run.stop)
     t.start()
     res = run.run()
@@ -195,7 +195,7 @@ def test_stop_from_another_thread_keeps_estimate():
 
 
 def test_pause_and_resume():
-    run = Run(lambda X: np.cos(30 * X.sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-15, max_evals=10**10)
+    run = Run(lambda X: np.cos(30 * X.sum(axis=1)), Box([0] * 3, [1] * 3), rel_tol=1e-15, budget=10**10)
     th = threading.Thread(target=run.run)
     th.start()
     try:
@@ -318,9 +318,9 @@ def test_bytes_per_region_at_d6():
 
 
 def test_degenerate_domains_rejected():
-    with pytest.raises(cubature.DomainError, match="degenerate"):
+    with pytest.raises(cubage.DomainError, match="degenerate"):
         Simplex([[0, 0], [1, 1], [2, 2]])
-    with pytest.raises(cubature.DomainError, match="not below"):
+    with pytest.raises(cubage.DomainError, match="not below"):
         Box([0, 1], [1, 1])
 
 
@@ -337,5 +337,5 @@ def test_scale_of_infinite_axes():
     res = integrate(lambda X: np.exp(-X[:, 0] / 50 - X[:, 1] ** 2), Box([0, -np.inf], [np.inf, 3], scale=[50, 1]),
                     rel_tol=1e-9)
     assert res.value == pytest.approx(50 * math.sqrt(math.pi) / 2 * (1 + erf(3.0)), rel=1e-8)
-    with pytest.raises(cubature.DomainError, match="positive"):
+    with pytest.raises(cubage.DomainError, match="positive"):
         Box([0], [np.inf], scale=[0])

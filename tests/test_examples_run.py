@@ -11,10 +11,10 @@ import time
 import numpy as np
 import pytest
 
-from cubature.problem import bundled_problem_dir, list_problems, load_problem
+from cubage.problem.problem_file import bundled_problem_dir, list_problems, load_problem
 
-engine = pytest.importorskip("cubature.engine")
-import cubature  # noqa: E402
+engine = pytest.importorskip("cubage.engine.run")
+import cubage  # noqa: E402
 
 FILES = list_problems([bundled_problem_dir()])
 
@@ -24,12 +24,12 @@ def test_example_lands_near_reference(path):
     p = load_problem(path)
     assert p.reference is not None
     kwargs = dict(rel_tol=p.goal.rel_tol, abs_tol=p.goal.abs_tol, rule=p.method.rule)
-    if p.goal.max_evals is not None:
-        kwargs["max_evals"] = p.goal.max_evals
+    if p.goal.budget is not None:
+        kwargs["budget"] = p.goal.budget
     if p.method.degree is not None:
         kwargs["degree"] = p.method.degree
     t0 = time.perf_counter()
-    res = cubature.integrate(p.integrand, p.domain, **kwargs)
+    res = cubage.integrate(p.integrand, p.domain, **kwargs)
     elapsed = time.perf_counter() - t0
     ref = np.atleast_1d(np.asarray(p.reference.value, dtype=float))
     got = np.atleast_1d(np.asarray(res.value, dtype=float))

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import scipy.special as sc
 
-from cubature.expr import CompiledExpression, ExpressionError, compile_expression
+from cubage.problem.expr import CompiledExpression, ExpressionError, compile_expression
 
 RNG = np.random.default_rng(12345)
 X3 = RNG.uniform(0.1, 2.0, size=(257, 3))

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy import integrate
 
-from cubature import genz
+from cubage.bench import genz_families as genz
 
 
 def _tensor_gauss(f, d, breaks, n=24):
@@ -47,7 +47,7 @@ def test_closed_form_matches_nquad_in_2d(family):
         case = genz.draw(family, 2, rng)
         u = case.params["u"]
 
-        def g(y, x):
+        def g(y, x, case=case):
             return float(case.f(np.array([[x, y]]))[0])
         # source: scipy.integrate.nquad (QUADPACK), with the kink/jump points as break points
         val, err = integrate.nquad(lambda x, y: g(y, x), [[0, 1], [0, 1]],

@@ -19,10 +19,10 @@ import time
 import numpy as np
 import pytest
 
-import cubature
-from cubature.expr import compile_expression
-from cubature.parallel import PoolEvaluator, chunk_bounds, make_evaluator
-from cubature.problem import integrand_from_spec
+import cubage
+from cubage.engine.parallel import PoolEvaluator, chunk_bounds, make_evaluator
+from cubage.problem.expr import compile_expression
+from cubage.problem.problem_file import integrand_from_spec
 
 SQRT_PI = math.sqrt(math.pi)
 
@@ -35,8 +35,8 @@ GAUSS3_EXACT = (SQRT_PI * math.erf(2.0)) ** 3
 VEC_EXACT = np.array([(SQRT_PI * math.erf(1.0)) ** 2,
                       (SQRT_PI / 2 * math.erf(1.0) - math.exp(-1.0)) * SQRT_PI * math.erf(1.0)])
 
-BOX3 = cubature.Box([-2.0] * 3, [2.0] * 3)
-BOX2 = cubature.Box([-1.0] * 2, [1.0] * 2)
+BOX3 = cubage.Box([-2.0] * 3, [2.0] * 3)
+BOX2 = cubage.Box([-1.0] * 2, [1.0] * 2)
 
 
 @pytest.fixture(autouse=True)
@@ -55,7 +55,7 @@ def vec2():
 
 
 def _run(f, domain, evaluator, rel_tol=1e-7):
-    return cubature.integrate(f, domain, rel_tol=rel_tol, evaluator=evaluator)
+    return cubage.integrate(f, domain, rel_tol=rel_tol, evaluator=evaluator)
 
 
 def _check_reference(res, exact, rel):
@@ -141,7 +141,7 @@ def test_dask_local_cluster_identical_values_and_failure(serial_results):
             v = _run(vec2(), BOX2, ev)
             assert ev.steps_parallel > 0
         with make_evaluator(2, "dask", address, chunk_points=16) as ev:  # small chunks: even step 1 is sent out
-            with pytest.raises(cubature.IntegrandError) as info:
+            with pytest.raises(cubage.IntegrandError) as info:
                 _run(raising, BOX2, ev)
             msg = str(info.value)
             # still usable after a failure
@@ -167,7 +167,7 @@ def raising(X):
 
 def test_threads_raising_integrand_names_it_and_the_error():
     ev = make_evaluator(2, "threads", chunk_points=4)
-    with pytest.raises(cubature.IntegrandError) as info:
+    with pytest.raises(cubage.IntegrandError) as info:
         _run(raising, BOX2, ev)
     msg = str(info.value)
     assert "test_parallel:raising" in msg and "ValueError: negative corner reached" in msg
@@ -179,19 +179,19 @@ def test_threads_raising_integrand_names_it_and_the_error():
 FAILURES_SCRIPT = textwrap.dedent("""
     import json, sys
     import numpy as np
-    import cubature
-    from cubature.parallel import make_evaluator
-    from cubature.problem import integrand_from_spec
+    import cubage
+    from cubage.engine.parallel import make_evaluator
+    from cubage.problem.problem_file import integrand_from_spec
     out = {}
-    box = cubature.Box([-1.0, -1.0], [1.0, 1.0])
+    box = cubage.Box([-1.0, -1.0], [1.0, 1.0])
     for name in ("bad", "die"):
         spec = {"kind": "python", "target": "failing.py:" + name, "base_dir": sys.argv[1]}
         f = integrand_from_spec(spec)
         ev = make_evaluator(2, "processes", spec=spec, chunk_points=4)
         try:
-            cubature.integrate(f, box, rel_tol=1e-6, evaluator=ev)
+            cubage.integrate(f, box, rel_tol=1e-6, evaluator=ev)
             out[name] = {"error": None}
-        except cubature.IntegrandError as exc:
+        except cubage.IntegrandError as exc:
             out[name] = {"error": str(exc), "type": type(exc).__name__}
         if name == "die":
             # usable again after a worker died (a fresh pool replaces the broken one), then closed;

@@ -9,11 +9,20 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from bad_inputs import BAD_INPUTS  # noqa: E402
 
-from cubature.domains import Box, Simplex  # noqa: E402
-from cubature.expr import CompiledExpression  # noqa: E402
-from cubature.problem import (  # noqa: E402
-    Goal, Method, ProblemError, bundled_problem_dir, find_problem, integrand_from_spec,
-    list_problems, load_problem, parse_problem, problem_dirs)
+from cubage.engine.domains import Box, Simplex  # noqa: E402
+from cubage.problem.expr import CompiledExpression  # noqa: E402
+from cubage.problem.problem_file import (  # noqa: E402
+    Goal,
+    Method,
+    ProblemError,
+    bundled_problem_dir,
+    find_problem,
+    integrand_from_spec,
+    list_problems,
+    load_problem,
+    parse_problem,
+    problem_dirs,
+)
 
 GOOD = """
 title = "A test cloud"
@@ -27,7 +36,7 @@ constants = { k = 2.5 }
 [goal]
 rel_tol = 1e-6
 abs_tol = 0.0
-max_evals = 100_000_000
+budget = 100_000_000
 time_limit = 3600
 [method]
 rule = "genz-malik"
@@ -79,7 +88,7 @@ def test_good_file_parses():
     assert isinstance(p.domain, Box) and p.domain.dim == 3 and np.isinf(p.domain.upper[2])
     assert isinstance(p.integrand, CompiledExpression)
     assert p.components == 1
-    assert p.goal == Goal(rel_tol=1e-6, abs_tol=0.0, max_evals=100_000_000, time_limit=3600.0)
+    assert p.goal == Goal(rel_tol=1e-6, abs_tol=0.0, budget=100_000_000, time_limit=3600.0)
     assert p.method == Method(rule="genz-malik", degree=None, workers="auto", backend="processes")
     assert p.reference.value == 0.5
     assert p.integrand_spec == {"kind": "expr", "source": "exp(-k*(x**2 + y**2)) / (1 + z)**3",
@@ -134,7 +143,8 @@ def test_fingerprint_is_stable_across_processes(tmp_path):
     import subprocess
     f = tmp_path / "p.toml"
     f.write_text(GOOD)
-    code = "import sys; from cubature.problem import load_problem; print(load_problem(sys.argv[1]).fingerprint())"
+    code = ("import sys; from cubage.problem.problem_file import load_problem; "
+            "print(load_problem(sys.argv[1]).fingerprint())")
     out = subprocess.run([sys.executable, "-c", code, str(f)], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == load_problem(f).fingerprint()
 
@@ -221,9 +231,9 @@ def test_python_integrand_needs_trust(tmp_path):
     with pytest.raises(ProblemError) as info:
         load_problem(prob)
     msg = str(info.value)
-    assert "[integrand] python" in msg and "--trust-code" in msg and str(prob) in msg
+    assert "[integrand] python" in msg and "--allow-python" in msg and str(prob) in msg
     assert "\n" not in msg
-    p = load_problem(prob, trust_code=True)
+    p = load_problem(prob, allow_python=True)
     X = np.array([[0.5, 1.5]])
     # reference: exp(-0.5) * 1.5 computed with numpy
     assert p.integrand(X)[0] == pytest.approx(np.exp(-0.5) * 1.5, rel=1e-15)
@@ -232,17 +242,17 @@ def test_python_integrand_needs_trust(tmp_path):
     assert again(X)[0] == p.integrand(X)[0]
     fp = p.fingerprint()
     (tmp_path / "mine.py").write_text(PY_INTEGRAND + "\n# edited\n")
-    assert load_problem(prob, trust_code=True).fingerprint() != fp
+    assert load_problem(prob, allow_python=True).fingerprint() != fp
 
 
 def test_python_integrand_vector_and_module(tmp_path, monkeypatch):
     (tmp_path / "mine.py").write_text(PY_INTEGRAND)
     prob = tmp_path / "p.toml"
     prob.write_text(_py_problem("mine.py:vec"))
-    assert load_problem(prob, trust_code=True).components == 2
+    assert load_problem(prob, allow_python=True).components == 2
     (tmp_path / "pkg_for_cubage_test.py").write_text(PY_INTEGRAND)
     prob.write_text(_py_problem("pkg_for_cubage_test:f"))
-    p = load_problem(prob, trust_code=True)
+    p = load_problem(prob, allow_python=True)
     assert p.components == 1
 
 
@@ -260,7 +270,7 @@ def test_python_integrand_failures(tmp_path, target, words):
     prob = tmp_path / "p.toml"
     prob.write_text(_py_problem(target))
     with pytest.raises(ProblemError) as info:
-        load_problem(prob, trust_code=True)
+        load_problem(prob, allow_python=True)
     msg = str(info.value)
     assert "\n" not in msg and "[integrand] python" in msg and words in msg
     assert msg.startswith(str(prob))
@@ -291,8 +301,9 @@ def test_mutated_problem_files_never_crash():
 
 def test_domain_scale_key(tmp_path):
     # a scale per variable reaches the Box; bad scales are one-line errors naming the key
-    from cubature.problem import ProblemError, parse_problem
-    good = '[domain]\nvariables = ["x", "y"]\nbox = [[0, inf], [-inf, inf]]\nscale = [20, 3]\n[integrand]\nexpr = "exp(-x/20 - y*y/9)"\n'
+    from cubage.problem.problem_file import ProblemError, parse_problem
+    good = ('[domain]\nvariables = ["x", "y"]\nbox = [[0, inf], [-inf, inf]]\nscale = [20, 3]\n'
+            '[integrand]\nexpr = "exp(-x/20 - y*y/9)"\n')
     p = parse_problem(good, path=tmp_path / "s.toml")
     assert list(p.domain.scale) == [20.0, 3.0]
     for bad, what in (("scale = [20]", "2 positive numbers"), ("scale = [20, -1]", "positive"),

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from scipy import integrate, special
 
-from cubature.problem import bundled_problem_dir, list_problems, load_problem
+from cubage.problem.problem_file import bundled_problem_dir, list_problems, load_problem
 
 mpmath.mp.dps = 30
 
@@ -38,7 +38,7 @@ def test_gaussian_overlap():
     # closed form quoted in the file
     val = mpmath.mpf(1)
     for ci in (c["cx"], c["cy"], c["cz"]):
-        val *= mpmath.quad(lambda t: mpmath.exp(-a * t**2 - b * (t - ci) ** 2), [-3, ci, 3])
+        val *= mpmath.quad(lambda t, ci=ci: mpmath.exp(-a * t**2 - b * (t - ci) ** 2), [-3, ci, 3])
     assert p.reference.value == pytest.approx(float(val), rel=1e-15)
     # and the integrand as compiled equals the product form at random points
     X = np.random.default_rng(0).uniform(-3, 3, (20, 3))
@@ -134,7 +134,7 @@ def test_oscillator_phase_6d():
     # the real part of the product is the mean of cos(sum a_i u_i)
     prod = mpmath.mpc(1)
     for ai in a:
-        prod *= mpmath.quad(lambda u: mpmath.exp(1j * ai * u), [0, 1])
+        prod *= mpmath.quad(lambda u, ai=ai: mpmath.exp(1j * ai * u), [0, 1])
     assert p.reference.value == pytest.approx(float(prod.real), rel=1e-14)
 
 

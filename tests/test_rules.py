@@ -23,7 +23,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from cubature.rules import (
+from cubage.engine.rules import (
     RULE_NAMES,
     bisect_simplices,
     box_rule,
@@ -34,7 +34,7 @@ from cubature.rules import (
     simplex_rule,
     simplex_volumes,
 )
-from cubature.rules.gauss_kronrod import kronrod15
+from cubage.engine.rules.gauss_kronrod import kronrod15
 
 LOWER = np.array([0.3, -0.5, 1.0, -2.0, 0.1, -0.2])
 UPPER = np.array([1.7, 0.25, 1.5, -1.2, 0.9, 0.6])

@@ -18,9 +18,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from cubature.engine import Snapshot
-from cubature.observe import record_to_snapshot
-from cubature.rundir import ProgressLog, RunDir, RunDirError, pid_alive
+from cubage.engine.run import Snapshot
+from cubage.session.progress_records import record_to_snapshot
+from cubage.session.run_directory import ProgressLog, RunDir, RunDirError, pid_alive
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -28,14 +28,14 @@ ROOT = Path(__file__).resolve().parents[1]
 def cubage(*args, cwd=None, timeout=60):
     env = dict(os.environ)
     env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    return subprocess.run([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=env,
+    return subprocess.run([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=env,
                           capture_output=True, text=True, timeout=timeout)
 
 
 @pytest.fixture
 def cli(capsys, monkeypatch):
-    """``cubature.cli.main`` in this process, output captured: (code, stdout, stderr)."""
-    from cubature.cli import main
+    """``cubage.cli.commands.main`` in this process, output captured: (code, stdout, stderr)."""
+    from cubage.cli.commands import main
 
     def call(*argv, cwd=None):
         if cwd is not None:
@@ -121,7 +121,7 @@ def test_run_on_a_dir_with_a_checkpoint_points_to_resume(tmp_path, cli):
     a = tmp_path / "a.toml"
     a.write_text(GAUSS2)
     d = tmp_path / "rd"
-    assert cli("run", a, "--run-dir", d, "--max-evals", "2000")[0] == 3
+    assert cli("run", a, "--run-dir", d, "--budget", "2000")[0] == 3
     code, out, err = cli("run", a, "--run-dir", d)
     assert code == 2 and len(err.splitlines()) == 1
     assert f"cubage resume {d}" in err
@@ -194,7 +194,7 @@ def test_truncated_checkpoint_is_a_clear_error_on_resume(tmp_path, cli):
     a = tmp_path / "a.toml"
     a.write_text(GAUSS2)
     d = tmp_path / "rd"
-    assert cli("run", a, "--run-dir", d, "--max-evals", "3000")[0] == 3
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
     ck = d / "checkpoint.npz"
     data = ck.read_bytes()
     ck.write_bytes(data[: len(data) // 2])
@@ -209,8 +209,8 @@ def test_checkpoint_of_another_problem_is_refused(tmp_path, cli):
     a.write_text(GAUSS2)
     b.write_text(OTHER)
     da, db = tmp_path / "ra", tmp_path / "rb"
-    assert cli("run", a, "--run-dir", da, "--max-evals", "3000")[0] == 3
-    assert cli("run", b, "--run-dir", db, "--max-evals", "700")[0] == 3
+    assert cli("run", a, "--run-dir", da, "--budget", "3000")[0] == 3
+    assert cli("run", b, "--run-dir", db, "--budget", "700")[0] == 3
     (da / "checkpoint.npz").write_bytes((db / "checkpoint.npz").read_bytes())
     code, _, err = cli("resume", da)
     assert code == 2 and len(err.splitlines()) == 1 and "another problem" in err
@@ -229,12 +229,12 @@ def test_resume_with_a_budget_then_a_tighter_goal(tmp_path, cli):
     a = tmp_path / "a.toml"
     a.write_text(GAUSS2)
     d = tmp_path / "rd"
-    code, out, _ = cli("run", a, "--run-dir", d, "--max-evals", "1000", "--json")
-    assert code == 3 and json.loads(out)["status"] == "max-evals"
+    code, out, _ = cli("run", a, "--run-dir", d, "--budget", "1000", "--json")
+    assert code == 3 and json.loads(out)["status"] == "budget-spent"
     # same budget: still short
     code, out, _ = cli("resume", d, "--json")
-    assert code == 3 and json.loads(out)["status"] == "max-evals"
-    code, out, _ = cli("resume", d, "--json", "--max-evals", "10_000_000")
+    assert code == 3 and json.loads(out)["status"] == "budget-spent"
+    code, out, _ = cli("resume", d, "--json", "--budget", "10_000_000")
     res = json.loads(out)
     assert code == 0 and res["status"] == "converged"
     assert res["value"] == pytest.approx(_gauss_exact(), rel=1e-6)
@@ -258,7 +258,7 @@ def test_progress_log_skips_rows_already_written(tmp_path):
     class Snap:   # the fields snapshot_to_record reads
         step, evaluations, regions, elapsed, rate, status, message = 1, 0, 1, 0.0, 0.0, "running", ""
         value = error = goal = np.ones(1)
-        rel_tol, abs_tol, max_evals = 1e-6, 0.0, 100
+        rel_tol, abs_tol, budget = 1e-6, 0.0, 100
         top = ()
         depth_error = np.zeros(1)
         map_centres = map_sizes = np.zeros((0, 1))

@@ -32,7 +32,7 @@ box = [[-2, 2], [-2, 2], [-2, 2], [-2, 2]]
 expr = "exp(-(x*x + y*y + z*z + w*w)) / (1 + 100*(x - 0.3)**2 + 50*(y + 0.2)**2)"
 [goal]
 rel_tol = 3e-9
-max_evals = 400_000_000
+budget = 400_000_000
 """
 
 # far more work than any test waits for
@@ -47,12 +47,12 @@ def _env():
 
 
 def start(*args, cwd):
-    return subprocess.Popen([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=_env(),
+    return subprocess.Popen([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=_env(),
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
 
 
 def cubage(*args, cwd, timeout=120):
-    return subprocess.run([sys.executable, "-m", "cubature.cli", *map(str, args)], cwd=cwd, env=_env(),
+    return subprocess.run([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=_env(),
                           capture_output=True, text=True, timeout=timeout)
 
 
@@ -162,8 +162,9 @@ def test_kill_9_after_a_checkpoint_then_resume_gives_the_same_bits(work):
 
 def test_value_agrees_with_scipy(work):
     # an independent check of the figure the bit-for-bit tests compare against
-    from scipy.integrate import nquad
     import math
+
+    from scipy.integrate import nquad
     ref = reference_result(work)
 
     def f(w, z, y, x):
@@ -192,8 +193,8 @@ def test_stop_request_file_stops_with_exit_3(tmp_path):
 
 
 def _in_process_with_signal(argv, signum, after, capsys):
-    """Run cubature.cli.main(argv) here and send ourselves ``signum`` after ``after`` seconds."""
-    from cubature.cli import main
+    """Run cubage.cli.commands.main(argv) here and send ourselves ``signum`` after ``after`` seconds."""
+    from cubage.cli.commands import main
     timer = threading.Timer(after, os.kill, (os.getpid(), signum))
     capsys.readouterr()
     timer.start()

@@ -24,17 +24,16 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from cubature import Box, Run
-from cubature.observe import snapshot_to_record
-
-from tui.app import CubageApp, collect_files, main
-from tui.confirm import AskModal
-from tui.follow import RunDirFollower
-from tui.forecast import density_grid, forecast_evaluations
-from tui.meta import meta_from_file
-from tui.picker import PickerScreen, parse_overrides
-from tui.run_view import RunView
-from tui.widgets.readout import Readout
+from cubage import Box, Run
+from cubage.session.progress_records import snapshot_to_record
+from cubage.tui.app import CubageApp, collect_files, main
+from cubage.tui.confirm import AskModal
+from cubage.tui.follow import RunDirFollower
+from cubage.tui.forecast import density_grid, forecast_evaluations
+from cubage.tui.meta import meta_from_file
+from cubage.tui.picker import PickerScreen, parse_overrides
+from cubage.tui.run_view import RunView
+from cubage.tui.widgets.readout import Readout
 
 E2 = (math.e - 1.0) ** 2        # closed form of the exp(x+y) integral, see the module docstring
 THIRD = 1.0 / 3.0               # closed form of the |u-v| integral, see the module docstring
@@ -60,7 +59,7 @@ box = [[0, 1], [0, 1]]
 expr = "abs(u - v)"
 [goal]
 rel_tol = 1e-15
-max_evals = 2_000_000_000
+budget = 2_000_000_000
 [reference]
 value = 0.3333333333333333
 source = "elementary integral"
@@ -317,7 +316,7 @@ def _write_records(run_obj: Run, path: Path, n_lines: int) -> int:
 
 def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
     f = lambda X: np.abs(X[:, 0] - X[:, 1])  # noqa: E731
-    r = Run(f, Box([0, 0], [1, 1]), rel_tol=1e-15, max_evals=10**9, snapshot_interval=0.0, batch=1)
+    r = Run(f, Box([0, 0], [1, 1]), rel_tol=1e-15, budget=10**9, snapshot_interval=0.0, batch=1)
     prog = tmp_path / "progress.jsonl"
     rows = _write_records(r, prog, 6)
     fol = RunDirFollower(tmp_path)
@@ -345,7 +344,7 @@ def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
 
 def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
     rd = tmp_path / "rd"
-    proc = subprocess.Popen([sys.executable, "-m", "cubature.cli", "run", str(probs / "b_kink.toml"),
+    proc = subprocess.Popen([sys.executable, "-m", "cubage", "run", str(probs / "b_kink.toml"),
                              "--run-dir", str(rd)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
                             stdin=subprocess.DEVNULL)
     try:
@@ -437,7 +436,7 @@ def test_integrand_failure_is_reported(tmp_path):
 
 
 def test_workers_override_goes_through_the_parallel_evaluator(probs):
-    pytest.importorskip("cubature.parallel")
+    pytest.importorskip("cubage.engine.parallel")
 
     async def go():
         app = CubageApp(collect_files([str(probs)]))

@@ -11,7 +11,7 @@ from pathlib import Path
 from textual.app import App
 from textual.binding import Binding
 
-from cubature.problem import ProblemError, list_problems, problem_dirs
+from cubage.problem.problem_file import ProblemError, list_problems, problem_dirs
 
 from .follow import PROBLEM, RunDirFollower
 from .meta import ProblemMeta, meta_from_file
@@ -28,7 +28,7 @@ class CubageApp(App):
         Problem files for the picker.
     follow : (RunDirFollower, ProblemMeta), optional
         Follow this run directory instead of offering the picker.
-    trust_code : bool
+    allow_python : bool
         Import Python integrands without asking.
     """
 
@@ -38,18 +38,18 @@ class CubageApp(App):
     BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False)]
 
     def __init__(self, files: list[Path] | None = None, follow: tuple[RunDirFollower, ProblemMeta] | None = None,
-                 trust_code: bool = False):
+                 allow_python: bool = False):
         super().__init__()
         self.files = list(files or [])
         self.follow = follow
-        self.trust_code = trust_code
+        self.allow_python = allow_python
 
     def on_mount(self) -> None:
         if self.follow is not None:
             follower, meta = self.follow
             self.push_screen(RunView(meta, follower=follower, can_go_back=False))
         else:
-            self.push_screen(PickerScreen(self.files, trust_code=self.trust_code))
+            self.push_screen(PickerScreen(self.files, allow_python=self.allow_python))
 
     async def action_quit(self) -> None:
         screen = self.screen
@@ -87,7 +87,7 @@ def collect_files(paths: list[str] | None) -> list[Path]:
     return uniq
 
 
-def main(paths: list[str] | None = None, watch: str | None = None, trust_code: bool = False) -> int:
+def main(paths: list[str] | None = None, watch: str | None = None, allow_python: bool = False) -> int:
     """Run the text UI; returns the exit code.
 
     Parameters
@@ -97,7 +97,7 @@ def main(paths: list[str] | None = None, watch: str | None = None, trust_code: b
         present, else the bundled examples).
     watch : str, optional
         A run directory of a headless run to follow instead.
-    trust_code : bool
+    allow_python : bool
         Import Python integrands without asking first.
 
     Returns
@@ -131,22 +131,22 @@ def main(paths: list[str] | None = None, watch: str | None = None, trust_code: b
             where = ", ".join(paths) if paths else ", ".join(str(p) for p in problem_dirs())
             print(f"cubage tui: no problem files (*.toml) in {where}", file=sys.stderr)
             return 2
-    app = CubageApp(files, follow=follow, trust_code=trust_code)
+    app = CubageApp(files, follow=follow, allow_python=allow_python)
     rc = app.run()
     return int(rc) if isinstance(rc, int) else int(app.return_code or 0)
 
 
 def _cli(argv: list[str] | None = None) -> int:
-    """``python -m tui.app [PATH ...] [--watch DIR] [--trust-code]`` (the same as ``cubage tui``/``watch``)."""
+    """``python -m cubage.tui.app [PATH ...] [--watch DIR] [--allow-python]`` (the same as ``cubage tui``/``watch``)."""
     import argparse
-    ap = argparse.ArgumentParser(prog="python -m tui.app", description="cubage's text UI: pick a problem and "
+    ap = argparse.ArgumentParser(prog="python -m cubage.tui.app", description="cubage's text UI: pick a problem and "
                                  "watch it integrate, or follow a run directory of a headless run.")
     ap.add_argument("paths", nargs="*", metavar="PATH", help="problem files or folders (default: ./problems "
                     "when present, else the bundled examples)")
     ap.add_argument("--watch", metavar="DIR", help="follow this run directory instead")
-    ap.add_argument("--trust-code", action="store_true", help="import Python integrands without asking")
+    ap.add_argument("--allow-python", action="store_true", help="import Python integrands without asking")
     args = ap.parse_args(argv)
-    return main(args.paths or None, watch=args.watch, trust_code=args.trust_code)
+    return main(args.paths or None, watch=args.watch, allow_python=args.allow_python)
 
 
 if __name__ == "__main__":  # pragma: no cover

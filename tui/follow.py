@@ -2,7 +2,7 @@
 
 The directory layout is the project's shared contract: ``problem.toml``,
 ``run.json``, ``checkpoint.npz``, ``progress.jsonl`` (one snapshot record
-per line, see :mod:`cubature.observe`), ``result.json`` at the end, ``lock``
+per line, see :mod:`cubage.session.progress_records`), ``result.json`` at the end, ``lock``
 and ``stop-request`` (created here to ask the runner to stop).
 """
 
@@ -16,9 +16,9 @@ from pathlib import Path
 
 import numpy as np
 
-from cubature.engine import Snapshot
-from cubature.observe import record_to_snapshot
-from cubature.rundir import pid_alive
+from cubage.engine.run import Snapshot
+from cubage.session.progress_records import record_to_snapshot
+from cubage.session.run_directory import pid_alive
 
 PROGRESS = "progress.jsonl"
 RESULT = "result.json"

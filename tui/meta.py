@@ -9,7 +9,7 @@ from pathlib import Path
 
 import numpy as np
 
-from cubature.problem import Problem, ProblemError, load_problem
+from cubage.problem.problem_file import Problem, ProblemError, load_problem
 
 #: How an axis of the engine's frame relates to the user's axis.
 AXIS_FINITE, AXIS_UPPER_INF, AXIS_LOWER_INF, AXIS_BOTH_INF = "finite", "upper-inf", "lower-inf", "both-inf"
@@ -65,7 +65,7 @@ class ProblemMeta:
                                                                v=self.variables[i], L="" if L == 1 else f"{L:g}*")
 
     @classmethod
-    def from_problem(cls, p: Problem) -> "ProblemMeta":
+    def from_problem(cls, p: Problem) -> ProblemMeta:
         """From a parsed problem."""
         ref = None
         src = ""
@@ -119,13 +119,13 @@ def _num(x) -> float:
 def meta_from_file(path) -> ProblemMeta:
     """Metadata of a problem file without importing user code.
 
-    Tries :func:`load_problem` (trust_code=False); a problem whose integrand
+    Tries :func:`load_problem` (allow_python=False); a problem whose integrand
     is Python code is read as plain TOML for title, variables, domain and
     reference.  Raises :class:`ProblemError` when neither works.
     """
     path = Path(path)
     try:
-        return ProblemMeta.from_problem(load_problem(path, trust_code=False))
+        return ProblemMeta.from_problem(load_problem(path, allow_python=False))
     except ProblemError:
         if uses_python(path) is None:
             raise

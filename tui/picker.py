@@ -16,7 +16,7 @@ from textual.screen import Screen
 from textual.widgets import Footer, Header, Input, Label, OptionList, Static
 from textual.widgets.option_list import Option
 
-from cubature.problem import Problem, ProblemError, load_problem
+from cubage.problem.problem_file import Problem, ProblemError, load_problem
 
 from .confirm import AskModal
 from .meta import ProblemMeta, uses_python
@@ -84,7 +84,7 @@ class PickerScreen(Screen):
     ----------
     files : list of Path
         Problem files to offer.
-    trust_code : bool
+    allow_python : bool
         Import Python integrands without asking.
     """
 
@@ -96,10 +96,10 @@ class PickerScreen(Screen):
         Binding("ctrl+q", "app.quit", "Quit"),
     ]
 
-    def __init__(self, files: list[Path], trust_code: bool = False):
+    def __init__(self, files: list[Path], allow_python: bool = False):
         super().__init__()
         self.files = [Path(f) for f in files]
-        self.trust_code = trust_code
+        self.allow_python = allow_python
         self._cache: dict[Path, tuple[Problem | None, str | None]] = {}
 
     def compose(self) -> ComposeResult:
@@ -143,7 +143,7 @@ class PickerScreen(Screen):
     def _load(self, path: Path) -> tuple[Problem | None, str | None]:
         if path not in self._cache:
             try:
-                self._cache[path] = (load_problem(path, trust_code=False), None)
+                self._cache[path] = (load_problem(path, allow_python=False), None)
             except ProblemError as exc:
                 self._cache[path] = (None, str(exc))
         return self._cache[path]
@@ -195,7 +195,7 @@ class PickerScreen(Screen):
                 out.add_row(Text("error", style="bold #ff5f6d"), Text(str(exc), style="#ff5f6d"))
             out.add_row("integrand", Text(f"python {target}", style="#e8c547"))
             out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
-                                 "first" + (" (trusted for this session)." if self.trust_code else "."),
+                                 "first" + (" (trusted for this session)." if self.allow_python else "."),
                                  style="italic"))
             self._placeholders("problem's", "problem's", "problem's")
         else:
@@ -236,7 +236,7 @@ class PickerScreen(Screen):
             self.notify(str(exc), title="Cannot open", severity="error")
             return
         target = uses_python(path)
-        if target is not None and not self.trust_code:
+        if target is not None and not self.allow_python:
             def answer(yes: bool | None) -> None:
                 if yes:
                     self._open(path, overrides, trust=True)
@@ -249,7 +249,7 @@ class PickerScreen(Screen):
     def _open(self, path: Path, overrides: dict, trust: bool) -> None:
         from .run_view import RunView
         try:
-            prob = load_problem(path, trust_code=trust)
+            prob = load_problem(path, allow_python=trust)
         except ProblemError as exc:
             self._cache[path] = (None, str(exc))
             idx = self.query_one("#problem-list", OptionList).highlighted

@@ -8,7 +8,7 @@ import os
 import time
 from pathlib import Path
 
-from cubature.problem import bundled_problem_dir
+from cubage.problem.problem_file import bundled_problem_dir
 
 from .meta import ProblemMeta
 

@@ -18,8 +18,8 @@ from textual.reactive import reactive
 from textual.screen import Screen
 from textual.widgets import Footer, Header, Static, TabbedContent, TabPane
 
-from cubature import DEFAULT_MAX_EVALS, IntegrandError, Run
-from cubature.engine import Snapshot
+from cubage import DEFAULT_BUDGET, IntegrandError, Run
+from cubage.engine.run import Snapshot
 
 from .confirm import AskModal
 from .follow import RunDirFollower
@@ -42,11 +42,11 @@ SNAPSHOT_EVERY = 0.2
 ENGINE_YIELD = 0.0
 PANELS = ("queue-tab", "map-tab", "notes-tab")
 #: Goal-changing statuses after which a tightened goal lets the run go on.
-REOPENABLE = ("converged", "max-evals", "time-limit")
+REOPENABLE = ("converged", "budget-spent", "time-limit")
 
 
 def make_evaluator(problem, workers) -> tuple[object | None, str]:
-    """An evaluator for ``workers`` through ``cubature.parallel.make_evaluator`` when it exists.
+    """An evaluator for ``workers`` through ``cubage.engine.parallel.make_evaluator`` when it exists.
 
     Returns
     -------
@@ -55,7 +55,7 @@ def make_evaluator(problem, workers) -> tuple[object | None, str]:
     """
     method = problem.method
     try:
-        from cubature import parallel  # written by another part of the project
+        from cubage.engine import parallel
         factory = parallel.make_evaluator
     except (ImportError, AttributeError):
         if workers in (None, 1, "1") and not getattr(method, "cluster", None):
@@ -222,7 +222,7 @@ class RunView(Screen):
         rel = self.overrides.get("rel_tol", g.rel_tol)
         abs_ = self.overrides.get("abs_tol", g.abs_tol)
         workers = self.overrides.get("workers", p.method.workers)
-        kw = dict(rel_tol=rel, abs_tol=abs_, max_evals=g.max_evals or DEFAULT_MAX_EVALS,
+        kw = dict(rel_tol=rel, abs_tol=abs_, budget=g.budget or DEFAULT_BUDGET,
                   time_limit=g.time_limit, rule=p.method.rule)
         if p.method.degree is not None:
             kw["degree"] = p.method.degree
@@ -382,10 +382,10 @@ class RunView(Screen):
         if snap.message and snap.message != self._last_message:
             self._last_message = snap.message
             self.say(snap.message, "error" if snap.status == "failed" else "warn")
-        if snap.max_evals and snap.evaluations >= 0.9 * snap.max_evals and "budget" not in self._warned:
+        if snap.budget and snap.evaluations >= 0.9 * snap.budget and "budget" not in self._warned:
             self._warned.add("budget")
-            self.say(f"budget nearly spent: {snap.evaluations:,} of {snap.max_evals:,} evaluations "
-                     f"({snap.evaluations / snap.max_evals:.0%})", "warn")
+            self.say(f"budget nearly spent: {snap.evaluations:,} of {snap.budget:,} evaluations "
+                     f"({snap.evaluations / snap.budget:.0%})", "warn")
         if (snap.elapsed > 1.0 and 0 < snap.rate < SLOW_RATE and snap.status not in FINAL
                 and "slow" not in self._warned):
             self._warned.add("slow")
@@ -495,7 +495,7 @@ class RunView(Screen):
                 return None
             res = self.run.result().to_json()
             s = self.run.settings
-            settings = {"rel_tol": s.rel_tol, "abs_tol": s.abs_tol, "max_evals": s.max_evals,
+            settings = {"rel_tol": s.rel_tol, "abs_tol": s.abs_tol, "budget": s.budget,
                         "time_limit": s.time_limit, "rule": s.rule,
                         "workers": self.overrides.get("workers", self.problem.method.workers)}
         if self.follower is not None:   # the run directory belongs to its runner: write beside us instead

@@ -7,7 +7,7 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual_plotext import PlotextPlot
 
-from cubature.engine import Snapshot
+from cubage.engine.run import Snapshot
 
 from ..forecast import thin_log
 from ..meta import ProblemMeta

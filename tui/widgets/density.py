@@ -7,7 +7,7 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widgets import Static
 
-from cubature.engine import Snapshot
+from cubage.engine.run import Snapshot
 
 from ..forecast import density_grid
 from ..meta import ProblemMeta

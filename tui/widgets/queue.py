@@ -11,7 +11,7 @@ from textual.containers import Vertical
 from textual.reactive import reactive
 from textual.widgets import DataTable, Sparkline, Static
 
-from cubature.engine import Snapshot
+from cubage.engine.run import Snapshot
 
 from ..forecast import fmt_count
 from ..meta import ProblemMeta

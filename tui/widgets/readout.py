@@ -9,8 +9,8 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widgets import Static
 
-from cubature import STATUSES
-from cubature.engine import Snapshot
+from cubage import STATUSES
+from cubage.engine.run import Snapshot
 
 from ..forecast import fmt_count, fmt_seconds, forecast_seconds
 from ..meta import ProblemMeta
@@ -18,12 +18,12 @@ from ..meta import ProblemMeta
 #: Colour of each status word (our own palette).
 STATUS_STYLE = {
     "ready": "bold #8fa3bf", "running": "bold #e8c547", "paused": "bold #6cb6d9", "converged": "bold #5fd38a",
-    "max-evals": "bold #f08a5d", "time-limit": "bold #f08a5d", "stopped": "bold #f08a5d",
+    "budget-spent": "bold #f08a5d", "time-limit": "bold #f08a5d", "stopped": "bold #f08a5d",
     "region-limit": "bold #f08a5d", "stalled": "bold #f08a5d", "failed": "bold #ff5f6d",
     "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d",
 }
 
-FINAL = ("converged", "max-evals", "time-limit", "stopped", "region-limit", "stalled", "failed")
+FINAL = ("converged", "budget-spent", "time-limit", "stopped", "region-limit", "stalled", "failed")
 
 ESTIMATE_NOTE = "± is an error estimate, not a bound"
 
@@ -99,9 +99,9 @@ class Readout(Static):
         t.append(f"  rel {s.rel_tol:g} abs {s.abs_tol:g}\n", "dim")
         t.append("evals ", "dim")
         t.append(fmt_count(s.evaluations))
-        if s.max_evals:
-            frac = s.evaluations / s.max_evals
-            t.append(f"/{fmt_count(s.max_evals)}", "dim")
+        if s.budget:
+            frac = s.evaluations / s.budget
+            t.append(f"/{fmt_count(s.budget)}", "dim")
             if frac >= 0.9:
                 t.append(f" {frac:.0%}", "bold #f08a5d")
         t.append("  regions ", "dim")

@@ -36,14 +36,14 @@ import math
 import re
 import sys
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
-from .domains import Box, DomainError, Simplex
-from .expr import FUNCTIONS, RESERVED_NAMES, ExpressionError, compile_expression
+from cubage.engine.domains import Box, DomainError, Simplex
+from cubage.problem.expr import FUNCTIONS, RESERVED_NAMES, ExpressionError, compile_expression
 
 __all__ = [
     "ProblemError", "Goal", "Method", "Reference", "Problem",
@@ -59,10 +59,12 @@ _TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "referen
 _TABLE_KEYS = {
     "domain": ("variables", "box", "simplex", "scale"),
     "integrand": ("expr", "constants", "python"),
-    "goal": ("rel_tol", "abs_tol", "max_evals", "time_limit"),
+    "goal": ("rel_tol", "abs_tol", "budget", "time_limit"),
     "method": ("rule", "degree", "workers", "backend", "cluster"),
     "reference": ("value", "source"),
 }
+# keys of earlier releases, refused with the name that replaced them
+_RENAMED_KEYS = {("goal", "max_evals"): "budget"}
 
 
 class ProblemError(Exception):
@@ -104,7 +106,7 @@ class ProblemError(Exception):
 class Goal:
     rel_tol: float = 1e-6
     abs_tol: float = 0.0
-    max_evals: int | None = None
+    budget: int | None = None
     time_limit: float | None = None
 
 
@@ -172,7 +174,7 @@ class Problem:
         rows.append(("integrand", text))
         g = self.goal
         goal = f"rel_tol {g.rel_tol:g}, abs_tol {g.abs_tol:g}"
-        goal += f", max_evals {g.max_evals:,}" if g.max_evals is not None else ", max_evals unlimited"
+        goal += f", budget {g.budget:,}" if g.budget is not None else ", budget unlimited"
         if g.time_limit is not None:
             goal += f", time_limit {g.time_limit:g} s"
         rows.append(("goal", goal))
@@ -223,7 +225,8 @@ def _suggest(name: str, options) -> str:
 
 
 _HEADER = re.compile(r"^\s*\[\[?\s*([^\]]*?)\s*\]\]?\s*(#.*)?$")
-_KEYLINE = re.compile(r"^\s*((?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*'))*)\s*=")
+_KEY_PART = r"(?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*')"
+_KEYLINE = re.compile(rf"^\s*({_KEY_PART}(?:\s*\.\s*{_KEY_PART})*)\s*=")
 
 
 def _split_key(k: str) -> list[str]:
@@ -292,7 +295,7 @@ _TOML_POS = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
 _TOML_EOF = re.compile(r"\s*\(at end of document\)\s*$")
 
 
-def parse_problem(text: str, *, path: Path | str | None = None, trust_code: bool = False) -> Problem:
+def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bool = False) -> Problem:
     """Parse and validate the text of a problem file.
 
     Parameters
@@ -301,7 +304,7 @@ def parse_problem(text: str, *, path: Path | str | None = None, trust_code: bool
         The TOML text.
     path : path, optional
         Where it came from (used in messages and to resolve ``file.py:func``).
-    trust_code : bool
+    allow_python : bool
         Allow ``[integrand] python = ...`` (runs the user's own code).
 
     Raises
@@ -345,6 +348,8 @@ def parse_problem(text: str, *, path: Path | str | None = None, trust_code: bool
                                 line=_locate(text, None, t))
             tables[t] = data[t]
             for k in data[t]:
+                if (t, k) in _RENAMED_KEYS:
+                    raise ctx.error(t, k, f"this key is now called '{_RENAMED_KEYS[t, k]}'; rename it")
                 if k not in _TABLE_KEYS[t]:
                     raise ctx.error(t, k, f"unknown key{_suggest(k, _TABLE_KEYS[t])} "
                                           f"(allowed: {', '.join(_TABLE_KEYS[t])})")
@@ -355,7 +360,7 @@ def parse_problem(text: str, *, path: Path | str | None = None, trust_code: bool
     variables, domain = _parse_domain(ctx, tables["domain"])
     base_dir = str(Path(pstr).resolve().parent) if pstr is not None else str(Path.cwd())
     integrand, spec, components = _parse_integrand(ctx, tables["integrand"], variables, domain,
-                                                   base_dir, trust_code)
+                                                   base_dir, allow_python)
     goal = _parse_goal(ctx, tables.get("goal", {}))
     method = _parse_method(ctx, tables.get("method", {}), domain)
     reference = _parse_reference(ctx, tables["reference"], components) if "reference" in tables else None
@@ -467,7 +472,7 @@ def _parse_domain(ctx, tbl):
     return list(vs), dom
 
 
-def _parse_integrand(ctx, tbl, variables, domain, base_dir, trust_code):
+def _parse_integrand(ctx, tbl, variables, domain, base_dir, allow_python):
     has_expr, has_py = "expr" in tbl, "python" in tbl
     if has_expr and has_py:
         raise ctx.error("integrand", "python", "give either expr or python, not both")
@@ -519,8 +524,8 @@ def _parse_integrand(ctx, tbl, variables, domain, base_dir, trust_code):
                                                f"got {_tname(target)}")
     if ":" not in target or not target.rsplit(":", 1)[1].strip() or not target.rsplit(":", 1)[0].strip():
         raise ctx.error("integrand", "python", f'{target!r} must look like "module:function" or "file.py:function"')
-    if not trust_code:
-        raise ctx.error("integrand", "python", "this problem runs your own Python code; rerun with --trust-code "
+    if not allow_python:
+        raise ctx.error("integrand", "python", "this problem runs your own Python code; rerun with --allow-python "
                                                f"if you trust {ctx.path}")
     spec = {"kind": "python", "target": target, "base_dir": base_dir}
     try:
@@ -657,13 +662,13 @@ def _parse_goal(ctx, tbl) -> Goal:
     if g.rel_tol == 0 and g.abs_tol == 0:
         key = "abs_tol" if "abs_tol" in tbl else "rel_tol"
         raise ctx.error("goal", key, "rel_tol and abs_tol are both zero; the goal could never be met")
-    if "max_evals" in tbl:
-        v = tbl["max_evals"]
+    if "budget" in tbl:
+        v = tbl["budget"]
         if not isinstance(v, int) or isinstance(v, bool):
-            raise ctx.error("goal", "max_evals", f"must be a whole number like 10_000_000, got {_tname(v)} {v!r}")
+            raise ctx.error("goal", "budget", f"must be a whole number like 10_000_000, got {_tname(v)} {v!r}")
         if v <= 0:
-            raise ctx.error("goal", "max_evals", f"must be positive, got {v}")
-        g.max_evals = v
+            raise ctx.error("goal", "budget", f"must be positive, got {v}")
+        g.budget = v
     if "time_limit" in tbl:
         g.time_limit = _num(ctx, "goal", "time_limit", tbl["time_limit"], positive=True)
     return g
@@ -754,7 +759,7 @@ def _parse_reference(ctx, tbl, components) -> Reference:
 # files
 # --------------------------------------------------------------------------
 
-def load_problem(path, *, trust_code: bool = False) -> Problem:
+def load_problem(path, *, allow_python: bool = False) -> Problem:
     """Read and parse a problem file; an unreadable file is a ProblemError too."""
     p = Path(path)
     try:
@@ -765,7 +770,7 @@ def load_problem(path, *, trust_code: bool = False) -> Problem:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise ProblemError(f"not UTF-8 text (byte {exc.start})", path=str(p)) from None
-    return parse_problem(text, path=p, trust_code=trust_code)
+    return parse_problem(text, path=p, allow_python=allow_python)
 
 
 def integrand_from_spec(spec: dict) -> Callable:
@@ -779,8 +784,8 @@ def integrand_from_spec(spec: dict) -> Callable:
 
 
 def bundled_problem_dir() -> Path:
-    """The example problems shipped with cubage (the package ``cubage_problems``)."""
-    return Path(str(importlib.resources.files("cubage_problems")))
+    """The example problems shipped with cubage (the package ``cubage.problems``)."""
+    return Path(str(importlib.resources.files("cubage.problems")))
 
 
 def problem_dirs() -> list[Path]:

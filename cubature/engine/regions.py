@@ -82,7 +82,7 @@ class RegionStore:
         return {name: np.ascontiguousarray(self[name]) for name in self.columns}
 
     @classmethod
-    def from_arrays(cls, columns: dict, arrays: dict[str, np.ndarray]) -> "RegionStore":
+    def from_arrays(cls, columns: dict, arrays: dict[str, np.ndarray]) -> RegionStore:
         """Rebuild a store from :meth:`to_arrays` output."""
         n = len(next(iter(arrays.values())))
         store = cls(columns, capacity=max(16, int(n * GROWTH)))

@@ -15,7 +15,7 @@ shared, so their arrays are made read-only.
 
 from __future__ import annotations
 
-from functools import lru_cache
+from functools import cache
 
 import numpy as np
 
@@ -77,7 +77,7 @@ def box_rule(name: str, dim: int) -> BoxRule:
     return _box_rule(name, dim)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _box_rule(name: str, dim: int) -> BoxRule:
     # cached on positional arguments so keyword and positional calls share entries
     if name == "genz-malik":
@@ -114,7 +114,7 @@ def simplex_rule(name: str, dim: int, degree: int = 7) -> SimplexRule:
     return _simplex_rule(name, dim, degree)
 
 
-@lru_cache(maxsize=None)
+@cache
 def _simplex_rule(name: str, dim: int, degree: int) -> SimplexRule:
     # cached on the full argument tuple, so that the default degree and an
     # explicit 7 share one entry

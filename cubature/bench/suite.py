@@ -1,7 +1,7 @@
 """``cubage bench``: run the engine's strategies (and optional peers) side by side.
 
 A *suite* is a list of cases with known answers: the built-in ``genz`` suite
-(Genz's six families, :mod:`cubature.genz`, in several dimensions, random
+(Genz's six families, :mod:`cubage.bench.genz_families`, in several dimensions, random
 parameters from a seed, exact values from closed forms) and/or problem files
 that carry a ``[reference]`` value (``examples`` means every bundled one).
 Every *strategy* — a combination of the engine's rule, split, queue, batch
@@ -27,14 +27,14 @@ import platform
 import re
 import sys
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
-from . import genz
+from cubage.bench import genz_families as genz
 
 # ----------------------------------------------------------------------------------
 # strategies and peers
@@ -88,7 +88,7 @@ PEERS = {
 DEFAULT_PEERS = ()
 
 QUICK = {"dims": [2, 3, 4], "draws": 3, "strategies": ["gm", "gm/plain"], "peers": ["scipy-gm"],
-         "tols": [1e-6], "max_evals": 200_000}
+         "tols": [1e-6], "budget": 200_000}
 
 WRONG_FACTOR = 10.0
 
@@ -137,7 +137,7 @@ def peer_available(name: str) -> str | None:
     return None
 
 
-def peer_applies(name: str, case: "Case") -> bool:
+def peer_applies(name: str, case: Case) -> bool:
     if case.kind != "box":
         return False
     if name == "nquad":
@@ -149,10 +149,10 @@ def peer_applies(name: str, case: "Case") -> bool:
     return True
 
 
-def run_peer(name: str, case: "Case", tol: float, max_evals: int, seed: int) -> dict:
+def run_peer(name: str, case: Case, tol: float, budget: int, seed: int) -> dict:
     """Integrate ``case`` with a SciPy peer; returns value, error, evaluations, status."""
     import scipy.integrate as si
-    cnt = Counter(case.f, max_evals)
+    cnt = Counter(case.f, budget)
     t0 = time.perf_counter()
     status = "converged"
     try:
@@ -180,8 +180,8 @@ def run_peer(name: str, case: "Case", tol: float, max_evals: int, seed: int) -> 
         else:
             raise BenchInputError(f"--peers: unknown peer {name!r}")
     except _Budget:
-        value, error, status = np.array([np.nan]), np.array([np.inf]), "max-evals"
-    return {"value": value, "error": error, "evaluations": min(cnt.count, max_evals),
+        value, error, status = np.array([np.nan]), np.array([np.inf]), "budget-spent"
+    return {"value": value, "error": error, "evaluations": min(cnt.count, budget),
             "seconds": time.perf_counter() - t0, "status": status}
 
 
@@ -210,7 +210,7 @@ class Case:
 
 def genz_cases(families, dims, draws, seed, difficulty=1.0) -> list[Case]:
     """The built-in suite: ``draws`` random cases per family and dimension."""
-    from . import Box
+    from cubage import Box
     out = []
     for fam in families:
         for d in dims:
@@ -224,8 +224,8 @@ def genz_cases(families, dims, draws, seed, difficulty=1.0) -> list[Case]:
 
 def problem_cases(paths, notes: list[str]) -> list[Case]:
     """Cases from problem files with a ``[reference]``; the others are skipped with a note."""
-    from . import Box
-    from .problem import ProblemError, load_problem
+    from cubage import Box
+    from cubage.problem.problem_file import ProblemError, load_problem
     out = []
     for p in paths:
         try:
@@ -254,7 +254,7 @@ def resolve_suites(names, families, dims, draws, seed, notes) -> list[Case]:
         if name == "genz":
             cases += genz_cases(families, dims, draws, seed)
         elif name == "examples":
-            from .problem import bundled_problem_dir, list_problems
+            from cubage.problem.problem_file import bundled_problem_dir, list_problems
             files = list_problems([bundled_problem_dir()])
             if not files:
                 notes.append("no bundled example problems found")
@@ -379,11 +379,11 @@ def aggregate(runs: list[dict]) -> list[dict]:
 # ----------------------------------------------------------------------------------
 
 
-def run_strategy(strategy: Strategy, case: Case, tol: float, max_evals: int) -> dict:
+def run_strategy(strategy: Strategy, case: Case, tol: float, budget: int) -> dict:
     """Integrate ``case`` with one engine strategy (bad integrands give status "failed")."""
-    from . import IntegrandError, Run
+    from cubage import IntegrandError, Run
     t0 = time.perf_counter()
-    run = Run(case.f, case.domain, rule=strategy.rule, rel_tol=tol, abs_tol=0.0, max_evals=max_evals,
+    run = Run(case.f, case.domain, rule=strategy.rule, rel_tol=tol, abs_tol=0.0, budget=budget,
               fingerprint=f"bench:{case.group}:{case.d}:{case.draw}", **strategy.options)
     message = engine_error = ""
     status = None
@@ -531,7 +531,7 @@ def _settings(a) -> dict:
         "draws": a.draws if a.draws is not None else q.get("draws", 5),
         "strategies": a.strategies or q.get("strategies", list(DEFAULT_STRATEGIES)),
         "peers": a.peers if a.peers is not None else q.get("peers", list(DEFAULT_PEERS)),
-        "max_evals": a.budget if a.budget is not None else q.get("max_evals", 2_000_000),
+        "budget": a.budget if a.budget is not None else q.get("budget", 2_000_000),
     }
     if s["strategies"] == ["all"]:
         s["strategies"] = list(STRATEGIES)
@@ -550,8 +550,8 @@ def _settings(a) -> dict:
         raise BenchInputError(f"--draws: must be >= 1, got {s['draws']}")
     if a.repeats < 1:
         raise BenchInputError(f"--repeats: must be >= 1, got {a.repeats}")
-    if s["max_evals"] < 1000:
-        raise BenchInputError(f"--budget: must be >= 1000, got {s['max_evals']}")
+    if s["budget"] < 1000:
+        raise BenchInputError(f"--budget: must be >= 1000, got {s['budget']}")
     for st in s["strategies"]:
         if st not in STRATEGIES:
             raise BenchInputError(f"--strategies: unknown strategy {st!r} (known: {', '.join(STRATEGIES)})")
@@ -601,8 +601,8 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
             prog.update(task, description=f"{case.group} d={case.d} tol={tol:.0e} {label}")
             best = None
             for _ in range(repeats):
-                r = (run_strategy(m, case, tol, settings["max_evals"]) if what == "strategy"
-                     else run_peer(m, case, tol, settings["max_evals"], seed + case.draw))
+                r = (run_strategy(m, case, tol, settings["budget"]) if what == "strategy"
+                     else run_peer(m, case, tol, settings["budget"], seed + case.draw))
                 if best is None or r["seconds"] < best["seconds"]:
                     best = r
             r = best
@@ -626,11 +626,11 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
         notes.append(f"{label}: the engine raised on {len(errs)} run(s), counted as failures "
                      f"(first: {errs[0]})")
     out_dir.mkdir(parents=True, exist_ok=True)
-    stamp = datetime.now(timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    stamp = datetime.now(UTC).strftime("%Y-%m-%d %H:%M UTC")
     header = [f"# cubage bench results ({stamp})", "",
               f"Machine: {platform.machine()}, {os.cpu_count()} cores, Python {platform.python_version()}; "
               f"suite {' '.join(settings['suite'])}, dims {settings['dims']}, draws {settings['draws']}, "
-              f"seed {seed}, budget {settings['max_evals']} evaluations per run.", "",
+              f"seed {seed}, budget {settings['budget']} evaluations per run.", "",
               "Reported errors are heuristic estimates, not bounds; 'reliability' is the share of runs whose "
               "true error was within the reported error. 'evals_vs_best' compares methods that met the goal "
               f"on every run; 'wrong_answers' counts runs that claimed convergence with a true error above "
@@ -645,7 +645,8 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
     from rich.table import Table
     if not console.is_terminal:
         console.width = max(console.width, 150)
-    table = Table(box=box.SIMPLE_HEAD, padding=(0, 1), title=f"cubage bench: {len(runs)} runs (reported errors are heuristic estimates)",
+    table = Table(box=box.SIMPLE_HEAD, padding=(0, 1),
+                  title=f"cubage bench: {len(runs)} runs (reported errors are heuristic estimates)",
                   caption="evals/time/errors are medians; x best = evaluations over the fewest among methods "
                           "that always met the goal; held = share with true error <= reported")
     for c in COLUMNS:

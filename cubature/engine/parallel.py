@@ -44,7 +44,7 @@ and entered as a context manager.  :meth:`Evaluator.close` (or leaving a
 
 How integrands travel
 ---------------------
-* an expression (:class:`cubature.expr.CompiledExpression`, or a problem's
+* an expression (:class:`cubage.problem.expr.CompiledExpression`, or a problem's
   ``spec`` of kind ``"expr"``) travels as its source and is compiled once in
   each worker process;
 * a Python integrand from a problem file travels as its import path (``spec``
@@ -81,7 +81,7 @@ speed only, never the value.
 Failures
 --------
 An exception raised by the integrand in a worker, or a worker process that
-dies, raises :class:`cubature.IntegrandError` whose one-line message names the
+dies, raises :class:`cubage.IntegrandError` whose one-line message names the
 integrand (expression source or import path) and the error.  The evaluator
 stays usable and :meth:`Evaluator.close` still works.
 """
@@ -92,15 +92,16 @@ import json
 import os
 import re
 import time
+from collections.abc import Callable
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
-from .engine import IntegrandError
+from cubage.engine.run import IntegrandError
 
 __all__ = ["make_evaluator", "describe_evaluator", "chunk_bounds", "resolve_workers", "Evaluator",
-           "PoolEvaluator", "integrand_name", "BACKENDS", "MIN_PARALLEL_SECONDS", "MIN_MEASURE_SECONDS", "DISPATCH_GUESS",
+           "PoolEvaluator", "integrand_name", "BACKENDS", "MIN_PARALLEL_SECONDS", "MIN_MEASURE_SECONDS",
+           "DISPATCH_GUESS",
            "STARTUP_SECONDS"]
 
 #: Backend names accepted by :func:`make_evaluator`.
@@ -197,7 +198,7 @@ def _one_line(exc: BaseException) -> str:
 def _worker_integrand(key: str) -> Callable:
     f = _WORKER_INTEGRANDS.get(key)
     if f is None:
-        from .problem import integrand_from_spec
+        from cubage.problem.problem_file import integrand_from_spec
         f = integrand_from_spec(json.loads(key))
         _WORKER_INTEGRANDS[key] = f
     return f

@@ -4,8 +4,8 @@ A run directory ``DIR`` holds::
 
     DIR/problem.toml     copy of the problem file as it was when the run started
     DIR/run.json         settings and overrides, cubage version, start time, host, pid (and resumes)
-    DIR/checkpoint.npz   latest engine state (written atomically, see cubature.checkpoint)
-    DIR/progress.jsonl   one snapshot record per log interval (cubature.observe)
+    DIR/checkpoint.npz   latest engine state (written atomically, see cubage.engine.checkpoint)
+    DIR/progress.jsonl   one snapshot record per log interval (cubage.session.progress_records)
     DIR/result.json      written at the end: Result.to_json() plus reference info
     DIR/lock             {pid, host, started}: the process working in DIR
     DIR/stop-request     created by a watcher to ask the running process to stop
@@ -25,14 +25,14 @@ import signal
 import socket
 import threading
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Callable
 
 import numpy as np
 
-from .checkpoint import write_atomic
-from .observe import snapshot_to_record
+from cubage.engine.checkpoint import write_atomic
+from cubage.session.progress_records import snapshot_to_record
 
 PROBLEM = "problem.toml"
 RUN_JSON = "run.json"
@@ -399,7 +399,7 @@ class StopSignals:
 class Outcome:
     """What :func:`drive` ended with."""
 
-    result: object                      # cubature.Result
+    result: object                      # cubage.Result
     snapshot: object                    # the last Snapshot
     failure: str | None = None          # IntegrandError message
     stop_reason: str | None = None      # "SIGTERM", "stop-request", ...
@@ -412,7 +412,7 @@ def drive(run, *, rundir: RunDir | None = None, on_snapshot: Callable | None = N
 
     Parameters
     ----------
-    run : cubature.Run
+    run : cubage.Run
     rundir : RunDir, optional
         Where to log progress, checkpoint every ``checkpoint_every`` seconds
         and at the end, and look for ``stop-request``.
@@ -430,7 +430,7 @@ def drive(run, *, rundir: RunDir | None = None, on_snapshot: Callable | None = N
     -------
     Outcome
     """
-    from .engine import IntegrandError
+    from cubage.engine.run import IntegrandError
 
     log = ProgressLog(rundir.file(PROGRESS), log_after) if rundir is not None else None
     out = Outcome(result=None, snapshot=None)

@@ -114,12 +114,12 @@ def _add_goal_options(p) -> None:
     g = p.add_argument_group("goal (overrides the problem's [goal])")
     g.add_argument("--rel-tol", type=_tolerance, metavar="X", help="relative tolerance on the total error estimate")
     g.add_argument("--abs-tol", type=_tolerance, metavar="X", help="absolute tolerance on the total error estimate")
-    g.add_argument("--max-evals", type=_count, metavar="N", help="budget of integrand evaluations")
+    g.add_argument("--budget", type=_count, metavar="N", help="budget of integrand evaluations")
     g.add_argument("--time-limit", type=_seconds, metavar="S", help="seconds of work (summed over resumes)")
 
 
 def _add_parallel_options(p) -> None:
-    from .problem import BACKENDS
+    from cubage.problem.problem_file import BACKENDS
     g = p.add_argument_group("evaluation (overrides the problem's [method])")
     g.add_argument("--workers", type=_workers, metavar="N", help='worker processes or threads, or "auto"')
     g.add_argument("--backend", choices=BACKENDS, metavar="B", help=f"one of: {', '.join(BACKENDS)}")
@@ -131,15 +131,15 @@ def _add_common(p, *, run_dir: bool) -> None:
                    help="print exactly one JSON object on stdout at the end (and nothing else there)")
     p.add_argument("--checkpoint-every", type=_every, metavar="S", default=None,
                    help="seconds between checkpoints in the run directory (default 60; 0 = only at the end)")
-    p.add_argument("--trust-code", action="store_true",
+    p.add_argument("--allow-python", action="store_true",
                    help="allow problems whose integrand is your own Python code (python = ...)")
     p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
 
 
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of ``cubage`` (all subcommands)."""
-    from . import __version__
-    from .problem import RULES
+    from cubage import __version__
+    from cubage.problem.problem_file import RULES
     top = _Parser(prog="cubage",
                   description="Adaptive multi-dimensional cubature over boxes, simplices and unbounded "
                               "regions. With no command, opens the text UI.",
@@ -171,7 +171,7 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Read a problem, report the first mistake (exit 2) or describe it: "
                                    "dimension, domain, integrand, goal, method, rule and reference.")
     p.add_argument("file", metavar="FILE", help="problem file or problem name")
-    p.add_argument("--trust-code", action="store_true", help="allow python = ... integrands (imports your code)")
+    p.add_argument("--allow-python", action="store_true", help="allow python = ... integrands (imports your code)")
 
     p = sub.add_parser("resume", help="continue a run directory from its checkpoint",
                        description="Continue the run in DIR from its last checkpoint, appending to its "
@@ -188,7 +188,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("tui", help="open the text UI", description="Open the text UI on some problems.")
     p.add_argument("paths", metavar="PATH", nargs="*", help="problem files or folders")
-    p.add_argument("--trust-code", action="store_true", help="allow python = ... integrands")
+    p.add_argument("--allow-python", action="store_true", help="allow python = ... integrands")
 
     p = sub.add_parser("watch", help="follow a run directory in the text UI",
                        description="Follow a headless run (its progress log) in the text UI.")
@@ -206,19 +206,20 @@ def _err(msg: str) -> None:
     print(msg, file=sys.stderr, flush=True)
 
 
-def _load(name: str, trust_code: bool):
-    from .problem import find_problem, load_problem
-    return load_problem(find_problem(name), trust_code=trust_code)
+def _load(name: str, allow_python: bool):
+    from cubage.problem.problem_file import find_problem, load_problem
+    return load_problem(find_problem(name), allow_python=allow_python)
 
 
 def _rule_info(problem, rule: str | None, degree: int | None, where: str) -> tuple[str, int]:
     """(rule name, nodes per region) for the problem's domain; UsageError when they do not fit."""
-    from .domains import Simplex
-    from .rules import box_rule, default_rule, simplex_rule
+    from cubage.engine.domains import Simplex
+    from cubage.engine.rules import box_rule, default_rule, simplex_rule
     kind = "simplex" if isinstance(problem.domain, Simplex) else "box"
     name = rule or default_rule(kind, problem.domain.dim)
     try:
-        r = simplex_rule(name, problem.domain.dim, degree or 7) if kind == "simplex" else box_rule(name, problem.domain.dim)
+        dim = problem.domain.dim
+        r = simplex_rule(name, dim, degree or 7) if kind == "simplex" else box_rule(name, dim)
     except ValueError as exc:
         raise UsageError(f"{where}: {name} does not fit this {problem.domain.dim}-D {kind}: {exc}") from None
     return name, int(r.size)
@@ -230,7 +231,7 @@ def _problem_where(problem) -> str:
 
 def _settings(problem, args) -> dict:
     """Engine settings from the problem's goal and method plus command-line overrides."""
-    from .engine import DEFAULT_MAX_EVALS
+    from cubage.engine.run import DEFAULT_BUDGET
     g = problem.goal
     rel = args.rel_tol if args.rel_tol is not None else g.rel_tol
     abs_ = args.abs_tol if args.abs_tol is not None else g.abs_tol
@@ -240,7 +241,7 @@ def _settings(problem, args) -> dict:
     where = "--rule" if getattr(args, "rule", None) else f"{_problem_where(problem)}: [method] rule"
     name, _ = _rule_info(problem, rule, problem.method.degree, where)
     s = {"rel_tol": rel, "abs_tol": abs_,
-         "max_evals": args.max_evals or g.max_evals or DEFAULT_MAX_EVALS,
+         "budget": args.budget or g.budget or DEFAULT_BUDGET,
          "time_limit": args.time_limit if args.time_limit is not None else g.time_limit,
          "rule": name}
     if problem.method.degree is not None:
@@ -256,7 +257,7 @@ def _parallel(problem, workers, backend, cluster):
     cluster = cluster if cluster is not None else problem.method.cluster
     want = workers not in (1, None) or backend not in ("auto", "serial", None) or cluster
     try:
-        from . import parallel
+        from cubage.engine import parallel
     except ImportError:
         note = ("parallel evaluation is not available in this installation; evaluating serially"
                 if want else None)
@@ -287,8 +288,9 @@ def _close(ev) -> None:
 def _result_record(result, problem, *, name: str, run_dir=None, extra: dict | None = None) -> dict:
     """The JSON object of ``--json`` and ``result.json``."""
     import numpy as np
-    from .engine import STATUSES
-    from .rundir import json_numbers
+
+    from cubage.engine.run import STATUSES
+    from cubage.session.run_directory import json_numbers
     rec = result.to_json()
     vals = np.atleast_1d(np.asarray(result.values if np.size(result.values) else result.value, dtype=float))
     rec["value"] = json_numbers(result.value)
@@ -329,8 +331,8 @@ def _continue_hint(res, run, rundir) -> str:
     if res.status in ("converged", "failed"):
         return ""
     opt = ""
-    if res.status == "max-evals":
-        opt = f" --max-evals {2 * int(run.settings.max_evals):_}"
+    if res.status == "budget-spent":
+        opt = f" --budget {2 * int(run.settings.budget):_}"
     elif res.status == "time-limit" and run.settings.time_limit:
         opt = f" --time-limit {2 * run.settings.time_limit:g}"
     elif res.status in ("region-limit", "stalled"):
@@ -344,9 +346,9 @@ def _continue_hint(res, run, rundir) -> str:
 def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_after: float = -1.0,
              checkpoint_every: float = 60.0) -> int:
     """Drive the run with the right display, write the result, print the ending; the exit code."""
-    from .engine import STATUSES
-    from .live import LivePanel, PlainTicker, summary_lines
-    from .rundir import RESULT, drive, write_json
+    from cubage.cli.terminal_display import LivePanel, PlainTicker, summary_lines
+    from cubage.engine.run import STATUSES
+    from cubage.session.run_directory import RESULT, drive, write_json
 
     title = problem.title or name
     if _interactive(args):
@@ -397,16 +399,17 @@ def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_aft
 
 
 def _second_opinion(run, problem, res) -> dict:
-    """Integrate again with other nodes and boundaries (:func:`cubature.rules.second_opinion`); compare."""
+    """Integrate again with other nodes and boundaries (:func:`cubage.engine.rules.second_opinion`); compare."""
     import numpy as np
-    from .engine import IntegrandError, Run
-    from .rules import second_opinion
-    from .rundir import json_numbers
+
+    from cubage.engine.rules import second_opinion
+    from cubage.engine.run import IntegrandError, Run
+    from cubage.session.run_directory import json_numbers
     opts, words = second_opinion(problem.domain.kind, problem.domain.dim, run.rule_name, run.settings.split)
     s = run.settings
     try:
         alt = Run(problem.integrand, problem.domain, evaluator=run.evaluator, fingerprint=problem.fingerprint(),
-                  rel_tol=s.rel_tol, abs_tol=s.abs_tol, max_evals=s.max_evals, time_limit=s.time_limit, **opts)
+                  rel_tol=s.rel_tol, abs_tol=s.abs_tol, budget=s.budget, time_limit=s.time_limit, **opts)
         r2 = alt.run()
     except (IntegrandError, ValueError) as exc:
         return {"method": words, "status": "failed", "message": str(exc), "agree": None}
@@ -420,7 +423,8 @@ def _second_opinion(run, problem, res) -> dict:
 
 def _second_opinion_lines(so: dict) -> list[str]:
     import numpy as np
-    from .live import fmt_err, fmt_value
+
+    from cubage.cli.terminal_display import fmt_err, fmt_value
     head = f"{'second':<11} {so['method']}"
     if so["status"] == "failed":
         return [head, f"{'':<11} failed: {so.get('message', '')}"]
@@ -438,11 +442,11 @@ def _second_opinion_lines(so: dict) -> list[str]:
 # --------------------------------------------------------------------------
 
 def cmd_run(args) -> int:
-    from . import __version__
-    from .engine import Run
-    from .rundir import RunDir
+    from cubage import __version__
+    from cubage.engine.run import Run
+    from cubage.session.run_directory import RunDir
 
-    problem = _load(args.file, args.trust_code)
+    problem = _load(args.file, args.allow_python)
     settings = _settings(problem, args)
     name = problem.path.stem if problem.path is not None else args.file
     ev, desc, note = _parallel(problem, args.workers, args.backend, args.cluster)
@@ -463,10 +467,10 @@ def cmd_run(args) -> int:
                 "problem_source": str(problem.path.resolve()) if problem.path is not None else None,
                 "problem_fingerprint": problem.fingerprint(), "run_fingerprint": run.fingerprint(),
                 "settings": {k: v for k, v in run.settings.__dict__.items()},
-                "overrides": {k: getattr(args, k) for k in ("rel_tol", "abs_tol", "max_evals", "time_limit", "rule",
+                "overrides": {k: getattr(args, k) for k in ("rel_tol", "abs_tol", "budget", "time_limit", "rule",
                                                              "workers", "backend", "cluster", "checkpoint_every")
                               if getattr(args, k) is not None},
-                "trust_code": bool(args.trust_code), "evaluation": desc,
+                "allow_python": bool(args.allow_python), "evaluation": desc,
                 "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(), "pid": os.getpid(),
             }
             rd.create(problem.text, info)
@@ -482,11 +486,11 @@ def cmd_run(args) -> int:
 
 
 def cmd_resume(args) -> int:
-    from . import __version__
-    from .checkpoint import read_checkpoint
-    from .engine import Run
-    from .problem import ProblemError, parse_problem
-    from .rundir import PROBLEM, RESULT, RunDir, RunDirError
+    from cubage import __version__
+    from cubage.engine.checkpoint import read_checkpoint
+    from cubage.engine.run import Run
+    from cubage.problem.problem_file import ProblemError, parse_problem
+    from cubage.session.run_directory import PROBLEM, RESULT, RunDir, RunDirError
 
     rd = RunDir(Path(args.dir))
     info = rd.open_existing()
@@ -505,9 +509,9 @@ def cmd_resume(args) -> int:
                 path = Path(info["problem_source"])   # relative file.py:function resolves beside the original
         except tomllib.TOMLDecodeError:
             pass
-        trust = args.trust_code
+        trust = args.allow_python
         try:
-            problem = parse_problem(text, path=path, trust_code=trust)
+            problem = parse_problem(text, path=path, allow_python=trust)
         except ProblemError:
             raise
         name = info.get("problem") or copy.stem
@@ -517,7 +521,7 @@ def cmd_resume(args) -> int:
         if note:
             _err(f"cubage: note: {note}")
         read_checkpoint(rd.checkpoint)          # a clear CheckpointError before anything else
-        goal = {k: getattr(args, k) for k in ("rel_tol", "abs_tol", "max_evals", "time_limit")
+        goal = {k: getattr(args, k) for k in ("rel_tol", "abs_tol", "budget", "time_limit")
                 if getattr(args, k) is not None}
         run = Run.from_checkpoint(rd.checkpoint, problem.integrand, problem.domain, evaluator=ev,
                                   fingerprint=problem.fingerprint(), snapshot_interval=SNAPSHOT_INTERVAL, **goal)
@@ -537,8 +541,8 @@ def cmd_resume(args) -> int:
 
 
 def cmd_check(args) -> int:
-    from .domains import Simplex
-    problem = _load(args.file, args.trust_code)
+    from cubage.engine.domains import Simplex
+    problem = _load(args.file, args.allow_python)
     where = f"{_problem_where(problem)}: [method] rule"
     name, nodes = _rule_info(problem, problem.method.rule, problem.method.degree, where)
     rows = [("problem", str(problem.path))]
@@ -562,8 +566,8 @@ def cmd_check(args) -> int:
 
 
 def cmd_list(args) -> int:
-    from .domains import Simplex
-    from .problem import ProblemError, bundled_problem_dir, list_problems, load_problem, problem_dirs
+    from cubage.engine.domains import Simplex
+    from cubage.problem.problem_file import ProblemError, bundled_problem_dir, list_problems, load_problem, problem_dirs
     if args.dir:
         d = Path(args.dir)
         if not d.is_dir():
@@ -584,7 +588,8 @@ def cmd_list(args) -> int:
             kind = "simplex" if isinstance(p.domain, Simplex) else ("box" if p.domain.bounded else "box, unbounded")
             rows.append((f.stem, str(p.dim), kind, p.title or ""))
         except ProblemError as exc:
-            note = "needs --trust-code (python integrand)" if "--trust-code" in str(exc) else "invalid: see cubage check"
+            needs_code = "--allow-python" in str(exc)
+            note = "needs --allow-python (python integrand)" if needs_code else "invalid: see cubage check"
             title, dim, kind = "", "?", "?"
             try:
                 data = tomllib.loads(f.read_text(encoding="utf-8"))
@@ -603,19 +608,19 @@ def cmd_list(args) -> int:
     return EXIT_OK
 
 
-def _ui(paths=None, watch=None, trust_code=False) -> int:
+def _ui(paths=None, watch=None, allow_python=False) -> int:
     try:
-        from tui import app
+        from cubage.tui import app
     except Exception as exc:  # noqa: BLE001 - any import failure means no UI
         _err(f"cubage: the text UI is not available ({type(exc).__name__}: {exc}); "
              "headless commands still work: cubage run FILE")
         return EXIT_FAILED
-    return int(app.main(paths=paths, watch=watch, trust_code=trust_code) or 0)
+    return int(app.main(paths=paths, watch=watch, allow_python=allow_python) or 0)
 
 
 def _bench(argv: list[str]) -> int:
     try:
-        from . import bench
+        from cubage.bench import suite as bench
     except Exception as exc:  # noqa: BLE001
         _err(f"cubage: benchmarks are not available ({type(exc).__name__}: {exc})")
         return EXIT_FAILED
@@ -637,15 +642,15 @@ def main(argv: list[str] | None = None) -> int:
     except SystemExit as exc:           # --help, --version, usage errors: argparse has printed
         return exc.code if isinstance(exc.code, int) else EXIT_BAD_INPUT
     debug = bool(getattr(args, "debug", False))
-    from .checkpoint import CheckpointError
-    from .domains import DomainError
-    from .problem import ProblemError
-    from .rundir import RunDirError
+    from cubage.engine.checkpoint import CheckpointError
+    from cubage.engine.domains import DomainError
+    from cubage.problem.problem_file import ProblemError
+    from cubage.session.run_directory import RunDirError
     try:
         if args.command is None:
             return _ui()
         if args.command == "tui":
-            return _ui(paths=args.paths or None, trust_code=args.trust_code)
+            return _ui(paths=args.paths or None, allow_python=args.allow_python)
         if args.command == "watch":
             return _ui(watch=args.dir)
         return {"run": cmd_run, "resume": cmd_resume, "check": cmd_check, "list": cmd_list}[args.command](args)

@@ -47,10 +47,10 @@ of the float parameters) and rounded once.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from fractions import Fraction
 from itertools import product
-from typing import Callable
 
 import numpy as np
 from scipy.special import erf

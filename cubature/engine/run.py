@@ -4,11 +4,11 @@ One loop, over arrays:
 
 1. take the regions with the largest error estimates from the global queue
    (:class:`_Queue`), as many as the batch policy allows;
-2. split them (:mod:`cubature.geometry`);
+2. split them (:mod:`cubage.engine.geometry`);
 3. evaluate the integrand at all children's nodes in one vectorised call (or a
-   few, through an evaluator — see :mod:`cubature.parallel`);
+   few, through an evaluator — see :mod:`cubage.engine.parallel`);
 4. apply the rule's weight vectors, estimate each child's error
-   (:mod:`cubature.estimate`), write the children back (parent's row reused,
+   (:mod:`cubage.engine.estimate`), write the children back (parent's row reused,
    the rest appended) and update the running totals;
 5. stop when the total error meets the goal, the budget or the clock runs out,
    or somebody asked the run to stop.
@@ -23,25 +23,25 @@ import json
 import math
 import threading
 import time
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass, field
-from typing import Callable, Iterator
 
 import numpy as np
 
-from . import estimate as _estimate
-from .domains import Box, DomainError, Simplex
-from .geometry import BoxGeometry, SimplexGeometry
-from .regions import RegionStore
-from .rules import box_rule, default_rule, simplex_rule
+from cubage.engine import estimate as _estimate
+from cubage.engine.domains import Box, DomainError, Simplex
+from cubage.engine.geometry import BoxGeometry, SimplexGeometry
+from cubage.engine.regions import RegionStore
+from cubage.engine.rules import box_rule, default_rule, simplex_rule
 
-DEFAULT_MAX_EVALS = 50_000_000
+DEFAULT_BUDGET = 50_000_000
 
 #: Status words of a finished (or paused/running) run.
 STATUSES = {
     "running": "still working",
     "paused": "paused by request, resumable",
     "converged": "total error estimate met the goal",
-    "max-evals": "evaluation budget spent before the goal was met",
+    "budget-spent": "evaluation budget spent before the goal was met",
     "time-limit": "time limit reached before the goal was met",
     "stopped": "stopped on request before the goal was met",
     "region-limit": "region limit reached before the goal was met",
@@ -63,12 +63,12 @@ class Settings:
     rel_tol, abs_tol : float
         Goal: total error estimate <= max(abs_tol, rel_tol * |value|), for
         every component.
-    max_evals : int
+    budget : int
         Budget of integrand evaluations.
     time_limit : float or None
         Seconds of wall time (summed over resumes).
     rule : str or None
-        Rule family; None picks :func:`cubature.rules.default_rule`.
+        Rule family; None picks :func:`cubage.engine.rules.default_rule`.
     degree : int
         Degree of the simplex rule (odd >= 3).
     split : {"bisect", "all"}
@@ -82,7 +82,7 @@ class Settings:
         ``"auto"``: the documented policy of :meth:`Run._choose`; an integer
         fixes the number of regions split per step (1 = strictly one).
     estimate : {"sharp", "plain"}
-        Region error estimate, see :mod:`cubature.estimate`.
+        Region error estimate, see :mod:`cubage.engine.estimate`.
     max_regions : int or None
         Stop with ``"region-limit"`` rather than grow beyond this.
     batch_points : int
@@ -91,7 +91,7 @@ class Settings:
 
     rel_tol: float = 1e-6
     abs_tol: float = 0.0
-    max_evals: int = DEFAULT_MAX_EVALS
+    budget: int = DEFAULT_BUDGET
     time_limit: float | None = None
     rule: str | None = None
     degree: int = 7
@@ -107,8 +107,8 @@ class Settings:
             raise ValueError("rel_tol and abs_tol must be non-negative numbers")
         if self.rel_tol == 0 and self.abs_tol == 0:
             raise ValueError("rel_tol and abs_tol cannot both be zero")
-        if int(self.max_evals) <= 0:
-            raise ValueError("max_evals must be a positive integer")
+        if int(self.budget) <= 0:
+            raise ValueError("budget must be a positive integer")
         if self.time_limit is not None and not self.time_limit > 0:
             raise ValueError("time_limit must be positive (seconds)")
         if self.queue not in ("global", "local"):
@@ -140,7 +140,7 @@ class Snapshot:
 
     ``map_centres``/``map_sizes`` are a deterministic down-sample of region
     centres and full widths in the engine's finite coordinates (unbounded axes
-    appear mapped onto [0, 1] or [-1, 1], see :mod:`cubature.transforms`);
+    appear mapped onto [0, 1] or [-1, 1], see :mod:`cubage.engine.transforms`);
     ``map_lower``/``map_upper`` give that frame.  ``depth_error[k]`` is the
     error mass (priority-key units) of regions ``k`` splits deep.
     ``history`` has columns (evaluations, regions, value_0..m-1, error_0..m-1).
@@ -165,7 +165,7 @@ class Snapshot:
     message: str = ""
     rel_tol: float = 0.0
     abs_tol: float = 0.0
-    max_evals: int = 0
+    budget: int = 0
 
     @property
     def components(self) -> int:
@@ -278,11 +278,11 @@ def _make_geometry(domain, settings: Settings):
         name = settings.rule or default_rule("simplex", domain.dim)
         rule = simplex_rule(name, domain.dim, settings.degree)
         return SimplexGeometry(domain, rule, settings.split), name
-    raise DomainError(f"domain must be a cubature.Box or cubature.Simplex, got {type(domain).__name__}")
+    raise DomainError(f"domain must be a cubage.Box or cubage.Simplex, got {type(domain).__name__}")
 
 
 def _third_weights(rule) -> np.ndarray | None:
-    from .rules.third import third_weights
+    from cubage.engine.rules.third import third_weights
     return third_weights(rule)
 
 
@@ -301,7 +301,7 @@ class Run:
     domain : Box or Simplex
     evaluator : callable, optional
         ``evaluator(f, X) -> F``; the default calls ``f(X)`` in-process.
-        See :mod:`cubature.parallel` for joblib and dask evaluators.
+        See :mod:`cubage.engine.parallel` for joblib and dask evaluators.
     fingerprint : str, optional
         Identity of the integrand for checkpoints (an expression's hash, a
         problem file's fingerprint).  Defaults to the callable's
@@ -322,12 +322,12 @@ class Run:
         self.domain = domain
         self.settings = Settings(**settings)
         self.settings.validate()
-        self.settings.max_evals = int(self.settings.max_evals)
+        self.settings.budget = int(self.settings.budget)
         self.geometry, self.rule_name = _make_geometry(domain, self.settings)
         self.settings.rule = self.rule_name
         self.rule = self.geometry.rule
-        if self.settings.max_evals < self.rule.size:
-            raise ValueError(f"max_evals {self.settings.max_evals} is below the {self.rule.size} nodes of one "
+        if self.settings.budget < self.rule.size:
+            raise ValueError(f"budget {self.settings.budget} is below the {self.rule.size} nodes of one "
                              f"region of the {self.rule_name} rule in {domain.dim}-D")
         w3 = _third_weights(self.rule) if self.settings.estimate == "sharp" else None
         self._w = np.stack([self.rule.weights, self.rule.weights_low] + ([w3] if w3 is not None else []))
@@ -385,7 +385,7 @@ class Run:
         return self.status not in ("running", "paused")
 
     def set_goal(self, rel_tol: float | None = None, abs_tol: float | None = None,
-                 max_evals: int | None = None, time_limit: float | None = None) -> None:
+                 budget: int | None = None, time_limit: float | None = None) -> None:
         """Change the goal while running (tighten or loosen).  A run that had
         converged becomes running again if the new goal is not met.
 
@@ -399,13 +399,13 @@ class Run:
                 new.rel_tol = float(rel_tol)
             if abs_tol is not None:
                 new.abs_tol = float(abs_tol)
-            if max_evals is not None:
-                new.max_evals = int(max_evals)
+            if budget is not None:
+                new.budget = int(budget)
             if time_limit is not None:
                 new.time_limit = float(time_limit)
             new.validate()
             self.settings = new
-            if self.status in ("converged", "max-evals", "time-limit") and self.store is not None:
+            if self.status in ("converged", "budget-spent", "time-limit") and self.store is not None:
                 self.status = "running"
                 self._stop.clear()
 
@@ -546,7 +546,7 @@ class Run:
         """
         s = self.settings
         per = self.geometry.children_per_split * self.rule.size
-        budget = (s.max_evals - self.evaluations) // per
+        budget = (s.budget - self.evaluations) // per
         kmax = max(1, s.batch_points // per)
         if s.batch != "auto":
             kmax = int(s.batch)
@@ -586,8 +586,8 @@ class Run:
         if self.queue.idx.size == 0:
             return "stalled"
         per = self.geometry.children_per_split * self.rule.size
-        if self.evaluations + per > s.max_evals:
-            return "max-evals"
+        if self.evaluations + per > s.budget:
+            return "budget-spent"
         if s.time_limit is not None and self.elapsed() >= s.time_limit:
             return "time-limit"
         if s.max_regions is not None and self.store.n + self.geometry.children_per_split - 1 > s.max_regions:
@@ -689,7 +689,7 @@ class Run:
                 return Snapshot(0, 0, nan, nan, nan, 0, self.elapsed(), self.status, 0.0, (), np.zeros(0),
                                 np.zeros((0, self.domain.dim)), np.zeros((0, self.domain.dim)), lo, hi,
                                 np.zeros((0, 2 + 2 * m)), self.message, self.settings.rel_tol,
-                                self.settings.abs_tol, self.settings.max_evals)
+                                self.settings.abs_tol, self.settings.budget)
             idx, _ = self.queue.top(top)
             g = {name: st[name][idx] for name in st.columns}
             ulo, uhi = self.geometry.user_bounds(g)
@@ -707,7 +707,7 @@ class Run:
             return Snapshot(self.step_count, self.evaluations, self.total_value.copy(), self.total_error.copy(),
                             self.goal(), n, el, status, self.evaluations / el if el > 0 else 0.0, tops,
                             depth_err.copy(), centres.copy(), sizes.copy(), lo, hi, np.array(self._hist),
-                            self.message, self.settings.rel_tol, self.settings.abs_tol, self.settings.max_evals)
+                            self.message, self.settings.rel_tol, self.settings.abs_tol, self.settings.budget)
 
     def result(self) -> Result:
         """The current estimate (final once the run is over)."""
@@ -759,28 +759,28 @@ class Run:
 
     # -- checkpoints ---------------------------------------------------------------
     def save_checkpoint(self, path) -> None:
-        """Write the whole state atomically (see :mod:`cubature.checkpoint`)."""
-        from .checkpoint import save_run
+        """Write the whole state atomically (see :mod:`cubage.engine.checkpoint`)."""
+        from cubage.engine.checkpoint import save_run
         with self._lock:
             save_run(self, path)
 
     @classmethod
     def from_checkpoint(cls, path, f: Callable, domain, *, evaluator=None, fingerprint: str | None = None,
-                        snapshot_interval: float = 0.25, **overrides) -> "Run":
+                        snapshot_interval: float = 0.25, **overrides) -> Run:
         """Continue a run saved by :meth:`save_checkpoint`.
 
         ``domain`` and the integrand identity must match the checkpoint's (a
-        :class:`~cubature.checkpoint.CheckpointError` says otherwise).  Goal
+        :class:`~cubage.engine.checkpoint.CheckpointError` says otherwise).  Goal
         settings (tolerances, budget, time limit) may be overridden; the
         path-deciding ones (rule, split, queue, batch, estimate) may not.
         """
-        from .checkpoint import load_run
+        from cubage.engine.checkpoint import load_run
         return load_run(cls, path, f, domain, evaluator=evaluator, fingerprint=fingerprint,
                         snapshot_interval=snapshot_interval, overrides=overrides)
 
 
 def integrate(f: Callable, domain, *, rel_tol: float = 1e-6, abs_tol: float = 0.0,
-              max_evals: int = DEFAULT_MAX_EVALS, time_limit: float | None = None, rule: str | None = None,
+              budget: int = DEFAULT_BUDGET, time_limit: float | None = None, rule: str | None = None,
               evaluator=None, raise_on_failure: bool = True, **options) -> Result:
     """Integrate a vectorised ``f`` over ``domain`` to the goal.
 
@@ -793,7 +793,7 @@ def integrate(f: Callable, domain, *, rel_tol: float = 1e-6, abs_tol: float = 0.
     rel_tol, abs_tol : float
         Stop when the summed error estimate <= max(abs_tol, rel_tol*|value|)
         (for every component of a vector integrand).
-    max_evals : int
+    budget : int
         Budget of integrand evaluations.
     time_limit : float, optional
         Seconds of wall time.
@@ -802,9 +802,9 @@ def integrate(f: Callable, domain, *, rel_tol: float = 1e-6, abs_tol: float = 0.
         product of the 7-point Gauss / 15-point Kronrod pair) or
         ``"grundmann-moller"`` (Grundmann & Möller 1978, simplices); the
         default depends on domain and dimension (see
-        :func:`cubature.rules.default_rule`).
+        :func:`cubage.engine.rules.default_rule`).
     evaluator : callable, optional
-        How to evaluate batches (see :mod:`cubature.parallel`).
+        How to evaluate batches (see :mod:`cubage.engine.parallel`).
     **options
         Further :class:`Settings` fields: ``degree``, ``split``, ``queue``,
         ``batch``, ``estimate``, ``max_regions``, ``batch_points``.
@@ -815,7 +815,7 @@ def integrate(f: Callable, domain, *, rel_tol: float = 1e-6, abs_tol: float = 0.
         ``value``, ``error`` (a heuristic estimate, not a bound),
         ``evaluations``, ``regions``, ``status`` and more.
     """
-    run = Run(f, domain, rel_tol=rel_tol, abs_tol=abs_tol, max_evals=max_evals, time_limit=time_limit,
+    run = Run(f, domain, rel_tol=rel_tol, abs_tol=abs_tol, budget=budget, time_limit=time_limit,
               rule=rule, evaluator=evaluator, **options)
     try:
         return run.run()

@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .domains import Box
+from cubage.engine.domains import Box
 
 _FINITE, _UPPER_INF, _LOWER_INF, _BOTH_INF = 0, 1, 2, 3
 _T_MAX = 1.0 - 2.0**-53
@@ -36,7 +36,7 @@ _T_MIN = -1.0 + 2.0**-52
 
 
 class AxisMap:
-    """The per-axis map of a :class:`~cubature.domains.Box` onto a finite box.
+    """The per-axis map of a :class:`~cubage.engine.domains.Box` onto a finite box.
 
     Parameters
     ----------

@@ -52,8 +52,8 @@ on 1 % of the draws (coarse corner-peak partitions in d = 3, 4 after
 (3000 runs, seed 2) missed once: a 3-D product peak at 1e-4 whose true
 error was 1.01 times the reported one (and still within the goal).
 
-Non-smooth families (C0, discontinuous; same 50-draw study, 1500 runs): the true error was within the reported one on 56 % of
-runs (plain: 60 %), within 100x the goal on 93 % at 1e-4, 67 % at 1e-6 and
+Non-smooth families (C0, discontinuous; same 50-draw study, 1500 runs): the true error was within the reported one
+on 56 % of runs (plain: 60 %), within 100x the goal on 93 % at 1e-4, 67 % at 1e-6 and
 46 % at 1e-8.  Nothing in this module is reliable for kinks and jumps that
 fall between the nodes; the numbers are recorded, not a target.  (A floor
 from the discrepancy between a parent's value and its children's was tried

@@ -3,7 +3,7 @@
 Two kinds share one interface so that the engine loop is the same for both:
 
 * :class:`BoxGeometry` — axis-aligned boxes stored as centre and half-widths,
-  in the engine's finite coordinates (see :mod:`cubature.transforms`);
+  in the engine's finite coordinates (see :mod:`cubage.engine.transforms`);
   bisected along one axis (chosen by the rule) or split along every axis.
 * :class:`SimplexGeometry` — simplices stored as vertex arrays and volumes,
   split by longest-edge bisection into two halves of equal volume.
@@ -15,10 +15,10 @@ import itertools
 
 import numpy as np
 
-from .domains import Box, Simplex
-from .rules import bisect_simplices
-from .rules.base import BoxRule, SimplexRule
-from .transforms import AxisMap
+from cubage.engine.domains import Box, Simplex
+from cubage.engine.rules import bisect_simplices
+from cubage.engine.rules.base import BoxRule, SimplexRule
+from cubage.engine.transforms import AxisMap
 
 _EPS = np.finfo(float).eps
 
@@ -153,7 +153,7 @@ class SimplexGeometry:
         return longest > 16 * _EPS * np.maximum(np.abs(v).max(axis=(1, 2)), 1.0)
 
     def split(self, g: dict) -> dict:
-        """Longest-edge bisection (:func:`cubature.rules.bisect_simplices`),
+        """Longest-edge bisection (:func:`cubage.engine.rules.bisect_simplices`),
         children laid out in blocks: child 0 of every parent, then child 1."""
         kids, _ = bisect_simplices(g["verts"])
         half = 0.5 * g["vol"]

@@ -22,7 +22,7 @@ from __future__ import annotations
 import math
 import sys
 import time
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 
@@ -259,7 +259,7 @@ class LivePanel:
         if math.isfinite(ratio):
             gtxt.append(f"   now {ratio:.3g}× the goal" if ratio > 1 else "   met", style="magenta")
         t.add_row("goal", gtxt)
-        budget = f" of {fmt_count(snap.max_evals)}" if snap.max_evals else ""
+        budget = f" of {fmt_count(snap.budget)}" if snap.budget else ""
         t.add_row("evaluations", f"{fmt_count(snap.evaluations)}{budget}   at {fmt_rate(snap.rate)}")
         t.add_row("regions", fmt_count(snap.regions))
         eta = time_to_goal(snap.history, snap.goal, snap.rate)

@@ -17,7 +17,7 @@ class Box:
     """The box ``[lower_0, upper_0] x ... x [lower_{d-1}, upper_{d-1}]``.
 
     Any bound may be infinite (``-inf`` below, ``inf`` above); such axes are
-    mapped to finite ones by :mod:`cubature.transforms`.
+    mapped to finite ones by :mod:`cubage.engine.transforms`.
 
     Parameters
     ----------

@@ -2,13 +2,13 @@
 
 A headless ``cubage run --run-dir DIR`` appends one record per snapshot
 interval to ``DIR/progress.jsonl``; ``cubage watch DIR`` (the text UI) reads
-them back into :class:`~cubature.engine.Snapshot` objects.  The record is our
+them back into :class:`~cubage.engine.run.Snapshot` objects.  The record is our
 own plain JSON layout::
 
     {"kind": "snapshot", "time": <unix seconds>, "step": int, "evaluations": int,
      "regions": int, "elapsed": float, "rate": float, "status": str, "message": str,
      "value": [..m], "error": [..m], "goal": [..m],
-     "rel_tol": float, "abs_tol": float, "max_evals": int,
+     "rel_tol": float, "abs_tol": float, "budget": int,
      "top": [{"lower": [..d], "upper": [..d], "value": [..m], "error": [..m], "depth": int,
               "vertices": [[..d] x (d+1)] or null}, ...],
      "depth_error": [...],
@@ -26,7 +26,7 @@ import time
 
 import numpy as np
 
-from .engine import Snapshot, TopRegion
+from cubage.engine.run import Snapshot, TopRegion
 
 
 def _num(x: float):
@@ -62,7 +62,7 @@ def snapshot_to_record(snap: Snapshot, *, history_from: int = 0, with_map: bool 
         "regions": int(snap.regions), "elapsed": snap.elapsed, "rate": snap.rate, "status": snap.status,
         "message": snap.message, "value": _list(snap.value), "error": _list(snap.error),
         "goal": _list(snap.goal), "rel_tol": snap.rel_tol, "abs_tol": snap.abs_tol,
-        "max_evals": int(snap.max_evals),
+        "budget": int(snap.budget),
         "top": [{"lower": _list(t.lower), "upper": _list(t.upper), "value": _list(t.value),
                  "error": _list(t.error), "depth": t.depth,
                  "vertices": None if t.vertices is None else _list(t.vertices)} for t in snap.top],
@@ -104,4 +104,4 @@ def record_to_snapshot(rec: dict, history: np.ndarray | None = None, previous: S
                     int(rec["regions"]), float(rec["elapsed"]), str(rec["status"]), float(rec.get("rate", 0.0)),
                     tops, _arr(rec.get("depth_error", [])), centres, sizes, lo, hi, hist,
                     str(rec.get("message", "")), float(rec.get("rel_tol", 0.0)), float(rec.get("abs_tol", 0.0)),
-                    int(rec.get("max_evals", 0)))
+                    int(rec.get("budget", 0)))

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .regions import RegionStore
+from cubage.engine.regions import RegionStore
 
 FORMAT = "cubage-checkpoint"
 VERSION = 1
@@ -72,7 +72,7 @@ def write_atomic(path: Path, data) -> None:
 
 
 def save_run(run, path) -> None:
-    """Serialise ``run`` (a :class:`cubature.engine.Run`) to ``path``."""
+    """Serialise ``run`` (a :class:`cubage.engine.run.Run`) to ``path``."""
     if run.store is None:
         raise CheckpointError("nothing to checkpoint yet: the run has not started")
     arrays = {f"r_{k}": v for k, v in run.store.to_arrays().items()}
@@ -122,7 +122,7 @@ def read_checkpoint(path) -> tuple[dict, dict[str, np.ndarray]]:
 
 
 def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval, overrides):
-    """Rebuild a :class:`~cubature.engine.Run` from ``path``."""
+    """Rebuild a :class:`~cubage.engine.run.Run` from ``path``."""
     meta, arrays = read_checkpoint(path)
     settings = dict(meta["settings"])
     path_keys = ("rule", "degree", "split", "queue", "batch", "estimate", "batch_points")
@@ -162,5 +162,5 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     run.elapsed_before = float(meta["elapsed"])
     run.message = meta.get("message", "")
     status = meta.get("status", "running")
-    run.status = "running" if status in ("stopped", "time-limit", "max-evals", "paused", "region-limit") else status
+    run.status = "running" if status in ("stopped", "time-limit", "budget-spent", "paused", "region-limit") else status
     return run

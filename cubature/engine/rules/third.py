@@ -1,6 +1,6 @@
 """A third, lower-degree member on each rule's nodes, for the sharp error estimate.
 
-:mod:`cubature.estimate` compares the differences ``|q7 - q5|`` and
+:mod:`cubage.engine.estimate` compares the differences ``|q7 - q5|`` and
 ``|q5 - q3|``; this module supplies the weights of ``q3`` on the nodes a rule
 already has, so the comparison costs no extra integrand evaluation.
 

@@ -1,0 +1,1 @@
+"""The benchmark: Genz's test families and ``cubage bench`` (strategies side by side, scipy peers)."""
