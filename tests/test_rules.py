@@ -519,3 +519,48 @@ def test_grundmann_moller_random_polynomial(d, degree, seed, coefs):
     # Dirichlet's simplex integral
     exact = coefs @ dirichlet(exps, d, vol)
     assert abs(got - exact) <= 1e-12 * (np.abs(coefs) @ dirichlet(exps, d, vol)) + 1e-14 * vol
+
+
+# ---------------------------------------------------------------- third embedded members (issue 11 item 5)
+
+@pytest.mark.parametrize("d", [2, 3, 4, 5, 6])
+def test_genz_malik_third_member_degree_3(d):
+    """The degree-3 member lives in the Genz-Malik family (issue 11 item 5): exact to 3, not to 4."""
+    rule = genz_malik_rule(d)
+    lo, hi = LOWER[:d], UPPER[:d]
+    assert rule.weights_third.sum() == pytest.approx(1.0, abs=1e-14)
+    e = exponents(d, 3)
+    # exact monomial integral: product formula (common practice)
+    assert_exact(box_apply(rule, rule.weights_third, lo, hi, e), box_exact(e, lo, hi))
+    e = exponents(d, 4, 4)
+    assert max_rel_err(box_apply(rule, rule.weights_third, lo, hi, e), box_exact(e, lo, hi)) > 1e-10
+
+
+@pytest.mark.parametrize("d", [1, 2, 3])
+def test_gauss_kronrod_third_member_per_axis_degree_7(d):
+    """The Kronrod-only interpolatory member (issue 11 item 5): exact for per-axis degree <= 7, not 8."""
+    rule = gauss_kronrod_rule(d)
+    lo, hi = LOWER[:d], UPPER[:d]
+    e = np.array([k for k in np.ndindex(*(8,) * d)])
+    # exact monomial integral: product formula (common practice)
+    assert_exact(box_apply(rule, rule.weights_third, lo, hi, e), box_exact(e, lo, hi), rtol=1e-11)
+    e8 = np.zeros((1, d), dtype=int)
+    e8[0, 0] = 8
+    assert max_rel_err(box_apply(rule, rule.weights_third, lo, hi, e8), box_exact(e8, lo, hi)) > 1e-10
+
+
+@pytest.mark.parametrize("d", [2, 3, 4])
+@pytest.mark.parametrize("degree", [3, 5, 7, 9])
+def test_grundmann_moller_third_member(d, degree):
+    """Grundmann-Moller of degree 2s+1 carries the degree 2s-3 member on its own nodes (issue 11 item 5)."""
+    rule = grundmann_moller_rule(d, degree)
+    if degree == 3:
+        assert rule.weights_third is None
+        return
+    x = rule.bary @ standard_simplex(d)
+    vol = 1 / math.factorial(d)
+    e = exponents(d, degree - 4)
+    # Dirichlet's simplex integral: prod a_i! / (d + sum a_i)!
+    assert_exact(vol * (rule.weights_third @ monomials(x, e)), dirichlet(e, d))
+    e = exponents(d, degree - 3, degree - 3)
+    assert max_rel_err(vol * (rule.weights_third @ monomials(x, e)), dirichlet(e, d)) > 1e-10

@@ -281,11 +281,6 @@ def _make_geometry(domain, settings: Settings):
     raise DomainError(f"domain must be a cubage.Box or cubage.Simplex, got {type(domain).__name__}")
 
 
-def _third_weights(rule) -> np.ndarray | None:
-    from cubage.engine.rules.third import third_weights
-    return third_weights(rule)
-
-
 def _callable_name(f) -> str:
     return getattr(f, "fingerprint", None) or f"{getattr(f, '__module__', '?')}:{getattr(f, '__qualname__', repr(f))}"
 
@@ -329,7 +324,7 @@ class Run:
         if self.settings.budget < self.rule.size:
             raise ValueError(f"budget {self.settings.budget} is below the {self.rule.size} nodes of one "
                              f"region of the {self.rule_name} rule in {domain.dim}-D")
-        w3 = _third_weights(self.rule) if self.settings.estimate == "sharp" else None
+        w3 = self.rule.weights_third if self.settings.estimate == "sharp" else None
         self._w = np.stack([self.rule.weights, self.rule.weights_low] + ([w3] if w3 is not None else []))
         self._wt = np.ascontiguousarray(self._w.T)
         self.evaluator = evaluator

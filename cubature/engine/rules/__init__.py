@@ -39,7 +39,7 @@ __all__ = [
 
 def _freeze(rule):
     """Make every array of ``rule`` (including those in ``extra``) read-only."""
-    for name in ("nodes", "bary", "weights", "weights_low"):
+    for name in ("nodes", "bary", "weights", "weights_low", "weights_third"):
         arr = getattr(rule, name, None)
         if isinstance(arr, np.ndarray):
             arr.flags.writeable = False

@@ -39,6 +39,10 @@ class BoxRule:
         summing to one.
     degree, degree_low : int
         Polynomial degrees of exactness.
+    weights_third : ndarray, shape (p,), or None
+        Weights (summing to one) of a third, still lower-degree member of the
+        family on the same nodes, for the sharp error estimate of
+        :mod:`cubage.engine.estimate`; None where the family has none.
     """
 
     name: str
@@ -49,6 +53,7 @@ class BoxRule:
     degree: int
     degree_low: int
     extra: dict = field(default_factory=dict)
+    weights_third: np.ndarray | None = None
 
     @property
     def size(self) -> int:
@@ -92,6 +97,9 @@ class SimplexRule:
         Weights of the rule and its embedded partner, each summing to one.
     degree, degree_low : int
         Polynomial degrees of exactness.
+    weights_third : ndarray, shape (p,), or None
+        Weights of the member of degree ``degree_low - 2`` on the same nodes
+        (a subset of them), or None when ``degree_low < 3``.
     """
 
     name: str
@@ -102,6 +110,7 @@ class SimplexRule:
     degree: int
     degree_low: int
     extra: dict = field(default_factory=dict)
+    weights_third: np.ndarray | None = None
 
     @property
     def size(self) -> int:

@@ -113,10 +113,14 @@ def grundmann_moller_rule(dim: int, degree: int = 7) -> SimplexRule:
     bary = np.array([[float(x) for x in k] for k in keys])
     weights = np.array([float(high[k]) for k in keys])
     weights_low = np.array([float(low.get(k, 0)) for k in keys])
+    weights_third = None
+    if s >= 2:  # the member of degree 2s - 3, on a subset of the same nodes
+        third = _gm_weights(d, s - 2)
+        weights_third = np.array([float(third.get(k, 0)) for k in keys])
     return SimplexRule(
         name="grundmann-moller", dim=d, bary=bary, weights=weights, weights_low=weights_low,
         degree=2 * s + 1, degree_low=2 * s - 1,
-        extra={"s": s, "abs_weight_sum": float(np.abs(weights).sum())},
+        extra={"s": s, "abs_weight_sum": float(np.abs(weights).sum())}, weights_third=weights_third,
     )
 
 
