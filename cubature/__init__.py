@@ -23,8 +23,10 @@ from cubage.engine.run import (
                      TopRegion,
                      integrate,
 )
+from cubage.session.scan import PointResult, ScanResult, scan
 
 __version__ = "0.1.0"
 
 __all__ = ["Box", "Simplex", "DomainError", "integrate", "Run", "Result", "Snapshot", "TopRegion", "Settings",
-           "IntegrandError", "CheckpointError", "STATUSES", "DEFAULT_BUDGET", "__version__"]
+           "IntegrandError", "CheckpointError", "STATUSES", "DEFAULT_BUDGET", "scan", "ScanResult", "PointResult",
+           "__version__"]

@@ -149,6 +149,19 @@ def test_bessel_beam_pupil():
     assert p.reference.value == pytest.approx(float(2 * mpmath.pi * mpmath.besselj(1, k) / k), rel=1e-15)
 
 
+def test_orbital_overlap_scan():
+    p = ref("orbital-overlap-scan")
+    c = p.integrand_spec["constants"]
+    a, b, R, u = c["a"], c["b"], c["R"], c["u"]
+    # the integrand separates into three 1-D factors, each by mpmath.quad over the real line,
+    # independent of the Gaussian-product closed form quoted in the file
+    val = mpmath.mpf(1)
+    for _ in range(3):
+        val *= mpmath.quad(lambda t: mpmath.exp(-a * t**2 - b * (t - R * u) ** 2), [-mpmath.inf, R * u, mpmath.inf])
+    assert p.reference.value == pytest.approx(float(val), rel=1e-14)
+    assert u == pytest.approx(1 / math.sqrt(3), rel=1e-16)
+
+
 CHECKED = {
     "gaussian-overlap": test_gaussian_overlap,
     "trap-mean-square-radius": test_trap_mean_square_radius,
@@ -159,4 +172,5 @@ CHECKED = {
     "parallel-plates-view-factor": test_parallel_plates_view_factor,
     "oscillator-phase-6d": test_oscillator_phase_6d,
     "bessel-beam-pupil": test_bessel_beam_pupil,
+    "orbital-overlap-scan": test_orbital_overlap_scan,
 }

@@ -164,6 +164,12 @@ def build_parser() -> argparse.ArgumentParser:
                    help="afterwards integrate again with other nodes and region boundaries (another rule or "
                         "split policy) to the same goal, and say whether the two answers agree within their "
                         "error estimates (about doubles the work)")
+    sc = p.add_argument_group("scans (problems with a [scan] table)")
+    sc.add_argument("--cold", action="store_true",
+                    help="start every point from the whole domain instead of its neighbour's partition")
+    sc.add_argument("--chains", type=_count, metavar="N",
+                    help="cut the scan's path into N chains run in parallel (default: one per 50 points); "
+                         "results depend on N, never on --workers")
     _add_parallel_options(p)
     _add_common(p, run_dir=True)
 
@@ -449,6 +455,9 @@ def cmd_run(args) -> int:
     problem = _load(args.file, args.allow_python)
     settings = _settings(problem, args)
     name = problem.path.stem if problem.path is not None else args.file
+    if problem.scan is not None:
+        from cubage.cli.scan_command import run_scan_command
+        return run_scan_command(args, problem, settings, name)
     ev, desc, note = _parallel(problem, args.workers, args.backend, args.cluster)
     rd = None
     try:
@@ -487,11 +496,13 @@ def cmd_run(args) -> int:
 
 def cmd_resume(args) -> int:
     from cubage import __version__
+    from cubage.cli.scan_command import is_scan_dir, resume_scan_command
     from cubage.engine.checkpoint import read_checkpoint
     from cubage.engine.run import Run
     from cubage.problem.problem_file import ProblemError, parse_problem
     from cubage.session.run_directory import PROBLEM, RESULT, RunDir, RunDirError
-
+    if is_scan_dir(args.dir):
+        return resume_scan_command(args)
     rd = RunDir(Path(args.dir))
     info = rd.open_existing()
     ev = None

@@ -301,6 +301,12 @@ class Run:
         Identity of the integrand for checkpoints (an expression's hash, a
         problem file's fingerprint).  Defaults to the callable's
         ``fingerprint`` attribute or its qualified name.
+    start : dict, optional
+        Warm start: a partition of the domain (as returned by
+        :meth:`partition` of another run over the same domain with the same
+        rule and split policy) to begin from instead of the whole domain.
+        Every region is evaluated with this run's integrand; the same error
+        control follows.  Used by parameter scans (:mod:`cubage.session.scan`).
     **settings
         Fields of :class:`Settings`.
 
@@ -312,7 +318,7 @@ class Run:
     """
 
     def __init__(self, f: Callable, domain, *, evaluator=None, fingerprint: str | None = None,
-                 snapshot_interval: float = 0.25, **settings):
+                 snapshot_interval: float = 0.25, start: dict | None = None, **settings):
         self.f = f
         self.domain = domain
         self.settings = Settings(**settings)
@@ -330,6 +336,7 @@ class Run:
         self.evaluator = evaluator
         self.integrand_id = fingerprint or _callable_name(f)
         self.snapshot_interval = snapshot_interval
+        self._start_partition = start
         self._lock = threading.RLock()
         self._pause = threading.Event()
         self._stop = threading.Event()
@@ -487,13 +494,32 @@ class Run:
         j = np.argmax(err * self.key_weight, axis=1)
         return fr[np.arange(fr.shape[0]), :, j]
 
+    def partition(self) -> dict[str, np.ndarray]:
+        """Copies of the regions' geometry and depth: the ``start`` of a warm-started run."""
+        with self._lock:
+            if self.store is None:
+                return {**self.geometry.root(), "depth": np.zeros(1, np.int16)}
+            return {name: self.store[name].copy() for name in (*self.geometry.columns, "depth")}
+
+    def _evaluate_start(self) -> tuple[dict, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """The first regions (the root, or the warm-start partition in chunks of ``batch_points``) evaluated."""
+        if self._start_partition is None:
+            g = self.geometry.root()
+            return (g, *self._evaluate(g), np.zeros(1, np.int16))
+        part = self._start_partition
+        g = {name: np.asarray(part[name]) for name in self.geometry.columns}
+        n = len(g[next(iter(g))])
+        per = max(1, self.settings.batch_points // self.rule.size)
+        outs = [self._evaluate({k: a[i:i + per] for k, a in g.items()}) for i in range(0, n, per)]
+        q, absq, fr = (np.concatenate([o[j] for o in outs]) for j in range(3))
+        return g, q, absq, fr, np.asarray(part.get("depth", np.zeros(n)), np.int16)
+
     def _start(self) -> None:
-        g = self.geometry.root()
-        q, absq, fr = self._evaluate(g)
+        g, q, absq, fr, depth = self._evaluate_start()
         self.m = q.shape[2]
         err = self._errors(q, absq)
         val = q[:, 0, :]
-        scale = np.maximum(np.abs(val[0]), np.maximum(err[0], 1e-300))
+        scale = np.maximum(np.abs(val.sum(axis=0)), np.maximum(err.sum(axis=0), 1e-300))
         self.key_weight = (1.0 / scale) if self.m > 1 else np.ones(1)
         self.geometry.set_split_axes(g, self._axis_values(fr, err))
         cols = dict(self.geometry.columns)
@@ -507,12 +533,12 @@ class Run:
         self.total_error = err.sum(axis=0)
         tol = None
         if self.settings.queue == "local":
-            tol = np.array([float(self._keyed_goal())])
+            tol = np.full(len(val), float(self._keyed_goal()) / len(val))
             g["tol"] = tol
         key = self._keys(err, tol)
-        self.store.append(**g, value=val, error=err, key=key, depth=np.zeros(1, np.int16))
+        self.store.append(**g, value=val, error=err, key=key, depth=depth)
         self.queue.rebuild(self.store["key"], 1)
-        self._depth_err[0] = key[0] if key[0] > -np.inf else 0.0
+        self._depth_add(depth, key)
         self._record()
 
     def _keyed_goal(self) -> float:

@@ -44,6 +44,7 @@ import numpy as np
 
 from cubage.engine.domains import Box, DomainError, Simplex
 from cubage.problem.expr import FUNCTIONS, RESERVED_NAMES, ExpressionError, compile_expression
+from cubage.problem.scan_table import ScanGrid, ScanTableError, parse_scan_table
 
 __all__ = [
     "ProblemError", "Goal", "Method", "Reference", "Problem",
@@ -55,7 +56,7 @@ __all__ = [
 RULES = ("genz-malik", "gauss-kronrod", "grundmann-moller")
 BACKENDS = ("auto", "serial", "processes", "threads", "dask")
 
-_TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "reference")
+_TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "reference", "scan")
 _TABLE_KEYS = {
     "domain": ("variables", "box", "simplex", "scale"),
     "integrand": ("expr", "constants", "python"),
@@ -139,6 +140,7 @@ class Problem:
     goal: Goal = field(default_factory=Goal)
     method: Method = field(default_factory=Method)
     reference: Reference | None = None
+    scan: ScanGrid | None = None       # the [scan] grid (cubage.problem.scan_table), if any
 
     @property
     def dim(self) -> int:
@@ -192,6 +194,8 @@ class Problem:
             rows.append(("reference", f"{vt}  ({self.reference.source})"))
         else:
             rows.append(("reference", "none"))
+        if self.scan is not None:
+            rows.append(("scan", self.scan.describe()))
         return rows
 
 
@@ -364,9 +368,20 @@ def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bo
     goal = _parse_goal(ctx, tables.get("goal", {}))
     method = _parse_method(ctx, tables.get("method", {}), domain)
     reference = _parse_reference(ctx, tables["reference"], components) if "reference" in tables else None
+    scan = _parse_scan(ctx, data["scan"], spec) if "scan" in data else None
     return Problem(path=Path(pstr) if pstr is not None else None, text=text, title=title, notes=notes,
                    variables=variables, domain=domain, integrand=integrand, integrand_spec=spec,
-                   components=components, goal=goal, method=method, reference=reference)
+                   components=components, goal=goal, method=method, reference=reference, scan=scan)
+
+
+def _parse_scan(ctx, tbl, spec) -> ScanGrid:
+    """The [scan] table (format and checks in cubage.problem.scan_table)."""
+    if spec.get("kind") != "expr":
+        raise ctx.error("scan", None, "a scan varies [integrand] constants, which only an expr integrand has")
+    try:
+        return parse_scan_table(tbl, spec.get("constants") or {})
+    except ScanTableError as exc:
+        raise ctx.error("scan", exc.key, str(exc)) from None
 
 
 def _opt_str(ctx, tbl, table, key, default):

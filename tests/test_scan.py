@@ -1,0 +1,215 @@
+"""Scans (issue 14): the [scan] format, warm start, the order rule, resume, the CLI and the API.
+
+Expected integrals come from closed forms named beside each check.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import threading
+
+import mpmath
+import numpy as np
+import pytest
+
+import cubage
+from cubage.cli.commands import main
+from cubage.problem.problem_file import ProblemError, bundled_problem_dir, load_problem, parse_problem
+from cubage.problem.scan_table import MAX_POINTS
+from cubage.session.scan import ExprSource, coarsen, plan_chains, run_scan, scan_path
+
+BASE = """
+[domain]
+variables = ["x", "y", "z"]
+box = [[0, 1], [0, 1], [0, 1]]
+[integrand]
+expr = "exp(-a*(x*x + y*y + z*z)) * (1 + c*x)"
+constants = {{ a = 1.0, c = 0.0 }}
+[goal]
+rel_tol = 1e-8
+[scan]
+{scan}
+"""
+
+
+def _gauss_cube(a: float, c: float) -> float:
+    """Closed form: prod of 1-D factors; int_0^1 e^{-a t^2} dt = sqrt(pi/a)/2 erf(sqrt a) (A&S 7.1.1),
+    int_0^1 t e^{-a t^2} dt = (1 - e^{-a}) / (2a)."""
+    g = math.sqrt(math.pi / a) / 2 * math.erf(math.sqrt(a))
+    m1 = (1 - math.exp(-a)) / (2 * a)
+    return g**3 + c * m1 * g**2
+
+
+# --------------------------------------------------------------------------
+# the format
+# --------------------------------------------------------------------------
+
+def test_lists_ranges_and_grid():
+    p = parse_problem(BASE.format(scan='a = { log = [0.1, 10], count = 5 }\nc = [0.0, 0.5]'))
+    g = p.scan
+    assert g.names == ("a", "c") and g.shape == (5, 2) and g.size == 10
+    # log spacing: the ends as written, equal ratios between (common practice, as numpy.logspace)
+    np.testing.assert_allclose(g.axes[0], [0.1, 10**-0.5, 1.0, 10**0.5, 10.0], rtol=1e-15)
+    assert g.axes[0][0] == 0.1 and g.axes[0][-1] == 10.0
+    assert g.point(3) == {"a": g.axes[0][1], "c": 0.5}          # C order: the last key fastest
+    p = parse_problem(BASE.format(scan="a = { lin = [0.5, 3.0], count = 6 }"))
+    np.testing.assert_allclose(p.scan.axes[0], [0.5, 1.0, 1.5, 2.0, 2.5, 3.0], rtol=0, atol=1e-15)
+
+
+@pytest.mark.parametrize("scan,words", [
+    ("b = [1.0, 2.0]", "'b' is not a constant"),
+    ("a = []", "empty"),
+    ('a = [1.0, "two"]', "must be a number"),
+    ('a = "fast"', "list of numbers or a range"),
+    ("a = { lin = [0, 1], count = 400 }\nc = { lin = [0, 1], count = 300 }", "over the limit of 100,000"),
+    ("a = { log = [-1, 1], count = 3 }", "must be positive"),
+    ("a = { lin = [0, 1] }", "count"),
+])
+def test_bad_scans_are_one_line_exit_2(tmp_path, capsys, scan, words):
+    """issue 14 item 1: unknown constant, empty list, non-numeric, grid over 10^5 points -> one line, exit 2."""
+    f = tmp_path / "bad.toml"
+    f.write_text(BASE.format(scan=scan))
+    with pytest.raises(ProblemError) as e:
+        load_problem(f)
+    assert words in str(e.value) and "\n" not in str(e.value) and "[scan]" in str(e.value)
+    capsys.readouterr()
+    assert main(["run", str(f)]) == 2
+    err = capsys.readouterr().err
+    assert words in err and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+    assert 400 * 300 > MAX_POINTS
+
+
+def test_scan_of_python_integrand_is_refused(tmp_path):
+    text = BASE.format(scan="a = [1.0]").replace('expr = "exp(-a*(x*x + y*y + z*z)) * (1 + c*x)"\n', "")
+    text = text.replace("constants = { a = 1.0, c = 0.0 }", 'python = "m.py:f"')
+    with pytest.raises(ProblemError):
+        parse_problem(text, allow_python=True)
+
+
+# --------------------------------------------------------------------------
+# the order rule
+# --------------------------------------------------------------------------
+
+@pytest.mark.parametrize("shape", [(7,), (3, 4), (2, 3, 4)])
+def test_path_visits_every_point_once_through_neighbours(shape):
+    path = scan_path(shape)
+    assert sorted(path) == list(range(math.prod(shape)))
+    idx = np.array(np.unravel_index(path, shape)).T
+    steps = np.abs(np.diff(idx, axis=0)).sum(axis=1)
+    assert (steps == 1).all()                      # boustrophedon: one grid step at a time
+    chains = plan_chains(shape, 3)
+    assert [k for c in chains for k in c] == path and max(map(len, chains)) - min(map(len, chains)) <= 1
+
+
+def test_coarsen_keeps_a_partition_of_the_box():
+    """Merged boxes still tile the domain: volumes sum to the box's, and a polynomial integrates exactly."""
+    f = lambda X: np.exp(-20 * ((X - 0.3) ** 2).sum(1))
+    run = cubage.Run(f, cubage.Box([0, 0, 0], [2, 1, 1]), rel_tol=1e-9)
+    run.run()
+    part = run.partition()
+    merged = coarsen(part, np.full(len(part["centre"]), 1e-30), np.zeros(3), np.array([2.0, 1, 1]), 1.0)
+    assert len(merged["centre"]) < len(part["centre"]) / 4
+    vol = np.prod(2 * merged["halfw"], axis=1).sum()
+    assert vol == pytest.approx(2.0, rel=1e-14)
+    lo, hi = merged["centre"] - merged["halfw"], merged["centre"] + merged["halfw"]
+    # int x^2 y z over [0,2]x[0,1]^2 = (8/3)(1/2)(1/2) = 2/3 (elementary), box by box
+    mono = ((hi[:, 0] ** 3 - lo[:, 0] ** 3) / 3 * (hi[:, 1] ** 2 - lo[:, 1] ** 2) / 2
+            * (hi[:, 2] ** 2 - lo[:, 2] ** 2) / 2).sum()
+    assert mono == pytest.approx(2 / 3, rel=1e-13)
+
+
+# --------------------------------------------------------------------------
+# results
+# --------------------------------------------------------------------------
+
+def test_bundled_scan_every_point_against_closed_form():
+    """issue 14 item 9: orbital-overlap-scan, every point against S(R) = (pi/(a+b))^{3/2} exp(-ab R^2/(a+b))
+    (Gaussian product theorem, Boys 1950), evaluated with mpmath."""
+    p = load_problem(bundled_problem_dir() / "orbital-overlap-scan.toml")
+    c = p.integrand_spec["constants"]
+    a, b = mpmath.mpf(c["a"]), mpmath.mpf(c["b"])
+    source = ExprSource(p.integrand_spec, p.fingerprint())
+    res = run_scan(source, p.domain, p.scan, {"rel_tol": p.goal.rel_tol})
+    assert len(res.points) == p.scan.size == 21 and res.converged
+    for pt in res.points:
+        R = mpmath.mpf(pt.constants["R"])
+        exact = float((mpmath.pi / (a + b)) ** mpmath.mpf(1.5) * mpmath.exp(-a * b * R**2 / (a + b)))
+        assert abs(pt.value - exact) <= pt.error, (pt.constants, pt.value, exact, pt.error)
+
+
+def test_warm_and_cold_agree_within_their_errors():
+    """issue 14 item 3: every point, warm and cold, within the sum of their error estimates; both against
+    the closed form of _gauss_cube (erf, A&S 7.1.1)."""
+    f = lambda X, a, c: np.exp(-a * (X**2).sum(1)) * (1 + c * X[:, 0])
+    dom = cubage.Box([0, 0, 0], [1, 1, 1])
+    grid = {"a": np.linspace(0.5, 4.0, 8), "c": [0.0, 1.0]}
+    warm = cubage.scan(f, dom, grid, rel_tol=1e-8)
+    cold = cubage.scan(f, dom, grid, rel_tol=1e-8, warm=False)
+    assert warm.converged and cold.converged
+    assert any(p.warm_from is not None for p in warm.points) and all(p.warm_from is None for p in cold.points)
+    assert warm.evaluations < cold.evaluations
+    for w, k in zip(warm.points, cold.points):
+        assert w.constants == k.constants
+        assert abs(w.value - k.value) <= w.error + k.error
+        exact = _gauss_cube(w.constants["a"], w.constants["c"])
+        assert abs(w.value - exact) <= 10 * 1e-8 * exact        # 10x the goal: estimates are heuristic
+
+
+def test_table_and_json_shape():
+    f = lambda X, a: np.exp(-a * (X**2).sum(1))
+    res = cubage.scan(f, cubage.Box([0, 0], [1, 1]), {"a": [1.0, 2.0, 3.0]}, rel_tol=1e-9)
+    t = res.table
+    assert t.dtype.names == ("a", "value", "error", "evaluations", "status") and t.shape == (3,)
+    # closed form (sqrt(pi/a)/2 erf(sqrt a))^2 (A&S 7.1.1)
+    want = [(math.sqrt(math.pi / a) / 2 * math.erf(math.sqrt(a))) ** 2 for a in (1.0, 2.0, 3.0)]
+    np.testing.assert_allclose(t["value"], want, rtol=1e-8)
+    rec = json.loads(json.dumps(res.to_json()))
+    assert [p["constants"]["a"] for p in rec["points"]] == [1.0, 2.0, 3.0]
+    assert {"value", "error", "evaluations", "status", "warm_from"} <= set(rec["points"][0])
+    lines = res.csv_text().splitlines()
+    assert lines[0].startswith("index,a,value,error") and len(lines) == 4
+
+
+def test_same_results_for_any_worker_count():
+    """issue 14 item 4: chains run in worker processes give the same table as in-process, bit for bit."""
+    f = lambda X, a: np.cos(a * X.sum(1))
+    dom = cubage.Box([0, 0, 0], [1, 1, 1])
+    grid = {"a": np.linspace(0.5, 5.0, 12)}
+    one = cubage.scan(f, dom, grid, rel_tol=1e-7, chains=3, workers=1)
+    two = cubage.scan(f, dom, grid, rel_tol=1e-7, chains=3, workers=2)
+    assert [p.to_json() | {"seconds": 0} for p in one.points] == [p.to_json() | {"seconds": 0} for p in two.points]
+
+
+def _strip(points):
+    return [p.to_json() | {"seconds": 0} for p in points]
+
+
+def test_resume_mid_point_is_bit_identical(tmp_path):
+    """issue 14 item 5: a scan stopped mid-way (inside a point) and resumed gives the same table as an
+    uninterrupted scan, bit for bit."""
+    f = lambda X, a: 1.0 / (0.02 + ((X - np.array([a, 0.5, 0.5])) ** 2).sum(1))
+    dom = cubage.Box([0, 0, 0], [1, 1, 1])
+    grid = {"a": np.linspace(0.2, 0.8, 6)}
+    settings = {"rel_tol": 1e-7}
+    src = cubage.session.scan.CallableSource(f)
+    straight = run_scan(src, dom, cubage.session.scan.grid_from_mapping(grid), settings, chains=2)
+    g = cubage.session.scan.grid_from_mapping(grid)
+    stop = threading.Event()
+    steps = [0]
+
+    def on_step(job, run, now):       # stop inside the third point, after a few steps of it
+        if job.index == straight.points[0].index or len(done) < 2:
+            return
+        steps[0] += 1
+        if steps[0] == 5:
+            stop.set()
+
+    done = []
+    part = run_scan(src, dom, g, settings, chains=2, run_dir=tmp_path, on_step=on_step,
+                    on_point=lambda p, k, n: done.append(p), stop_event=stop, checkpoint_every=0)
+    assert part.stopped and 0 < len(part.points) < 6
+    assert list(tmp_path.glob("scan-current-*.npz"))            # the current point was checkpointed
+    resumed = run_scan(src, dom, g, settings, chains=2, run_dir=tmp_path)
+    assert not resumed.stopped and resumed.converged
+    assert _strip(resumed.points) == _strip(straight.points)
