@@ -56,6 +56,7 @@ class Box:
             raise DomainError(f"box scale must have one entry per axis ({lo.size}), got {sc.size}")
         if not (np.isfinite(sc).all() and (sc > 0).all()):
             raise DomainError("box scale entries must be positive finite numbers")
+        _check_box_size(lo, hi)
         for a in (lo, hi, sc):
             a.flags.writeable = False
         object.__setattr__(self, "lower", lo)
@@ -120,9 +121,18 @@ class Simplex:
         v = v.copy()
         v.flags.writeable = False
         object.__setattr__(self, "vertices", v)
+        with np.errstate(over="ignore", invalid="ignore"):
+            edges = np.linalg.norm(v[:, None, :] - v[None, :, :], axis=-1)
+            log_vol = _log_volume(v)
+        if not np.isfinite(edges).all() or log_vol > _LOG_MAX:
+            raise DomainError(f"{_OVERFLOW}: its edges or volume exceed 1.8e308")
+        if log_vol < _LOG_TINY:
+            raise DomainError(f"simplex is degenerate or {_UNDERFLOW}")
         vol = self.volume()
-        scale = max(float(np.max(np.linalg.norm(v[:, None, :] - v[None, :, :], axis=-1))), 1e-300)
-        if not vol > 1e-12 * scale ** self.dim / math.factorial(self.dim):
+        scale = max(float(np.max(edges)), 1e-300)
+        # the flatness test in logarithms, so that no power or factorial overflows in high dimension
+        d = self.dim
+        if not log_vol > math.log(1e-12) + d * math.log(scale) - math.lgamma(d + 1):
             raise DomainError(
                 f"simplex is degenerate (volume {vol:.3g}): its vertices lie in a lower-dimensional plane")
 
@@ -140,6 +150,8 @@ class Simplex:
     def volume(self) -> float:
         """Volume ``|det(v_1 - v_0, ..., v_d - v_0)| / d!``."""
         e = self.vertices[1:] - self.vertices[0]
+        if self.dim > 170:   # d! beyond a double: divide in logarithms
+            return float(math.exp(_log_volume(self.vertices)))
         return float(abs(np.linalg.det(e)) / math.factorial(self.dim))
 
     def describe(self) -> str:
@@ -148,6 +160,41 @@ class Simplex:
 
     def to_json(self) -> dict:
         return {"simplex": self.vertices.tolist()}
+
+
+_OVERFLOW = "the domain's volume overflows double precision"
+_UNDERFLOW = "the domain's volume underflows double precision (it rounds to zero)"
+_LOG_MAX = math.log(np.finfo(np.float64).max)
+_LOG_TINY = math.log(np.finfo(np.float64).tiny)
+
+
+def _check_box_size(lo: np.ndarray, hi: np.ndarray) -> None:
+    """Refuse finite axes whose width, or whose product of widths, is beyond double precision.
+
+    Infinite axes are mapped to finite ones and do not count.  Without this a box
+    such as ``[0, 1e308]^2`` ran into inf/NaN region volumes and stalled with
+    numpy warnings (issue 10 item 14).
+    """
+    fin = np.isfinite(lo) & np.isfinite(hi)
+    with np.errstate(over="ignore"):
+        width = hi[fin] - lo[fin]
+    if not np.isfinite(width).all():
+        i = int(np.nonzero(fin)[0][np.nonzero(~np.isfinite(width))[0][0]])
+        raise DomainError(f"{_OVERFLOW}: axis {i} is wider than 1.8e308")
+    if width.size:
+        log_vol = float(np.sum(np.log(width)))
+        if log_vol > _LOG_MAX:
+            raise DomainError(f"{_OVERFLOW}: the product of the widths exceeds 1.8e308")
+        if log_vol < _LOG_TINY:
+            raise DomainError(_UNDERFLOW)
+
+
+def _log_volume(v: np.ndarray) -> float:
+    """``log`` of the volume of the simplex with vertices ``v`` (``-inf`` when flat)."""
+    sign, logdet = np.linalg.slogdet(v[1:] - v[0])
+    if sign == 0 or not np.isfinite(logdet):
+        return -math.inf if sign == 0 or logdet < 0 else math.inf
+    return float(logdet - math.lgamma(v.shape[1] + 1))
 
 
 def _jnum(x: float):

@@ -27,12 +27,13 @@ import hashlib
 import json
 import keyword
 import math
+import unicodedata
 
 import numpy as np
 import scipy.special as sc
 
 __all__ = ["ExpressionError", "CompiledExpression", "compile_expression", "FUNCTIONS",
-           "RESERVED_NAMES", "function_names"]
+           "RESERVED_NAMES", "function_names", "normalise_name", "declared_name", "MAX_DEPTH"]
 
 
 class ExpressionError(ValueError):
@@ -180,6 +181,7 @@ _add("logaddexp", np.logaddexp, 2)
 
 #: Names with a fixed meaning that variables and constants may not take.
 RESERVED_NAMES = frozenset({"pi", "e"})
+_MAX_INT = int(np.finfo(np.float64).max)
 _BUILTIN_CONSTANTS = {"pi": np.float64(math.pi), "e": np.float64(math.e)}
 
 
@@ -248,6 +250,7 @@ class _Checker:
     def __init__(self, source: str, variables: list[str], constants: dict[str, float]):
         self.source = source
         self.variables = set(variables)
+        self.declared_variables = list(variables)
         self.constants = set(constants)
         self._encoded = source.encode("utf-8")
 
@@ -263,9 +266,6 @@ class _Checker:
             if getattr(node, "end_lineno", None) == getattr(node, "lineno", None):
                 end = self._col(node.end_col_offset)
         raise ExpressionError(reason, self.source, col, end)
-
-    def known_names(self):
-        return sorted(self.variables | self.constants | RESERVED_NAMES | set(FUNCTIONS))
 
     def check(self, node):
         meth = getattr(self, "visit_" + type(node).__name__, None)
@@ -287,7 +287,10 @@ class _Checker:
         if isinstance(v, bytes):
             self.fail("bytes literals are not allowed in an expression", node)
         if not isinstance(v, (int, float)):
-            self.fail(f"{v!r} is not allowed in an expression", node)
+            self.fail(f"{type(v).__name__} is not allowed in an expression", node)
+        if isinstance(v, int) and abs(v) > _MAX_INT:
+            self.fail(f"the number has {len(str(abs(v)))} digits, too large for a double-precision float "
+                      "(at most about 1.8e308)", node)
 
     def visit_Name(self, node):
         name = node.id
@@ -297,7 +300,12 @@ class _Checker:
             return
         if name in FUNCTIONS:
             self.fail(f"{name} is a function; call it, as in {name}(x)", node)
-        self.fail(f"unknown name '{name}'{_suggest(name, self.known_names())}", node)
+        # suggest among the names a bare word can mean, never a look-alike function (issue 10 item 21)
+        names = sorted(self.variables | self.constants | RESERVED_NAMES)
+        listed = f"; the variables are {', '.join(self.declared_variables)}"
+        if self.constants:
+            listed += f", the constants {', '.join(sorted(self.constants))}"
+        self.fail(f"unknown name '{name}'{_suggest(name, names)}{listed}", node)
 
     def visit_BinOp(self, node):
         if not isinstance(node.op, _BINOPS):
@@ -386,6 +394,8 @@ def _describe_forbidden(node) -> str:
 
 
 def _suggest(name: str, candidates) -> str:
+    if len(name) > 40:   # difflib is quadratic in the length; no name to suggest is that long
+        return ""
     close = difflib.get_close_matches(name, list(candidates), n=1, cutoff=0.6)
     return f"; did you mean '{close[0]}'?" if close else ""
 
@@ -436,25 +446,105 @@ class _Rewriter(ast.NodeTransformer):
 # the compiled object
 # --------------------------------------------------------------------------
 
+#: Deepest nesting of operators, calls and parentheses an expression may have.
+#: Python's own compiler gives up near 1000 levels on some inputs and the
+#: checks here walk the tree recursively, so the limit is set well below.
+MAX_DEPTH = 200
+
+
 def _flatten(source: str) -> str:
-    return " ".join(source.splitlines()).strip()
+    """One line: every ``# comment`` removed, the lines joined with a space.
+
+    A comment runs to the end of its line, as in Python, so
+    ``"x  # c\\n+ 1"`` is ``x + 1`` (issue 10 item 4).  Expressions hold no
+    strings, so a ``#`` always starts a comment.
+    """
+    return " ".join(line.partition("#")[0] for line in source.splitlines()).strip()
 
 
-def _check_names(variables, constants):
-    seen = set()
+def _depth(tree: ast.AST) -> int:
+    """Depth of the tree, measured without recursion."""
+    deepest = 0
+    stack = [(tree, 1)]
+    while stack:
+        node, d = stack.pop()
+        deepest = max(deepest, d)
+        if d > MAX_DEPTH:
+            break
+        stack.extend((child, d + 1) for child in ast.iter_child_nodes(node))
+    return deepest
+
+
+def normalise_name(name: str) -> str:
+    """``name`` as Python's parser reads it: identifiers are NFKC-normalised (PEP 3131).
+
+    So ``"ｘ"`` (full width) is ``"x"``, and ``"ℯ"`` (script e) and ``"ｅ"``
+    are ``"e"``.
+    """
+    return unicodedata.normalize("NFKC", name)
+
+
+def declared_name(name, what: str = "variable") -> str:
+    """Check a declared variable or constant name; return it NFKC-normalised.
+
+    The expression compiler (Python's parser) normalises every identifier
+    with NFKC, so a declared name is compared in that form too: a name that
+    normalises to a function, to ``pi`` or ``e``, to a keyword or to a name
+    starting with ``_`` is refused (issue 10 item 3).
+
+    Parameters
+    ----------
+    name : str
+        The name as written.
+    what : str
+        ``"variable"`` or ``"constant"`` (for the message).
+
+    Returns
+    -------
+    str
+        The normalised name.
+
+    Raises
+    ------
+    ExpressionError
+        With a one-line reason.
+    """
+    if not isinstance(name, str):
+        raise ExpressionError(f"{what} names must be strings, got {type(name).__name__}")
+    shown = name if len(name) <= 40 else name[:37] + "..."
+    if not name.isidentifier():
+        raise ExpressionError(f"{what} name {shown!r} is not a valid name "
+                              "(letters, digits and '_', not starting with a digit)")
+    norm = normalise_name(name)
+    reads = "" if norm == name else f" (it reads as '{norm}': Python normalises Unicode names, NFKC)"
+    if not norm.isidentifier() or keyword.iskeyword(norm):
+        raise ExpressionError(f"{what} name {shown!r} is not a valid name{reads}")
+    if norm.startswith("_"):
+        raise ExpressionError(f"{what} name '{shown}' may not start with '_'{reads}")
+    if norm in FUNCTIONS:
+        raise ExpressionError(f"{what} name '{shown}' is taken by the function {norm}(){reads}")
+    if norm in RESERVED_NAMES:
+        raise ExpressionError(f"{what} name '{shown}' is taken by the constant {norm}{reads}")
+    return norm
+
+
+def _check_names(variables, constants) -> tuple[list[str], dict[str, float]]:
+    """Normalised variables and constants; refuses invalid names and names that collide."""
+    seen: dict[str, str] = {}
+    out = []
     for kind, names in (("variable", variables), ("constant", list(constants))):
         for v in names:
-            if not isinstance(v, str) or not v.isidentifier() or keyword.iskeyword(v):
-                raise ExpressionError(f"{kind} name {v!r} is not a valid identifier")
-            if v.startswith("_"):
-                raise ExpressionError(f"{kind} name '{v}' may not start with '_'")
-            if v in FUNCTIONS:
-                raise ExpressionError(f"{kind} name '{v}' is taken by the function {v}()")
-            if v in RESERVED_NAMES:
-                raise ExpressionError(f"{kind} name '{v}' is taken by the constant {v}")
-            if v in seen:
-                raise ExpressionError(f"name '{v}' is declared twice")
-            seen.add(v)
+            n = declared_name(v, kind)
+            if n in seen:
+                first = seen[n]
+                if first == v:
+                    raise ExpressionError(f"name '{v}' is declared twice")
+                raise ExpressionError(f"names '{first}' and '{v}' are the same name once Unicode is "
+                                      f"normalised (NFKC, as Python reads them): '{n}'")
+            seen[n] = v
+            out.append(n)
+    nv = len(list(variables))
+    return out[:nv], {n: float(constants[k]) for n, k in zip(out[nv:], constants)}
 
 
 def _compile_one(source, variables, constants, index=None):
@@ -472,19 +562,28 @@ def _compile_one(source, variables, constants, index=None):
             # SyntaxError offsets count characters on the (single) line
             col = min(col, len(text))
         raise ExpressionError(f"syntax error: {exc.msg}", text, col, end, index=index) from None
-    except (ValueError, RecursionError, MemoryError) as exc:
-        raise ExpressionError(f"cannot parse the expression: {exc}", text, index=index) from None
+    except (RecursionError, MemoryError):
+        raise ExpressionError(_TOO_DEEP, text, index=index) from None
+    except ValueError as exc:
+        raise ExpressionError(f"cannot parse the expression: {' '.join(str(exc).split())}", text,
+                              index=index) from None
+    if _depth(tree) > MAX_DEPTH:
+        raise ExpressionError(_TOO_DEEP, text, index=index)
     try:
         _Checker(text, variables, constants).check(tree)
+        rw = _Rewriter()
+        tree = ast.fix_missing_locations(rw.visit(tree))
+        code = compile(tree, "<expression>", "eval")
     except ExpressionError as exc:
         exc.index = index
         raise
-    except RecursionError:
-        raise ExpressionError("the expression is nested too deeply", text, index=index) from None
-    rw = _Rewriter()
-    tree = ast.fix_missing_locations(rw.visit(tree))
-    code = compile(tree, "<expression>", "eval")
+    except (RecursionError, MemoryError):   # a caller with a deep stack of its own
+        raise ExpressionError(_TOO_DEEP, text, index=index) from None
     return text, code, rw.literals
+
+
+_TOO_DEEP = (f"the expression is nested too deeply (more than {MAX_DEPTH} levels of operators, "
+             "calls or parentheses)")
 
 
 class CompiledExpression:
@@ -496,9 +595,8 @@ class CompiledExpression:
     """
 
     def __init__(self, source, variables, constants=None):
-        variables = list(variables)
-        constants = {str(k): float(v) for k, v in (constants or {}).items()}
-        _check_names(variables, constants)
+        constants = {k: float(v) for k, v in (constants or {}).items()}
+        variables, constants = _check_names(list(variables), constants)
         self.source = list(source) if isinstance(source, (list, tuple)) else source
         self.variables = variables
         self.constants = constants

@@ -31,9 +31,8 @@ import importlib
 import importlib.resources
 import importlib.util
 import json
-import keyword
 import math
-import re
+import reprlib
 import sys
 import tomllib
 from collections.abc import Callable
@@ -43,7 +42,8 @@ from pathlib import Path
 import numpy as np
 
 from cubage.engine.domains import Box, DomainError, Simplex
-from cubage.problem.expr import FUNCTIONS, RESERVED_NAMES, ExpressionError, compile_expression
+from cubage.engine.rules import default_rule, rule_limit_error
+from cubage.problem.expr import ExpressionError, compile_expression, declared_name
 from cubage.problem.scan_table import ScanGrid, ScanTableError, parse_scan_table
 
 __all__ = [
@@ -219,60 +219,170 @@ def _tname(v) -> str:
     return f"a {type(v).__name__}"
 
 
+_REPR = reprlib.Repr()
+_REPR.maxstring = _REPR.maxother = 40
+_REPR.maxlist = 6
+_REPR.maxlevel = 3
+
+
+def _short(v) -> str:
+    """``repr(v)`` cut to a readable length (bounded cost, whatever ``v`` holds)."""
+    return _REPR.repr(v)
+
+
 def _is_number(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool)
 
 
 def _suggest(name: str, options) -> str:
+    if len(name) > 40:   # difflib is quadratic in the length; no valid name is that long
+        return ""
     close = difflib.get_close_matches(name, list(options), n=1, cutoff=0.6)
     return f"; did you mean '{close[0]}'?" if close else ""
 
 
-_HEADER = re.compile(r"^\s*\[\[?\s*([^\]]*?)\s*\]\]?\s*(#.*)?$")
-_KEY_PART = r"(?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*')"
-_KEYLINE = re.compile(rf"^\s*({_KEY_PART}(?:\s*\.\s*{_KEY_PART})*)\s*=")
+_BARE_KEY_CHARS = frozenset("ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789_-")
 
 
-def _split_key(k: str) -> list[str]:
-    parts = re.findall(r"\"[^\"]*\"|'[^']*'|[A-Za-z0-9_\-]+", k)
-    return [p[1:-1] if p[:1] in "\"'" else p for p in parts]
+def _skip_ws(s: str, i: int) -> int:
+    n = len(s)
+    while i < n and s[i] in " \t":
+        i += 1
+    return i
+
+
+def _read_key(s: str, i: int) -> tuple[list[str], int] | None:
+    """A (dotted) TOML key starting at ``s[i]``: its parts and the index after it, or None.
+
+    One pass over the characters (no regular expression), so it is linear in
+    the line length whatever the line holds.
+    """
+    n = len(s)
+    parts: list[str] = []
+    while True:
+        i = _skip_ws(s, i)
+        if i >= n:
+            return None
+        q = s[i]
+        if q in "\"'":
+            j = i + 1
+            while j < n and s[j] != q:
+                j += 2 if (q == '"' and s[j] == "\\") else 1
+            if j >= n:
+                return None
+            parts.append(s[i + 1:j])
+            i = j + 1
+        else:
+            j = i
+            while j < n and s[j] in _BARE_KEY_CHARS:
+                j += 1
+            if j == i:
+                return None
+            parts.append(s[i:j])
+            i = j
+        i = _skip_ws(s, i)
+        if i < n and s[i] == ".":
+            i += 1
+            continue
+        return parts, i
+
+
+class _ValueScan:
+    """Tracks, across lines, whether we are inside a multi-line array/table or string."""
+
+    def __init__(self):
+        self.depth = 0          # open [ and { of values
+        self.ml: str | None = None  # open multi-line string delimiter
+
+    @property
+    def inside(self) -> bool:
+        return self.depth > 0 or self.ml is not None
+
+    def scan(self, s: str, i: int = 0) -> None:
+        n = len(s)
+        while i < n:
+            if self.ml is not None:
+                if self.ml == '"""' and s[i] == "\\":
+                    i += 2
+                    continue
+                if s.startswith(self.ml, i):
+                    i += 3
+                    self.ml = None
+                    continue
+                i += 1
+                continue
+            c = s[i]
+            if c == "#":
+                return
+            if c in "\"'":
+                if s.startswith(c * 3, i):
+                    self.ml = c * 3
+                    i += 3
+                    continue
+                j = i + 1
+                while j < n and s[j] != c:
+                    j += 2 if (c == '"' and s[j] == "\\") else 1
+                i = j + 1
+                continue
+            if c in "[{":
+                self.depth += 1
+            elif c in "]}":
+                self.depth = max(0, self.depth - 1)
+            i += 1
+
+
+def _header_key(s: str) -> list[str] | None:
+    """The key of a ``[table]`` / ``[[array]]`` header line, or None when the line is not one."""
+    i = _skip_ws(s, 0)
+    if i >= len(s) or s[i] != "[":
+        return None
+    double = s.startswith("[[", i)
+    got = _read_key(s, i + (2 if double else 1))
+    if got is None:
+        return None
+    parts, j = got
+    close = "]]" if double else "]"
+    if not s.startswith(close, j):
+        return None
+    j = _skip_ws(s, j + len(close))
+    if j < len(s) and s[j] != "#":
+        return None
+    return parts
 
 
 def _locate(text: str, table: str | None, key: str | None = None) -> int | None:
     """1-based line of ``key =`` in ``[table]`` (or of the ``[table]`` header), if found.
 
-    tomllib reports no positions for valid documents, so this scans the text;
-    it understands ``[table]`` headers and (dotted) ``key = ...`` lines, which
-    covers the usual ways of writing a problem file.
+    tomllib reports no positions for valid documents, so this scans the text
+    once, character by character (linear in the size of the file, issue 10
+    item 7); it understands ``[table]`` headers, (dotted) ``key = ...`` lines
+    and values that span lines (arrays, inline tables, multi-line strings).
     """
     want = ([table] if table else []) + ([key] if key else [])
     current: list[str] = []
     header_line = None
-    in_multiline = None
+    values = _ValueScan()
     for i, line in enumerate(text.splitlines(), 1):
-        if in_multiline:
-            if in_multiline in line:
-                in_multiline = None
+        if values.inside:
+            values.scan(line)
             continue
-        m = _HEADER.match(line)
-        if m:
-            current = _split_key(m.group(1))
+        head = _header_key(line)
+        if head is not None:
+            current = head
             if table and current == [table] and header_line is None:
                 header_line = i
                 if key is None:
                     return i
             continue
-        m = _KEYLINE.match(line)
-        if m:
-            full = current + _split_key(m.group(1))
-            if key is not None and full == want:
-                return i
-            if key is None and table and full[:1] == [table] and header_line is None:
-                header_line = i
-            rest = line[m.end():]
-            for q in ('"""', "'''"):
-                if rest.count(q) == 1:
-                    in_multiline = q
+        got = _read_key(line, 0)
+        if got is None or got[1] >= len(line) or line[got[1]] != "=":
+            continue
+        full = current + got[0]
+        if key is not None and full == want:
+            return i
+        if key is None and table and full[:1] == [table] and header_line is None:
+            header_line = i
+        values.scan(line, got[1] + 1)
     return header_line
 
 
@@ -295,8 +405,44 @@ class _Ctx:
 # parsing
 # --------------------------------------------------------------------------
 
-_TOML_POS = re.compile(r"\s*\(at line (\d+), column (\d+)\)\s*$")
-_TOML_EOF = re.compile(r"\s*\(at end of document\)\s*$")
+def _toml_position(msg: str, text: str) -> tuple[str, int | None]:
+    """Split tomllib's "... (at line L, column C)" suffix off its message (no regular expression)."""
+    k = msg.rfind(" (at line ")
+    if k >= 0 and msg.endswith(")"):
+        line_s, _, col_s = msg[k + len(" (at line "):-1].partition(", column ")
+        if line_s.isdigit() and col_s.isdigit():
+            return msg[:k] + f" (column {col_s})", int(line_s)
+    if msg.endswith(" (at end of document)"):
+        return msg[:-len(" (at end of document)")] + " (at end of file)", max(1, len(text.splitlines()))
+    return msg, None
+
+
+#: How deeply tables and arrays may nest in a problem file (a problem needs 3).
+MAX_NESTING = 8
+#: Largest integer a problem file may hold: beyond it, no double can represent it.
+_MAX_INT = int(np.finfo(np.float64).max)
+
+
+def _check_values(ctx: _Ctx, data: dict) -> None:
+    """Refuse nesting deeper than :data:`MAX_NESTING` and integers too large for a double.
+
+    An iterative walk (no recursion), so a hostile file cannot exhaust the
+    stack here (issue 10 items 11 and 15i).
+    """
+    stack = [(v, (k,), 1) for k, v in data.items()]
+    while stack:
+        v, where, depth = stack.pop()
+        table, key = (where[0], where[1]) if len(where) > 1 else (None, where[0])
+        if depth > MAX_NESTING:
+            raise ctx.error(table, key, f"values nest more than {MAX_NESTING} levels deep; "
+                                        "a problem file needs at most 3")
+        if isinstance(v, dict):
+            stack.extend((x, where + (k,), depth + 1) for k, x in v.items())
+        elif isinstance(v, list):
+            stack.extend((x, where, depth + 1) for x in v)
+        elif isinstance(v, int) and not isinstance(v, bool) and abs(v) > _MAX_INT:
+            raise ctx.error(table, key, f"a whole number of {len(str(abs(v)))} digits is too large for a "
+                                        "double-precision float (at most about 1.8e308)")
 
 
 def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bool = False) -> Problem:
@@ -322,18 +468,14 @@ def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bo
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        msg = str(exc)
-        line = None
-        m = _TOML_POS.search(msg)
-        if m:
-            line = int(m.group(1))
-            msg = msg[:m.start()] + f" (column {m.group(2)})"
-        else:
-            m = _TOML_EOF.search(msg)
-            if m:
-                line = max(1, len(text.splitlines()))
-                msg = msg[:m.start()] + " (at end of file)"
+        msg, line = _toml_position(str(exc), text)
         raise ProblemError(f"TOML syntax error: {msg}", path=ctx.path, line=line) from None
+    except RecursionError:
+        raise ProblemError(f"TOML: arrays or tables nest too deeply (a problem file needs at most "
+                           f"{MAX_NESTING} levels)", path=ctx.path) from None
+    except ValueError as exc:   # e.g. an integer beyond Python's digit limit for str -> int
+        raise ProblemError(f"TOML: {' '.join(str(exc).split())}", path=ctx.path) from None
+    _check_values(ctx, data)
 
     for k in data:
         if k not in _TOP_KEYS:
@@ -393,18 +535,21 @@ def _opt_str(ctx, tbl, table, key, default):
     return v
 
 
-def _check_identifier(ctx, table, key, name, what):
-    if not isinstance(name, str):
-        raise ctx.error(table, key, f"{what} names must be strings, got {_tname(name)} {name!r}")
-    if not name.isidentifier() or keyword.iskeyword(name):
-        raise ctx.error(table, key, f"{what} name {name!r} is not a valid name "
-                                    "(letters, digits and '_', not starting with a digit)")
-    if name.startswith("_"):
-        raise ctx.error(table, key, f"{what} name '{name}' may not start with '_'")
-    if name in FUNCTIONS:
-        raise ctx.error(table, key, f"{what} name '{name}' is taken by the function {name}()")
-    if name in RESERVED_NAMES:
-        raise ctx.error(table, key, f"{what} name '{name}' is taken by the constant {name}")
+def _check_identifier(ctx, table, key, name, what) -> str:
+    """The declared ``name`` NFKC-normalised as Python reads it (issue 10 item 3), or a ProblemError."""
+    try:
+        return declared_name(name, what)
+    except ExpressionError as exc:
+        if not isinstance(name, str):
+            raise ctx.error(table, key, f"{what} names must be strings, got {_tname(name)} {_short(name)}") from None
+        raise ctx.error(table, key, exc.reason) from None
+
+
+def _same_name(first: str, second: str, norm: str) -> str:
+    if first == second:
+        return f"'{first}' is listed twice"
+    return (f"'{first}' and '{second}' are the same name once Unicode is normalised "
+            f"(NFKC, as Python reads them): '{norm}'")
 
 
 def _parse_domain(ctx, tbl):
@@ -414,12 +559,13 @@ def _parse_domain(ctx, tbl):
     if not isinstance(vs, list) or not vs:
         got = "an empty list" if isinstance(vs, list) else _tname(vs)
         raise ctx.error("domain", "variables", f"must be a non-empty list of names, got {got}")
-    seen = set()
+    seen: dict[str, str] = {}
     for v in vs:
-        _check_identifier(ctx, "domain", "variables", v, "variable")
-        if v in seen:
-            raise ctx.error("domain", "variables", f"variable '{v}' is listed twice")
-        seen.add(v)
+        n = _check_identifier(ctx, "domain", "variables", v, "variable")
+        if n in seen:
+            raise ctx.error("domain", "variables", "variable " + _same_name(seen[n], v, n))
+        seen[n] = v
+    vs = list(seen)
     d = len(vs)
     has_box, has_simplex = "box" in tbl, "simplex" in tbl
     if has_box and has_simplex:
@@ -437,10 +583,10 @@ def _parse_domain(ctx, tbl):
         for i, row in enumerate(rows):
             label = f"row {i + 1} (variable {vs[i]})"
             if not isinstance(row, list) or len(row) != 2:
-                raise ctx.error("domain", "box", f"{label} must be [low, high], got {row!r}")
+                raise ctx.error("domain", "box", f"{label} must be [low, high], got {_short(row)}")
             for b in row:
                 if not _is_number(b):
-                    raise ctx.error("domain", "box", f"{label}: bounds must be numbers, got {_tname(b)} {b!r}")
+                    raise ctx.error("domain", "box", f"{label}: bounds must be numbers, got {_tname(b)} {_short(b)}")
                 if isinstance(b, float) and math.isnan(b):
                     raise ctx.error("domain", "box", f"{label}: bound is NaN")
             a, b = float(row[0]), float(row[1])
@@ -453,11 +599,11 @@ def _parse_domain(ctx, tbl):
             sc = tbl["scale"]
             if not isinstance(sc, list) or len(sc) != d:
                 raise ctx.error("domain", "scale", f"must be a list of {d} positive numbers (one per variable), "
-                                                   f"got {sc!r}")
+                                                   f"got {_short(sc)}")
             for i, c in enumerate(sc):
                 if not _is_number(c) or not (math.isfinite(float(c)) and float(c) > 0):
                     raise ctx.error("domain", "scale", f"entry {i + 1} (variable {vs[i]}) must be a positive "
-                                                       f"finite number, got {c!r}")
+                                                       f"finite number, got {_short(c)}")
             scale = [float(c) for c in sc]
         try:
             dom = Box(lo, hi, scale=scale)
@@ -473,13 +619,13 @@ def _parse_domain(ctx, tbl):
         raise ctx.error("domain", "simplex", f"has {len(verts)} vertices; {d} variable(s) need {d + 1}")
     for i, row in enumerate(verts):
         if not isinstance(row, list) or len(row) != d:
-            raise ctx.error("domain", "simplex", f"vertex {i + 1} must be a list of {d} coordinates, got {row!r}")
+            raise ctx.error("domain", "simplex", f"vertex {i + 1} must be a list of {d} coordinates, got {_short(row)}")
         for c in row:
             if not _is_number(c):
                 raise ctx.error("domain", "simplex", f"vertex {i + 1}: coordinates must be numbers, "
-                                                     f"got {_tname(c)} {c!r}")
+                                                     f"got {_tname(c)} {_short(c)}")
             if not math.isfinite(float(c)):
-                raise ctx.error("domain", "simplex", f"vertex {i + 1}: coordinates must be finite, got {c!r}")
+                raise ctx.error("domain", "simplex", f"vertex {i + 1}: coordinates must be finite, got {_short(c)}")
     try:
         dom = Simplex([[float(c) for c in row] for row in verts])
     except DomainError as exc:
@@ -501,10 +647,15 @@ def _parse_integrand(ctx, tbl, variables, domain, base_dir, allow_python):
                                                       "a python integrand sets its own")
         if not isinstance(cs, dict):
             raise ctx.error("integrand", "constants", f"must be a table like {{ k = 2.5 }}, got {_tname(cs)}")
-        for k, v in cs.items():
-            _check_identifier(ctx, "integrand", "constants", k, "constant")
+        written: dict[str, str] = {}
+        for k0, v in cs.items():
+            k = _check_identifier(ctx, "integrand", "constants", k0, "constant")
             if k in variables:
-                raise ctx.error("integrand", "constants", f"constant '{k}' has the name of a variable")
+                also = "" if k == k0 else f" once Unicode is normalised (NFKC, as Python reads it): '{k}'"
+                raise ctx.error("integrand", "constants", f"constant '{k0}' has the name of a variable{also}")
+            if k in written:
+                raise ctx.error("integrand", "constants", "constant " + _same_name(written[k], k0, k))
+            written[k] = k0
             if not _is_number(v):
                 raise ctx.error("integrand", "constants", f"constant '{k}' must be a number, got {_tname(v)}")
             if not math.isfinite(float(v)):
@@ -538,7 +689,8 @@ def _parse_integrand(ctx, tbl, variables, domain, base_dir, allow_python):
         raise ctx.error("integrand", "python", f'must be a string "module:function" or "file.py:function", '
                                                f"got {_tname(target)}")
     if ":" not in target or not target.rsplit(":", 1)[1].strip() or not target.rsplit(":", 1)[0].strip():
-        raise ctx.error("integrand", "python", f'{target!r} must look like "module:function" or "file.py:function"')
+        raise ctx.error("integrand", "python",
+                        f'{_short(target)} must look like "module:function" or "file.py:function"')
     if not allow_python:
         raise ctx.error("integrand", "python", "this problem runs your own Python code; rerun with --allow-python "
                                                f"if you trust {ctx.path}")
@@ -653,7 +805,7 @@ def _python_fingerprint_spec(spec: dict) -> dict:
 
 def _num(ctx, table, key, v, *, positive=False, nonneg=False):
     if not _is_number(v):
-        raise ctx.error(table, key, f"must be a number, got {_tname(v)} {v!r}")
+        raise ctx.error(table, key, f"must be a number, got {_tname(v)} {_short(v)}")
     x = float(v)
     if math.isnan(x):
         raise ctx.error(table, key, "must be a number, got NaN")
@@ -680,7 +832,7 @@ def _parse_goal(ctx, tbl) -> Goal:
     if "budget" in tbl:
         v = tbl["budget"]
         if not isinstance(v, int) or isinstance(v, bool):
-            raise ctx.error("goal", "budget", f"must be a whole number like 10_000_000, got {_tname(v)} {v!r}")
+            raise ctx.error("goal", "budget", f"must be a whole number like 10_000_000, got {_tname(v)} {_short(v)}")
         if v <= 0:
             raise ctx.error("goal", "budget", f"must be positive, got {v}")
         g.budget = v
@@ -708,24 +860,30 @@ def _parse_method(ctx, tbl, domain) -> Method:
         if isinstance(domain, Box) and r == "grundmann-moller":
             raise ctx.error("method", "rule", "grundmann-moller is a rule for simplices; for a box use "
                                               "genz-malik or gauss-kronrod")
-        if r == "genz-malik" and d < 2:
-            raise ctx.error("method", "rule", "genz-malik needs at least 2 dimensions; "
-                                              "in 1-D use gauss-kronrod")
         m.rule = r
     if "degree" in tbl:
         v = tbl["degree"]
         if not isinstance(v, int) or isinstance(v, bool):
-            raise ctx.error("method", "degree", f"must be an odd whole number >= 3, got {_tname(v)} {v!r}")
+            raise ctx.error("method", "degree", f"must be an odd whole number >= 3, got {_tname(v)} {_short(v)}")
         if v < 3 or v % 2 == 0:
             raise ctx.error("method", "degree", f"must be odd and at least 3, got {v}")
         m.degree = v
+    # every rule family has a supported range of dimensions (and degrees): say which and why
+    rule = m.rule or default_rule(domain.kind, d)
+    problem = rule_limit_error(rule, d, m.degree)
+    if problem:
+        if m.degree is not None and rule_limit_error(rule, d) is None:
+            raise ctx.error("method", "degree", problem)
+        if m.rule is not None:
+            raise ctx.error("method", "rule", problem)
+        raise ctx.error("domain", "variables", f"{d} variables: {problem}")
     if "workers" in tbl:
         v = tbl["workers"]
         if isinstance(v, str):
             if v != "auto":
-                raise ctx.error("method", "workers", f'must be a whole number >= 1 or "auto", got {v!r}')
+                raise ctx.error("method", "workers", f'must be a whole number >= 1 or "auto", got {_short(v)}')
         elif not isinstance(v, int) or isinstance(v, bool):
-            raise ctx.error("method", "workers", f'must be a whole number >= 1 or "auto", got {_tname(v)} {v!r}')
+            raise ctx.error("method", "workers", f'must be a whole number >= 1 or "auto", got {_tname(v)} {_short(v)}')
         elif v < 1:
             raise ctx.error("method", "workers", f"must be at least 1, got {v}")
         m.workers = v
@@ -760,11 +918,11 @@ def _parse_reference(ctx, tbl, components) -> Reference:
         vals = []
         for x in v:
             if not _is_number(x) or math.isnan(float(x)):
-                raise ctx.error("reference", "value", f"entries must be numbers, got {_tname(x)} {x!r}")
+                raise ctx.error("reference", "value", f"entries must be numbers, got {_tname(x)} {_short(x)}")
             vals.append(float(x))
         return Reference(vals, src)
     if not _is_number(v) or math.isnan(float(v)):
-        raise ctx.error("reference", "value", f"must be a number, got {_tname(v)} {v!r}")
+        raise ctx.error("reference", "value", f"must be a number, got {_tname(v)} {_short(v)}")
     if components > 1:
         raise ctx.error("reference", "value", f"must be a list of {components} numbers (one per component)")
     return Reference(float(v), src)

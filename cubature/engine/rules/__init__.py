@@ -19,6 +19,7 @@ from functools import cache
 
 import numpy as np
 
+from . import gauss_kronrod, genz_malik, grundmann_moller
 from .base import BoxRule, SimplexRule, choose_axis
 from .gauss_kronrod import MAX_DIM as GAUSS_KRONROD_MAX_DIM
 from .gauss_kronrod import gauss_kronrod_rule
@@ -33,7 +34,7 @@ __all__ = [
     "RULE_NAMES", "BOX_RULES", "SIMPLEX_RULES", "BoxRule", "SimplexRule", "box_rule",
     "simplex_rule", "default_rule", "genz_malik_rule", "gauss_kronrod_rule",
     "grundmann_moller_rule", "bisect_simplices", "simplex_volumes", "choose_axis", "second_opinion",
-    "GAUSS_KRONROD_MAX_DIM",
+    "GAUSS_KRONROD_MAX_DIM", "rule_limit_error",
 ]
 
 
@@ -123,6 +124,37 @@ def _simplex_rule(name: str, dim: int, degree: int) -> SimplexRule:
     if name in BOX_RULES:
         raise ValueError(f"rule {name!r} is for boxes, not simplices; simplex rules: {', '.join(SIMPLEX_RULES)}")
     raise _unknown(name)
+
+
+def rule_limit_error(name: str, dim: int, degree: int | None = None) -> str | None:
+    """Why rule family ``name`` cannot serve dimension ``dim`` (and degree), without building it.
+
+    Each family has a supported range and says why (issue 10 items 6 and 8):
+    Genz-Malik 2..15 dimensions (``2^d`` nodes per region), tensor
+    Gauss-Kronrod 1..5 (``15^d``), Grundmann-Möller 1..20 dimensions and odd
+    degrees 3..15 with at most 15,000 nodes per region.
+
+    Parameters
+    ----------
+    name : str
+        Rule family (one of :data:`RULE_NAMES`).
+    dim : int
+        Dimension.
+    degree : int, optional
+        Degree of a simplex rule (default 7); ignored for box rules.
+
+    Returns
+    -------
+    str or None
+        A one-line reason, or None when the rule is supported.
+    """
+    if name == "genz-malik":
+        return None if 2 <= dim <= genz_malik.MAX_DIM else genz_malik.dimension_error(dim)
+    if name == "gauss-kronrod":
+        return None if 1 <= dim <= gauss_kronrod.MAX_DIM else gauss_kronrod.dimension_error(dim)
+    if name == "grundmann-moller":
+        return grundmann_moller.limit_error(dim, 7 if degree is None else degree)
+    return str(_unknown(name))
 
 
 def default_rule(kind: str, dim: int) -> str:

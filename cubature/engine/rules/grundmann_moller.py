@@ -64,6 +64,46 @@ def _gm_weights(d: int, s: int) -> dict:
     return out
 
 
+#: Highest degree: the weights alternate in sign and their absolute sum, which
+#: multiplies the rounding errors of the integrand values, roughly doubles with
+#: each step of 2 in degree (251 at degree 15 in 3-D, 1,190 at degree 19), so
+#: higher degrees lose more accuracy in double precision than they gain; the
+#: exact-fraction construction also grows fast (degree 10001 ran for minutes,
+#: issue 10 item 8).
+MAX_DEGREE = 15
+#: Highest dimension (nodes per region grow like ``d^s / s!``; 2,024 at
+#: degree 7 in 20-D).
+MAX_DIM = 20
+#: Most nodes per region of a buildable rule (degree 9 in 20-D has 12,650).
+MAX_NODES = 15_000
+
+
+def node_bound(dim: int, degree: int) -> int:
+    """Nodes of the degree-``degree`` rule before merging shared ones (an upper bound):
+    ``sum_{i=0..s} C(s - i + d, d)``, ``s = (degree - 1) / 2``."""
+    s = (int(degree) - 1) // 2
+    return sum(math.comb(s - i + int(dim), int(dim)) for i in range(s + 1))
+
+
+def limit_error(dim, degree) -> str | None:
+    """Why the rule of this dimension and degree is not supported (one line), or None."""
+    if int(dim) != dim or dim < 1 or dim > MAX_DIM:
+        return (f"grundmann-moller supports 1 to {MAX_DIM} dimensions, got {dim}: its nodes per region grow "
+                f"like d^s/s! and the absolute sum of its alternating weights, which multiplies rounding "
+                f"errors, grows with d")
+    if isinstance(degree, bool) or int(degree) != degree or degree < 3 or degree % 2 == 0:
+        return f"grundmann-moller degree must be an odd whole number from 3 to {MAX_DEGREE}, got {degree}"
+    if degree > MAX_DEGREE:
+        return (f"grundmann-moller supports odd degrees 3 to {MAX_DEGREE}, got {degree}: its weights alternate "
+                "in sign and their absolute sum, which multiplies rounding errors in the integrand values, "
+                f"roughly doubles with each step of 2 in degree (about 250 at degree {MAX_DEGREE} in 3-D)")
+    n = node_bound(dim, degree)
+    if n > MAX_NODES:
+        return (f"grundmann-moller of degree {degree} in {dim} dimensions has {n:,} nodes per region; at most "
+                f"{MAX_NODES:,} are supported, so lower the degree")
+    return None
+
+
 def grundmann_moller_rule(dim: int, degree: int = 7) -> SimplexRule:
     """Build the Grundmann–Möller rule of odd degree with its embedded partner.
 
@@ -87,7 +127,9 @@ def grundmann_moller_rule(dim: int, degree: int = 7) -> SimplexRule:
     Raises
     ------
     ValueError
-        If ``degree`` is not an odd integer ``>= 3`` or ``dim < 1``.
+        If ``degree`` is not an odd integer in ``3..MAX_DEGREE``, ``dim`` is
+        not in ``1..MAX_DIM`` or the rule would have more than ``MAX_NODES``
+        nodes (see :func:`limit_error`).
 
     Notes
     -----
@@ -99,10 +141,9 @@ def grundmann_moller_rule(dim: int, degree: int = 7) -> SimplexRule:
     Theorem 4.
     """
     d = int(dim)
-    if d != dim or d < 1:
-        raise ValueError(f"grundmann-moller needs dimension >= 1, got {dim}")
-    if int(degree) != degree or degree < 3 or degree % 2 == 0:
-        raise ValueError(f"grundmann-moller degree must be an odd integer >= 3, got {degree}")
+    problem = limit_error(dim, degree)
+    if problem:
+        raise ValueError(problem)
     s = (int(degree) - 1) // 2
     high = _gm_weights(d, s)
     low = _gm_weights(d, s - 1)
