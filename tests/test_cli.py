@@ -18,39 +18,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from cubage.cli.terminal_display import time_to_goal
+from cubage.session.forecast import time_to_goal
 
 ROOT = Path(__file__).resolve().parents[1]
-
-
-def cubage(*args, cwd=None, timeout=60, input=None):
-    """Run ``python -m cubage.cli.commands ARGS``; returns the CompletedProcess (text)."""
-    env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    env.pop("COLUMNS", None)
-    return subprocess.run([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=env,
-                          capture_output=True, text=True, timeout=timeout, input=input)
-
-
-class InProcess:
-    """What ``cubage.cli.commands.main`` returned and printed (for the big corpus: no interpreter start per case)."""
-
-    def __init__(self, argv, capsys):
-        from cubage.cli.commands import main
-        capsys.readouterr()
-        self.returncode = main([str(a) for a in argv])
-        cap = capsys.readouterr()
-        self.stdout, self.stderr = cap.out, cap.err
-
-
-@pytest.fixture
-def cli(capsys, monkeypatch):
-    """``cli(*argv, cwd=...)``: ``cubage.cli.commands.main`` in this process (fast), with its output captured."""
-    def call(*argv, cwd=None):
-        if cwd is not None:
-            monkeypatch.chdir(cwd)
-        return InProcess(argv, capsys)
-    return call
 
 
 def write(tmp_path: Path, name: str, text: str) -> Path:
@@ -95,7 +65,7 @@ def test_help_of_every_command_exits_zero(sub, cli):
     assert p.stderr == ""
 
 
-def test_top_level_help_in_a_real_process():
+def test_top_level_help_in_a_real_process(cubage):
     p = cubage("--help")
     assert p.returncode == 0, p.stderr
     assert p.stdout.startswith("usage: cubage")
@@ -103,7 +73,7 @@ def test_top_level_help_in_a_real_process():
         assert sub in p.stdout
 
 
-def test_version_is_the_package_version():
+def test_version_is_the_package_version(cubage):
     p = cubage("--version")
     # the version written in pyproject.toml
     version = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]["version"]
@@ -130,18 +100,19 @@ def _one_json(stdout: str) -> dict:
     return obj
 
 
-def test_json_prints_one_object_with_the_right_value(tmp_path):
+def test_json_prints_one_object_with_the_right_value(tmp_path, cubage):
     f = write(tmp_path, "xy.toml", XY)
     p = cubage("run", f, "--json", cwd=tmp_path)
     assert p.returncode == 0, p.stderr
     obj = _one_json(p.stdout)
-    for key in ("value", "error", "evaluations", "regions", "status", "seconds", "reference", "true_error"):
+    for key in ("schema", "problem", "value", "error", "evaluations", "regions", "status", "seconds", "reference",
+                "converged", "final", "settings"):
         assert key in obj, key
     # ∫_[0,1]^2 x y = 1/4 (product formula, common practice)
     assert obj["value"] == pytest.approx(0.25, rel=1e-12)
     assert obj["status"] == "converged"
-    assert obj["reference"] == 0.25
-    assert abs(obj["true_error"]) < 1e-12
+    assert obj["reference"]["value"] == 0.25 and obj["problem"]["name"] == "xy"
+    assert abs(obj["reference"]["true_error"]) < 1e-12
     assert obj["evaluations"] > 0 and obj["regions"] >= 1
 
 
@@ -217,7 +188,7 @@ def test_rule_option_changes_the_rule(tmp_path, cli):
 # exit codes 3 and 1
 # --------------------------------------------------------------------------
 
-def test_tiny_budget_exits_3_with_the_estimate(tmp_path):
+def test_tiny_budget_exits_3_with_the_estimate(tmp_path, cubage):
     f = write(tmp_path, "peak.toml", PEAK3)
     p = cubage("run", f, "--json", "--budget", "2000", cwd=tmp_path)
     assert p.returncode == 3, p.stderr
@@ -247,7 +218,7 @@ def test_summary_without_json_names_status_and_caution(tmp_path, cli):
     assert p.stderr.startswith("cubage| ")
 
 
-def test_nan_integrand_exits_1_naming_the_point(tmp_path):
+def test_nan_integrand_exits_1_naming_the_point(tmp_path, cubage):
     f = write(tmp_path, "nan.toml", """
 [domain]
 variables = ["x", "y"]
@@ -263,7 +234,7 @@ expr = "log(x - 0.5)"
     assert _one_json(p.stdout)["status"] == "failed"
 
 
-def test_python_integrand_that_raises_exits_1(tmp_path):
+def test_python_integrand_that_raises_exits_1(tmp_path, cubage):
     write(tmp_path, "mine.py", "import numpy as np\n"
                                "def f(X):\n"
                                "    if X.shape[0] > 10:\n"
@@ -311,10 +282,14 @@ def _bad_corpus():
 BAD_CORPUS = _bad_corpus()
 
 
-def _assert_bad(p, *needles):
+def _assert_bad(p, *needles, json_error: bool = False):
     assert p.returncode == 2, (p.returncode, p.stdout, p.stderr)
     assert "Traceback" not in p.stderr
-    assert p.stdout == ""
+    if json_error:     # --json: the error as one JSON object on stdout too (issue 10 item 20)
+        obj = _one_json(p.stdout)
+        assert obj["status"] == "error" and obj["exit_code"] == 2 and obj["message"] == p.stderr.splitlines()[0]
+    else:
+        assert p.stdout == ""
     lines = p.stderr.splitlines()
     assert lines, "no message"
     head = lines[0]
@@ -326,12 +301,12 @@ def _assert_bad(p, *needles):
     return head
 
 
-def test_shared_bad_input_corpus_through_the_cli(tmp_path, capsys):
+def test_shared_bad_input_corpus_through_the_cli(tmp_path, cli):
     assert len(BAD_CORPUS) >= 40
     for name, text, expected in BAD_CORPUS:
         f = write(tmp_path, f"{name}.toml", text)
         for cmd in ("run", "check"):
-            p = InProcess([cmd, f], capsys)
+            p = cli(cmd, f)
             try:
                 _assert_bad(p, f"{name}.toml", *expected)
             except AssertionError as exc:
@@ -339,10 +314,10 @@ def test_shared_bad_input_corpus_through_the_cli(tmp_path, capsys):
 
 
 @pytest.mark.parametrize("case", BAD_CORPUS[::40], ids=lambda c: c[0])
-def test_shared_bad_inputs_in_a_real_process(tmp_path, case):
+def test_shared_bad_inputs_in_a_real_process(tmp_path, case, cubage):
     name, text, expected = case
     f = write(tmp_path, "bad.toml", text)
-    _assert_bad(cubage("run", f, "--json", cwd=tmp_path), "bad.toml", *expected)
+    _assert_bad(cubage("run", f, "--json", cwd=tmp_path), "bad.toml", *expected, json_error=True)
 
 
 BAD_PROBLEMS = [
@@ -361,10 +336,10 @@ BAD_PROBLEMS = [
 
 
 @pytest.mark.parametrize("name,text,needle", BAD_PROBLEMS, ids=[c[0] for c in BAD_PROBLEMS])
-def test_bad_problem_files(tmp_path, capsys, name, text, needle):
+def test_bad_problem_files(tmp_path, cli, name, text, needle):
     f = write(tmp_path, "bad.toml", text)
     for cmd in ("run", "check"):
-        head = _assert_bad(InProcess([cmd, f], capsys), needle)
+        head = _assert_bad(cli(cmd, f), needle)
         assert "bad.toml" in head        # the message names the file
 
 
@@ -386,12 +361,12 @@ BAD_OPTIONS = [
 
 
 @pytest.mark.parametrize("opts,needle", BAD_OPTIONS, ids=[" ".join(o) for o, _ in BAD_OPTIONS])
-def test_bad_options(tmp_path, capsys, opts, needle):
+def test_bad_options(tmp_path, cli, opts, needle):
     f = write(tmp_path, "xy.toml", XY)
-    _assert_bad(InProcess(["run", f, *opts], capsys), needle)
+    _assert_bad(cli("run", f, *opts), needle)
 
 
-def test_bad_option_in_a_real_process(tmp_path):
+def test_bad_option_in_a_real_process(tmp_path, cubage):
     f = write(tmp_path, "xy.toml", XY)
     _assert_bad(cubage("run", f, "--budget", "lots", cwd=tmp_path), "--budget")
 

@@ -1,8 +1,8 @@
-"""Run directories: layout, lock, refusals, resume with a new goal, damaged checkpoints.
+"""Run directories: layout, lock, refusals, resume with a new goal, damaged checkpoints, the trail.
 
 Integral values are checked against closed forms named beside each check;
 file layout and exit codes against the run-directory contract (docs in
-cubature/rundir.py).
+cubature/session/run_directory.py).
 """
 
 from __future__ import annotations
@@ -13,39 +13,13 @@ import os
 import socket
 import subprocess
 import sys
-from pathlib import Path
 
 import numpy as np
 import pytest
 
 from cubage.engine.run import Snapshot
 from cubage.session.progress_records import record_to_snapshot
-from cubage.session.run_directory import ProgressLog, RunDir, RunDirError, pid_alive
-
-ROOT = Path(__file__).resolve().parents[1]
-
-
-def cubage(*args, cwd=None, timeout=60):
-    env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    return subprocess.run([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=env,
-                          capture_output=True, text=True, timeout=timeout)
-
-
-@pytest.fixture
-def cli(capsys, monkeypatch):
-    """``cubage.cli.commands.main`` in this process, output captured: (code, stdout, stderr)."""
-    from cubage.cli.commands import main
-
-    def call(*argv, cwd=None):
-        if cwd is not None:
-            monkeypatch.chdir(cwd)
-        capsys.readouterr()
-        code = main([str(a) for a in argv])
-        cap = capsys.readouterr()
-        return code, cap.out, cap.err
-    return call
-
+from cubage.session.run_directory import RunDir, RunDirError, TrailLog, pid_alive
 
 GAUSS2 = """
 title = "narrow 2-D Gaussian on a square"
@@ -81,29 +55,33 @@ def test_run_dir_layout(tmp_path, cli):
     d = tmp_path / "runs" / "one"
     code, out, err = cli("run", prob, "--run-dir", d, "--json")
     assert code == 0, err
-    for name in ("problem.toml", "run.json", "checkpoint.npz", "progress.jsonl", "result.json"):
+    for name in ("source.toml", "ledger.json", "partition.npz", "trail.jsonl", "verdict.json"):
         assert (d / name).is_file(), name
-    assert not (d / "lock").exists()                  # released at the end
-    assert (d / "problem.toml").read_text() == prob.read_text()
-    info = json.loads((d / "run.json").read_text())
-    for key in ("cubage_version", "started", "host", "pid", "settings", "overrides", "problem_fingerprint"):
+    assert not (d / "occupant.json").exists()                  # released at the end
+    assert (d / "source.toml").read_text() == prob.read_text()
+    info = json.loads((d / "ledger.json").read_text())
+    for key in ("layout", "settings", "overrides", "problem_fingerprint", "sessions"):
         assert key in info, key
-    assert info["host"] == socket.gethostname()
-    res = json.loads((d / "result.json").read_text())
+    for key in ("cubage_version", "started", "host", "pid"):
+        assert key in info["sessions"][0], key
+    assert info["sessions"][0]["host"] == socket.gethostname()
+    res = json.loads((d / "verdict.json").read_text())
     assert res["status"] == "converged"
     assert res["value"] == pytest.approx(_gauss_exact(), rel=1e-6)
     assert res == json.loads(out)                     # --json prints the same record
-    recs = [json.loads(line) for line in (d / "progress.jsonl").read_text().splitlines()]
-    assert recs and all(r["kind"] == "snapshot" for r in recs)
+    recs = [json.loads(line) for line in (d / "trail.jsonl").read_text().splitlines()]
+    assert recs and all(r["kind"] == "tick" for r in recs)
     assert recs[-1]["status"] == "converged"
     hist = None
     snap = None
+    the_map = json.loads((d / "trail-map.json").read_text())
     for r in recs:
-        snap = record_to_snapshot(r, history=hist, previous=snap)
+        snap = record_to_snapshot(r, history=hist, map_rec=the_map, previous=snap)
         hist = snap.history
     assert isinstance(snap, Snapshot)
     assert snap.value[0] == pytest.approx(res["value"], rel=1e-12)
-    assert recs[0]["map"] is not None                 # the first line carries the region map
+    assert the_map["kind"] == "map" and len(the_map["map"]["centres"]) > 0    # the map lives beside the trail
+    assert all("map" not in r and "top" not in r for r in recs)
 
 
 def test_run_refuses_a_dir_of_another_problem(tmp_path, cli):
@@ -144,13 +122,13 @@ def test_locked_dir_refuses_naming_the_pid(tmp_path, cli):
     d.mkdir()
     holder = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
     try:
-        (d / "lock").write_text(json.dumps({"pid": holder.pid, "host": socket.gethostname(),
+        (d / "occupant.json").write_text(json.dumps({"pid": holder.pid, "host": socket.gethostname(),
                                             "started": "2026-01-01T00:00:00"}))
         code, out, err = cli("run", a, "--run-dir", d)
         assert code == 2 and out == ""
         assert len(err.splitlines()) == 1 and f"pid {holder.pid}" in err
         # the lock is left alone
-        assert json.loads((d / "lock").read_text())["pid"] == holder.pid
+        assert json.loads((d / "occupant.json").read_text())["pid"] == holder.pid
     finally:
         holder.kill()
         holder.wait()
@@ -164,17 +142,17 @@ def test_stale_lock_is_taken_over(tmp_path, cli):
     gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
     pid = int(gone.stdout)
     assert not pid_alive(pid)
-    (d / "lock").write_text(json.dumps({"pid": pid, "host": socket.gethostname(), "started": "earlier"}))
+    (d / "occupant.json").write_text(json.dumps({"pid": pid, "host": socket.gethostname(), "started": "earlier"}))
     code, out, err = cli("run", a, "--run-dir", d, "--json")
     assert code == 0, err
     assert f"stale lock of pid {pid}" in err
-    assert not (d / "lock").exists()
+    assert not (d / "occupant.json").exists()
 
 
 def test_lock_of_another_host_is_respected(tmp_path):
     d = tmp_path / "rd"
     d.mkdir()
-    (d / "lock").write_text(json.dumps({"pid": 1, "host": "some-other-machine", "started": "t"}))
+    (d / "occupant.json").write_text(json.dumps({"pid": 1, "host": "some-other-machine", "started": "t"}))
     with pytest.raises(RunDirError, match="pid 1 on host some-other-machine"):
         RunDir(d).acquire()
 
@@ -184,10 +162,10 @@ def test_lock_is_exclusive_within_one_process_pair(tmp_path):
     d.mkdir()
     first = RunDir(d)
     first.acquire()
-    held = json.loads((d / "lock").read_text())
+    held = json.loads((d / "occupant.json").read_text())
     assert held["pid"] == os.getpid() and held["host"] == socket.gethostname()
     first.release()
-    assert not (d / "lock").exists()
+    assert not (d / "occupant.json").exists()
 
 
 def test_truncated_checkpoint_is_a_clear_error_on_resume(tmp_path, cli):
@@ -195,13 +173,13 @@ def test_truncated_checkpoint_is_a_clear_error_on_resume(tmp_path, cli):
     a.write_text(GAUSS2)
     d = tmp_path / "rd"
     assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
-    ck = d / "checkpoint.npz"
+    ck = d / "partition.npz"
     data = ck.read_bytes()
     ck.write_bytes(data[: len(data) // 2])
     code, out, err = cli("resume", d)
     assert code == 2 and out == ""
-    assert len(err.splitlines()) == 1 and "checkpoint.npz" in err and "truncated or corrupted" in err
-    assert not (d / "lock").exists()
+    assert len(err.splitlines()) == 1 and "partition.npz" in err and "truncated or corrupted" in err
+    assert not (d / "occupant.json").exists()
 
 
 def test_checkpoint_of_another_problem_is_refused(tmp_path, cli):
@@ -211,7 +189,7 @@ def test_checkpoint_of_another_problem_is_refused(tmp_path, cli):
     da, db = tmp_path / "ra", tmp_path / "rb"
     assert cli("run", a, "--run-dir", da, "--budget", "3000")[0] == 3
     assert cli("run", b, "--run-dir", db, "--budget", "700")[0] == 3
-    (da / "checkpoint.npz").write_bytes((db / "checkpoint.npz").read_bytes())
+    (da / "partition.npz").write_bytes((db / "partition.npz").read_bytes())
     code, _, err = cli("resume", da)
     assert code == 2 and len(err.splitlines()) == 1 and "another problem" in err
 
@@ -219,8 +197,8 @@ def test_checkpoint_of_another_problem_is_refused(tmp_path, cli):
 def test_resume_without_checkpoint_says_how_to_start(tmp_path, cli):
     d = tmp_path / "rd"
     d.mkdir()
-    (d / "run.json").write_text("{}")
-    (d / "problem.toml").write_text(GAUSS2)
+    (d / "ledger.json").write_text('{"layout": "cubage-run-dir 2"}')
+    (d / "source.toml").write_text(GAUSS2)
     code, _, err = cli("resume", d)
     assert code == 2 and "no checkpoint yet" in err and "cubage run" in err
 
@@ -245,46 +223,46 @@ def test_resume_with_a_budget_then_a_tighter_goal(tmp_path, cli):
     assert res2["evaluations"] > res["evaluations"]
     assert res2["error"] <= 1e-12 * abs(res2["value"])
     assert res2["value"] == pytest.approx(_gauss_exact(), rel=1e-11)
-    info = json.loads((d / "run.json").read_text())
-    assert len(info["resumes"]) == 3
-    assert info["resumes"][-1]["overrides"] == {"rel_tol": 1e-12}
-    # the log got appended to, its history never repeats a row
-    rows = [row[0] for line in (d / "progress.jsonl").read_text().splitlines()
-            for row in json.loads(line)["history"]]
+    info = json.loads((d / "ledger.json").read_text())
+    assert len(info["sessions"]) == 4 and [e["command"] for e in info["sessions"]] == ["run"] + ["resume"] * 3
+    assert info["sessions"][-1]["overrides"] == {"rel_tol": 1e-12}
+    # the trail got appended to, its history never repeats a row
+    rows = [row[0] for line in (d / "trail.jsonl").read_text().splitlines()
+            for row in json.loads(line)["rows"]]
     assert rows == sorted(rows) and len(rows) == len(set(rows))
 
 
-def test_progress_log_skips_rows_already_written(tmp_path):
-    class Snap:   # the fields snapshot_to_record reads
-        step, evaluations, regions, elapsed, rate, status, message = 1, 0, 1, 0.0, 0.0, "running", ""
-        value = error = goal = np.ones(1)
-        rel_tol, abs_tol, budget = 1e-6, 0.0, 100
-        top = ()
-        depth_error = np.zeros(1)
-        map_centres = map_sizes = np.zeros((0, 1))
-        map_lower, map_upper = np.zeros(1), np.ones(1)
+class _Snap:   # the fields trail_line and map_record read
+    step, evaluations, regions, elapsed, rate, status, message = 1, 0, 1, 0.0, 0.0, "running", ""
+    value = error = goal = np.ones(1)
+    rel_tol, abs_tol, budget = 1e-6, 0.0, 100
+    top = ()
+    depth_error = np.zeros(1)
+    map_centres = map_sizes = np.zeros((0, 1))
+    map_lower, map_upper = np.zeros(1), np.ones(1)
+    components = 1
 
-    log = ProgressLog(tmp_path / "p.jsonl", after_evaluations=20.0)
-    s = Snap()
+
+def test_trail_skips_rows_already_written(tmp_path):
+    log = TrailLog(RunDir(tmp_path), after_evaluations=20.0)
+    s = _Snap()
     s.history = np.array([[10.0, 1, 1, 1], [20.0, 1, 1, 1], [30.0, 1, 1, 1]])
     log.write(s)
     s.history = np.array([[20.0, 1, 1, 1], [30.0, 1, 1, 1], [40.0, 1, 1, 1]])   # thinned + one new row
     log.write(s)
     log.close()
-    recs = [json.loads(x) for x in (tmp_path / "p.jsonl").read_text().splitlines()]
-    assert [r[0] for r in recs[0]["history"]] == [30.0]
-    assert [r[0] for r in recs[1]["history"]] == [40.0]
-    assert recs[0]["map"] is not None and recs[1]["map"] is None
+    recs = [json.loads(x) for x in (tmp_path / "trail.jsonl").read_text().splitlines()]
+    assert [r[0] for r in recs[0]["rows"]] == [30.0]
+    assert [r[0] for r in recs[1]["rows"]] == [40.0]
+    assert json.loads((tmp_path / "trail-map.json").read_text())["kind"] == "map"
 
 
-def test_progress_log_repairs_a_cut_last_line(tmp_path):
-    p = tmp_path / "p.jsonl"
-    p.write_text('{"kind": "snapshot", "history": [[5.0, 1, 1, 1]]}\n{"kind": "snaps')
+def test_trail_repairs_a_cut_last_line(tmp_path):
+    p = tmp_path / "trail.jsonl"
+    p.write_text('{"kind": "tick", "rows": [[5.0, 1, 1, 1]]}\n{"kind": "ti')
     d = RunDir(tmp_path)
-    assert (tmp_path / "progress.jsonl").exists() is False
-    p.rename(tmp_path / "progress.jsonl")
     assert d.last_logged_evaluations() == 5.0
-    log = ProgressLog(tmp_path / "progress.jsonl")
+    log = TrailLog(d)
     log._fh.write("{}\n")
     log.close()
-    assert (tmp_path / "progress.jsonl").read_text().splitlines()[-1] == "{}"
+    assert p.read_text().splitlines()[-1] == "{}"

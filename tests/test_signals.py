@@ -11,15 +11,11 @@ from __future__ import annotations
 import json
 import os
 import signal
-import subprocess
-import sys
 import threading
 import time
 from pathlib import Path
 
 import pytest
-
-ROOT = Path(__file__).resolve().parents[1]
 
 # ~4 s of work on one core (6e7 evaluations): a 4-D Gaussian times a narrow Lorentzian ridge (no closed
 # form needed: the checks compare runs with each other, and with scipy below)
@@ -40,49 +36,21 @@ ENDLESS = SLOW.replace("rel_tol = 3e-9", "rel_tol = 1e-13")
 assert ENDLESS != SLOW
 
 
-def _env():
-    env = dict(os.environ)
-    env["PYTHONPATH"] = str(ROOT) + os.pathsep + env.get("PYTHONPATH", "")
-    return env
-
-
-def start(*args, cwd):
-    return subprocess.Popen([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=_env(),
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-
-
-def cubage(*args, cwd, timeout=120):
-    return subprocess.run([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=_env(),
-                          capture_output=True, text=True, timeout=timeout)
-
-
-def wait_for(cond, proc, timeout=60.0, what="condition"):
-    t0 = time.monotonic()
-    while not cond():
-        if proc.poll() is not None:
-            out, err = proc.communicate()
-            pytest.fail(f"process ended (rc {proc.returncode}) before {what}: {err[-2000:]}")
-        if time.monotonic() - t0 > timeout:
-            proc.kill()
-            pytest.fail(f"timed out waiting for {what}")
-        time.sleep(0.05)
-
-
 def progress_lines(d: Path) -> int:
     try:
-        return len((d / "progress.jsonl").read_text().splitlines())
+        return len((d / "trail.jsonl").read_text().splitlines())
     except OSError:
         return 0
 
 
 @pytest.fixture(scope="module")
-def work(tmp_path_factory):
+def work(tmp_path_factory, cubage):
     """The problem file, and an uninterrupted run of it started in the background."""
     base = tmp_path_factory.mktemp("signals")
     prob = base / "slow.toml"
     prob.write_text(SLOW)
-    ref = start("run", prob, "--json", cwd=base)
-    state = {"base": base, "prob": prob, "proc": ref, "result": None}
+    ref = cubage.start("run", prob, "--json", cwd=base)
+    state = {"base": base, "prob": prob, "proc": ref, "result": None, "cubage": cubage}
     yield state
     if ref.poll() is None:
         ref.kill()
@@ -99,31 +67,32 @@ def reference_result(work) -> dict:
 
 def _history_rows(d: Path) -> list[float]:
     rows = []
-    for line in (d / "progress.jsonl").read_text().splitlines():
+    for line in (d / "trail.jsonl").read_text().splitlines():
         try:
             rec = json.loads(line)
         except ValueError:
             continue          # a line cut by kill -9
-        rows += [r[0] for r in rec["history"]]
+        rows += [r[0] for r in rec["rows"]]
     return rows
 
 
 def test_sigterm_then_resume_gives_the_same_bits(work):
     d = work["base"] / "term"
-    p = start("run", work["prob"], "--json", "--run-dir", d, cwd=work["base"])
-    wait_for(lambda: progress_lines(d) >= 2, p, what="two progress lines")
+    p = work["cubage"].start("run", work["prob"], "--json", "--run-dir", d, cwd=work["base"])
+    work["cubage"].wait_for(lambda: progress_lines(d) >= 2, p, what="two progress lines")
     p.send_signal(signal.SIGTERM)
     out, err = p.communicate(timeout=60)
     assert p.returncode == 3, err
     stopped = json.loads(out)
     assert stopped["status"] == "stopped" and stopped["stopped_by"] == "SIGTERM"
-    res = json.loads((d / "result.json").read_text())
+    res = json.loads((d / "verdict.json").read_text())
     assert res["status"] == "stopped" and res["value"] == stopped["value"]
-    assert (d / "checkpoint.npz").is_file() and not (d / "lock").exists()
+    assert (d / "partition.npz").is_file() and not (d / "occupant.json").exists()
 
-    r = start("resume", d, "--json", cwd=work["base"])
+    r = work["cubage"].start("resume", d, "--json", cwd=work["base"])
     # while the resumed run works, the stopped run's ending is gone (a watcher must not show it)
-    wait_for(lambda: (d / "lock").exists() and not (d / "result.json").exists(), r, what="the resume to start")
+    work["cubage"].wait_for(lambda: (d / "occupant.json").exists() and not (d / "verdict.json").exists(), r,
+                            what="the resume to start")
     out, err = r.communicate(timeout=120)
     assert r.returncode == 0, err
     done = json.loads(out)
@@ -133,23 +102,23 @@ def test_sigterm_then_resume_gives_the_same_bits(work):
     assert done["value"] == ref["value"]
     assert done["error"] == ref["error"]
     assert done["evaluations"] == ref["evaluations"] and done["regions"] == ref["regions"]
-    assert json.loads((d / "result.json").read_text())["status"] == "converged"
+    assert json.loads((d / "verdict.json").read_text())["status"] == "converged"
     rows = _history_rows(d)
     assert rows == sorted(set(rows))          # appended to the same log, no row twice
 
 
 def test_kill_9_after_a_checkpoint_then_resume_gives_the_same_bits(work):
     d = work["base"] / "kill"
-    p = start("run", work["prob"], "--run-dir", d, "--checkpoint-every", "0.5", cwd=work["base"])
-    wait_for(lambda: (d / "checkpoint.npz").is_file(), p, what="the first checkpoint")
+    p = work["cubage"].start("run", work["prob"], "--run-dir", d, "--checkpoint-every", "0.5", cwd=work["base"])
+    work["cubage"].wait_for(lambda: (d / "partition.npz").is_file(), p, what="the first checkpoint")
     time.sleep(0.3)
     p.send_signal(signal.SIGKILL)
     p.communicate(timeout=30)
     assert p.returncode == -signal.SIGKILL
-    assert (d / "lock").is_file()             # nobody cleaned up: a stale lock
-    assert not (d / "result.json").exists()
+    assert (d / "occupant.json").is_file()             # nobody cleaned up: a stale lock
+    assert not (d / "verdict.json").exists()
 
-    r = cubage("resume", d, "--json", cwd=work["base"])
+    r = work["cubage"]("resume", d, "--json", cwd=work["base"], timeout=120)
     assert r.returncode == 0, r.stderr
     assert "stale lock" in r.stderr
     done = json.loads(r.stdout)
@@ -176,20 +145,20 @@ def test_value_agrees_with_scipy(work):
     assert ref["value"] == pytest.approx(xy * zw, rel=1e-7)
 
 
-def test_stop_request_file_stops_with_exit_3(tmp_path):
+def test_stop_request_file_stops_with_exit_3(tmp_path, cubage):
     prob = tmp_path / "endless.toml"
     prob.write_text(ENDLESS)
     d = tmp_path / "rd"
-    p = start("run", prob, "--json", "--run-dir", d, cwd=tmp_path)
-    wait_for(lambda: progress_lines(d) >= 1, p, what="the first progress line")
-    (d / "stop-request").touch()
+    p = cubage.start("run", prob, "--json", "--run-dir", d, cwd=tmp_path)
+    cubage.wait_for(lambda: progress_lines(d) >= 1, p, what="the first progress line")
+    (d / "halt-request").touch()
     out, err = p.communicate(timeout=60)
     assert p.returncode == 3, err
     res = json.loads(out)
-    assert res["status"] == "stopped" and res["stopped_by"] == "stop-request"
-    assert json.loads((d / "result.json").read_text())["status"] == "stopped"
-    assert (d / "checkpoint.npz").is_file()
-    assert not (d / "stop-request").exists()      # consumed, so a resume is not stopped at once
+    assert res["status"] == "stopped" and res["stopped_by"] == "halt-request"
+    assert json.loads((d / "verdict.json").read_text())["status"] == "stopped"
+    assert (d / "partition.npz").is_file()
+    assert not (d / "halt-request").exists()      # consumed, so a resume is not stopped at once
 
 
 def _in_process_with_signal(argv, signum, after, capsys):
@@ -226,5 +195,5 @@ def test_sighup_with_run_dir_checkpoints_and_stops(tmp_path, capsys):
     assert code == 3, err
     res = json.loads(out)
     assert res["stopped_by"] == "SIGHUP"
-    assert json.loads((d / "result.json").read_text())["status"] == "stopped"
-    assert (d / "checkpoint.npz").is_file() and not (d / "lock").exists()
+    assert json.loads((d / "verdict.json").read_text())["status"] == "stopped"
+    assert (d / "partition.npz").is_file() and not (d / "occupant.json").exists()

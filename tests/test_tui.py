@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 
 from cubage import Box, Run
-from cubage.session.progress_records import snapshot_to_record
+from cubage.session.progress_records import map_record, new_rows, trail_line
 from cubage.tui.app import CubageApp, collect_files, main
 from cubage.tui.confirm import AskModal
 from cubage.tui.follow import RunDirFollower
@@ -303,31 +303,35 @@ def test_layout_scales_up(probs):
 # --------------------------------------------------------------------------
 
 def _write_records(run_obj: Run, path: Path, n_lines: int) -> int:
-    done = 0
+    done = -1.0
+    rows = 0
     with open(path, "a") as fh:
         for k, snap in enumerate(run_obj):
-            rec = snapshot_to_record(snap, history_from=done, with_map=(k % 5 == 0))
-            done = len(snap.history)
-            fh.write(json.dumps(rec) + "\n")
+            if k == 0:
+                (path.parent / "trail-map.json").write_text(json.dumps(map_record(snap)))
+            new = new_rows(snap.history, done, limit=10**6)
+            rows += len(new)
+            done = snap.history[-1, 0]
+            fh.write(json.dumps(trail_line(snap, new)) + "\n")
             if k + 1 >= n_lines:
                 break
-    return done
+    return rows
 
 
 def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
     f = lambda X: np.abs(X[:, 0] - X[:, 1])  # noqa: E731
     r = Run(f, Box([0, 0], [1, 1]), rel_tol=1e-15, budget=10**9, snapshot_interval=0.0, batch=1)
-    prog = tmp_path / "progress.jsonl"
+    prog = tmp_path / "trail.jsonl"
     rows = _write_records(r, prog, 6)
     fol = RunDirFollower(tmp_path)
     # round trip: the follower's rebuilt state must equal the live run's own counters
     assert fol.poll() == 6
     assert fol.snapshot.evaluations == r.evaluations
     assert len(fol.snapshot.history) == rows               # rows accumulated over all records
-    assert fol.snapshot.map_centres.shape[1] == 2         # map kept from an earlier record
+    assert fol.snapshot.map_centres.shape[1] == 2         # map read from trail-map.json
     # half a line is held back until the rest arrives
     snap = r.snapshot()
-    line = json.dumps(snapshot_to_record(snap, history_from=rows)) + "\n"
+    line = json.dumps(trail_line(snap)) + "\n"
     with open(prog, "a") as fh:
         fh.write(line[:40])
     assert fol.poll() == 0
@@ -335,11 +339,11 @@ def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
         fh.write(line[40:])
     assert fol.poll() == 1 and fol.bad_lines == 0
     assert fol.result is None
-    (tmp_path / "result.json").write_text(json.dumps({"status": "stopped", "value": 0.3, "error": 0.1}))
+    (tmp_path / "verdict.json").write_text(json.dumps({"status": "stopped", "value": 0.3, "error": 0.1}))
     fol.poll()
     assert fol.result["status"] == "stopped"
     p = fol.request_stop()
-    assert p == tmp_path / "stop-request" and p.exists()
+    assert p == tmp_path / "halt-request" and p.exists()
 
 
 def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
@@ -349,13 +353,13 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
                             stdin=subprocess.DEVNULL)
     try:
         end = time.monotonic() + 20
-        while time.monotonic() < end and not ((rd / "progress.jsonl").exists()
-                                               and (rd / "progress.jsonl").stat().st_size > 0):
+        while time.monotonic() < end and not ((rd / "trail.jsonl").exists()
+                                               and (rd / "trail.jsonl").stat().st_size > 0):
             time.sleep(0.1)
-        assert (rd / "progress.jsonl").exists(), proc.stderr.read().decode() if proc.poll() is not None else ""
+        assert (rd / "trail.jsonl").exists(), proc.stderr.read().decode() if proc.poll() is not None else ""
 
         async def go():
-            app = CubageApp(follow=(RunDirFollower(rd), meta_from_file(rd / "problem.toml")))
+            app = CubageApp(follow=(RunDirFollower(rd), meta_from_file(rd / "source.toml")))
             async with app.run_test(size=(80, 24)) as pilot:
                 view = app.screen
                 assert isinstance(view, RunView)
@@ -365,7 +369,7 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
                 assert await wait_until(pilot, lambda: readout.snap.evaluations > e1)
                 assert readout.state == "running"          # the runner's word, from the first poll on
                 await pilot.press("h")
-                # the key creates stop-request; the runner consumes it, checkpoints and writes result.json
+                # the key creates halt-request; the runner consumes it, checkpoints and writes verdict.json
                 # (checked below, once the runner has exited)
                 assert await wait_until(pilot, lambda: view.state == "stopped", 20)
                 await pilot.pause(0.3)
@@ -373,7 +377,7 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
                 assert "NOT CONVERGED" in text and "kink along the diagonal" in text
         run(go())
         assert proc.wait(timeout=20) == 3                  # the runner's exit code for a requested stop
-        res = json.loads((rd / "result.json").read_text())
+        res = json.loads((rd / "verdict.json").read_text())
         assert res["status"] == "stopped" and abs(res["value"] - THIRD) < 1e-4   # 1/3, closed form
     finally:
         if proc.poll() is None:

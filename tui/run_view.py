@@ -363,7 +363,7 @@ class RunView(Screen):
         et = err if not isinstance(err, float) else f"{err:.3e}"
         level = "ok" if st == "converged" else "warn"
         tail = "" if st == "converged" else " — NOT converged"
-        self.say(f"result.json: status {st}, value {vt} ± {et} (estimate){tail}", level)
+        self.say(f"verdict.json: status {st}, value {vt} ± {et} (estimate){tail}", level)
 
     # -- showing a snapshot -----------------------------------------------------------
     def _show(self, snap: Snapshot) -> None:
@@ -437,7 +437,7 @@ class RunView(Screen):
                 return
             p = self.follower.request_stop()
             self._stop_asked = True
-            self.say(f"asked the runner to stop: wrote {p}; it will checkpoint and write result.json", "warn")
+            self.say(f"asked the runner to stop: wrote {p}; it will checkpoint and write verdict.json", "warn")
             self.state = "stopping"
             self.refresh_bindings()
             return

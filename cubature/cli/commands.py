@@ -2,35 +2,37 @@
 
 ::
 
-    cubage                       the text UI (same as ``cubage tui``)
+    cubage                       the text UI (same as ``cubage tui``; needs a terminal)
     cubage run FILE [options]    a headless run; FILE is a path or a problem name
     cubage check FILE            validate and describe a problem
     cubage resume DIR [options]  continue a run directory from its checkpoint
     cubage list [DIR]            the available problems
     cubage tui [PATH ...]        the text UI on some problems
-    cubage watch DIR             the text UI following a run directory
+    cubage watch DIR             follow a run directory (the text UI; plain lines without a terminal)
     cubage bench ...             benchmarks
 
 Exit codes: 0 the goal was met; 3 the run stopped short of the goal (budget,
 time, request, region limit, stall) — the current estimate is reported; 2 bad
-input (problem file, option, run directory, checkpoint); 1 the integrand
-failed, or an internal error.
+input (problem file, option, run directory, checkpoint, storage); 1 the
+integrand failed, or an internal error; 130 interrupted before a run started.
+
+The commands are thin: preparing, driving and recording a run is
+:mod:`cubage.session` (shared with the text UI).  This module imports
+nothing heavy at the top, so that ``--help`` is quick and Ctrl-C during
+start-up is quiet.
 """
 
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import os
-import socket
 import sys
-import time
 import tomllib
 import traceback
 from pathlib import Path
 
-EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT = 0, 1, 2, 3
+EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 SNAPSHOT_INTERVAL = 0.25
 
 
@@ -46,106 +48,100 @@ class _Parser(argparse.ArgumentParser):
     """argparse with one-line errors (exit 2)."""
 
     def error(self, message):  # noqa: D401 - argparse API
-        self.exit(EXIT_BAD_INPUT, f"{self.prog}: {message} (see: {self.prog} --help)\n")
+        raise UsageError(f"{self.prog}: {message} (see: {self.prog} --help)")
 
 
-def _number(text: str, what: str) -> float:
-    try:
-        x = float(text.replace("_", ""))
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{what}, got {text!r}") from None
-    if math.isnan(x):
-        raise argparse.ArgumentTypeError(f"{what}, got NaN")
-    return x
+def _arg(check):
+    """An argparse type from a session check (one place for every value rule)."""
+    def conv(text: str):
+        try:
+            return check(text)
+        except ValueError as exc:
+            raise argparse.ArgumentTypeError(str(exc)) from None
+    conv.__name__ = check.__name__
+    return conv
 
 
 def _tolerance(text: str) -> float:
-    x = _number(text, "must be a number >= 0 like 1e-8")
-    if not (0 <= x < math.inf):
-        raise argparse.ArgumentTypeError(f"must be a finite number >= 0, got {text!r}")
-    return x
-
-
-def _duration(text: str, *, zero_ok: bool, what: str) -> float:
-    x = _number(text, what)
-    if not ((0 <= x if zero_ok else 0 < x) and x < math.inf):
-        raise argparse.ArgumentTypeError(f"must be a number of seconds {'>=' if zero_ok else '>'} 0, got {text!r}")
-    return x
+    from cubage.session.prepare import check_tolerance, parse_number
+    return check_tolerance(parse_number(text, "must be a number >= 0 like 1e-8"))
 
 
 def _seconds(text: str) -> float:
-    return _duration(text, zero_ok=False, what="must be a number of seconds > 0")
+    from cubage.session.prepare import check_time_limit, parse_number
+    return check_time_limit(parse_number(text, "must be a number of seconds > 0"))
 
 
 def _every(text: str) -> float:
-    return _duration(text, zero_ok=True, what="must be a number of seconds (0 = only at the end)")
+    from cubage.session.prepare import parse_number
+    x = parse_number(text, "must be a number of seconds (0 = only at the end)")
+    if not 0 <= x < math.inf:
+        raise ValueError(f"must be a number of seconds >= 0, got {text!r}")
+    return x
 
 
 def _count(text: str) -> int:
-    t = text.replace("_", "").replace(",", "")
-    try:
-        x = int(t)
-    except ValueError:
-        try:
-            f = float(t)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"must be a whole number like 10_000_000 or 1e7, got {text!r}") from None
-        if not (math.isfinite(f) and f == int(f)):
-            raise argparse.ArgumentTypeError(f"must be a whole number, got {text!r}") from None
-        x = int(f)
-    if x <= 0:
-        raise argparse.ArgumentTypeError(f"must be positive, got {text!r}")
-    return x
+    from cubage.session.prepare import parse_count
+    return parse_count(text)
 
 
 def _workers(text: str):
-    if text == "auto":
-        return "auto"
-    try:
-        x = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f'must be a whole number >= 1 or "auto", got {text!r}') from None
-    if x < 1:
-        raise argparse.ArgumentTypeError(f"must be at least 1, got {text!r}")
-    return x
+    from cubage.session.prepare import check_workers
+    return check_workers(text)
+
+
+def _names(kind: str, show: bool) -> str:
+    """The valid rule or backend names for the help text (imported only when the help is shown)."""
+    if not show:
+        return "see --help"
+    if kind == "rule":
+        from cubage.engine.rules import RULE_NAMES
+        return ", ".join(RULE_NAMES)
+    from cubage.engine.parallel import BACKENDS
+    return ", ".join(BACKENDS)
 
 
 def _add_goal_options(p) -> None:
     g = p.add_argument_group("goal (overrides the problem's [goal])")
-    g.add_argument("--rel-tol", type=_tolerance, metavar="X", help="relative tolerance on the total error estimate")
-    g.add_argument("--abs-tol", type=_tolerance, metavar="X", help="absolute tolerance on the total error estimate")
-    g.add_argument("--budget", type=_count, metavar="N", help="budget of integrand evaluations")
-    g.add_argument("--time-limit", type=_seconds, metavar="S", help="seconds of work (summed over resumes)")
+    g.add_argument("--rel-tol", type=_arg(_tolerance), metavar="X",
+                   help="relative tolerance on the total error estimate")
+    g.add_argument("--abs-tol", type=_arg(_tolerance), metavar="X",
+                   help="absolute tolerance on the total error estimate")
+    g.add_argument("--budget", type=_arg(_count), metavar="N", help="budget of integrand evaluations")
+    g.add_argument("--time-limit", type=_arg(_seconds), metavar="S", help="seconds of work (summed over resumes)")
 
 
-def _add_parallel_options(p) -> None:
-    from cubage.problem.problem_file import BACKENDS
+def _add_parallel_options(p, show: bool) -> None:
     g = p.add_argument_group("evaluation (overrides the problem's [method])")
-    g.add_argument("--workers", type=_workers, metavar="N", help='worker processes or threads, or "auto"')
-    g.add_argument("--backend", choices=BACKENDS, metavar="B", help=f"one of: {', '.join(BACKENDS)}")
+    g.add_argument("--workers", type=_arg(_workers), metavar="N", help='worker processes or threads, or "auto"')
+    g.add_argument("--backend", metavar="B", help=f"one of: {_names('backend', show)}")
     g.add_argument("--cluster", metavar="ADDR", help="dask scheduler address or scheduler file")
 
 
-def _add_common(p, *, run_dir: bool) -> None:
+def _add_common(p) -> None:
     p.add_argument("--json", action="store_true",
-                   help="print exactly one JSON object on stdout at the end (and nothing else there)")
-    p.add_argument("--checkpoint-every", type=_every, metavar="S", default=None,
+                   help="print exactly one JSON object on stdout at the end (and nothing else there); "
+                        "errors too are one JSON object")
+    p.add_argument("--checkpoint-every", type=_arg(_every), metavar="S", default=None,
                    help="seconds between checkpoints in the run directory (default 60; 0 = only at the end)")
     p.add_argument("--allow-python", action="store_true",
                    help="allow problems whose integrand is your own Python code (python = ...)")
     p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of ``cubage`` (all subcommands)."""
+def build_parser(show_names: bool = True) -> argparse.ArgumentParser:
+    """The argument parser of ``cubage`` (all subcommands).
+
+    ``show_names=False`` leaves the rule and backend names out of the help
+    texts, so that parsing does not import the engine.
+    """
     from cubage import __version__
-    from cubage.problem.problem_file import RULES
     top = _Parser(prog="cubage",
                   description="Adaptive multi-dimensional cubature over boxes, simplices and unbounded "
-                              "regions. With no command, opens the text UI.",
+                              "regions. With no command (on a terminal), opens the text UI.",
                   epilog="Exit codes: 0 goal met, 3 stopped short of the goal (estimate reported), "
-                         "2 bad input, 1 integrand failure or internal error. Error figures are "
-                         "heuristic estimates, not guaranteed bounds.")
+                         "2 bad input, 1 integrand failure or internal error, 130 interrupted. Error figures "
+                         "are heuristic estimates, not guaranteed bounds.")
     top.add_argument("--version", action="version", version=f"cubage {__version__}")
     sub = top.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
 
@@ -155,11 +151,12 @@ def build_parser() -> argparse.ArgumentParser:
                                    "SIGINT/SIGTERM/SIGHUP stop cleanly with the current estimate (exit 3).")
     p.add_argument("file", metavar="FILE", help="problem file, or the name of a problem in ./problems or the "
                                                 "bundled examples (see: cubage list)")
-    p.add_argument("--run-dir", metavar="DIR", help="keep a run directory (problem copy, settings, checkpoints, "
-                                                    "progress log, result); continue it with: cubage resume DIR")
+    p.add_argument("--run-dir", metavar="DIR", help="keep a run directory (problem copy, ledger, partition "
+                                                    "checkpoints, trail, verdict); continue it with: "
+                                                    "cubage resume DIR; follow it with: cubage watch DIR")
     _add_goal_options(p)
     m = p.add_argument_group("method (overrides the problem's [method])")
-    m.add_argument("--rule", choices=RULES, metavar="R", help=f"rule family: {', '.join(RULES)}")
+    m.add_argument("--rule", metavar="R", help=f"rule family: {_names('rule', show_names)}")
     m.add_argument("--second-opinion", action="store_true",
                    help="afterwards integrate again with other nodes and region boundaries (another rule or "
                         "split policy) to the same goal, and say whether the two answers agree within their "
@@ -167,11 +164,11 @@ def build_parser() -> argparse.ArgumentParser:
     sc = p.add_argument_group("scans (problems with a [scan] table)")
     sc.add_argument("--cold", action="store_true",
                     help="start every point from the whole domain instead of its neighbour's partition")
-    sc.add_argument("--chains", type=_count, metavar="N",
+    sc.add_argument("--chains", type=_arg(_count), metavar="N",
                     help="cut the scan's path into N chains run in parallel (default: one per 50 points); "
                          "results depend on N, never on --workers")
-    _add_parallel_options(p)
-    _add_common(p, run_dir=True)
+    _add_parallel_options(p, show_names)
+    _add_common(p)
 
     p = sub.add_parser("check", help="validate a problem and describe it",
                        description="Read a problem, report the first mistake (exit 2) or describe it: "
@@ -181,11 +178,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("resume", help="continue a run directory from its checkpoint",
                        description="Continue the run in DIR from its last checkpoint, appending to its "
-                                   "progress log. Goal options loosen or tighten the goal.")
+                                   "trail. Goal options loosen or tighten the goal, or raise the budget.")
     p.add_argument("dir", metavar="DIR", help="run directory made by: cubage run FILE --run-dir DIR")
     _add_goal_options(p)
-    _add_parallel_options(p)
-    _add_common(p, run_dir=True)
+    _add_parallel_options(p, show_names)
+    _add_common(p)
 
     p = sub.add_parser("list", help="list the available problems",
                        description="List problems (name, dimension, domain kind, title) in DIR, or in "
@@ -196,9 +193,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("paths", metavar="PATH", nargs="*", help="problem files or folders")
     p.add_argument("--allow-python", action="store_true", help="allow python = ... integrands")
 
-    p = sub.add_parser("watch", help="follow a run directory in the text UI",
-                       description="Follow a headless run (its progress log) in the text UI.")
+    p = sub.add_parser("watch", help="follow a run directory",
+                       description="Follow a run directory (its trail) while another process works in it: "
+                                   "the text UI on a terminal, else one plain line every few seconds on "
+                                   "stdout. Says when the working process is gone and how to continue.")
     p.add_argument("dir", metavar="DIR", help="run directory")
+    p.add_argument("--plain", action="store_true", help="plain lines even on a terminal")
+    p.add_argument("--once", action="store_true", help="print the current state once and exit (implies --plain)")
+    p.add_argument("--every", type=_arg(_seconds), metavar="S", default=5.0,
+                   help="seconds between plain lines (default 5)")
 
     sub.add_parser("bench", help="benchmarks (see: cubage bench --help)", add_help=False)
     return top
@@ -209,7 +212,10 @@ def build_parser() -> argparse.ArgumentParser:
 # --------------------------------------------------------------------------
 
 def _err(msg: str) -> None:
-    print(msg, file=sys.stderr, flush=True)
+    try:
+        print(msg, file=sys.stderr, flush=True)
+    except (OSError, ValueError):
+        pass
 
 
 def _load(name: str, allow_python: bool):
@@ -235,97 +241,12 @@ def _problem_where(problem) -> str:
     return str(problem.path) if problem.path is not None else "<problem>"
 
 
-def _settings(problem, args) -> dict:
-    """Engine settings from the problem's goal and method plus command-line overrides."""
-    from cubage.engine.run import DEFAULT_BUDGET
-    g = problem.goal
-    rel = args.rel_tol if args.rel_tol is not None else g.rel_tol
-    abs_ = args.abs_tol if args.abs_tol is not None else g.abs_tol
-    if rel == 0 and abs_ == 0:
-        raise UsageError("--rel-tol/--abs-tol: both tolerances are zero; the goal could never be met")
-    rule = getattr(args, "rule", None) or problem.method.rule
-    where = "--rule" if getattr(args, "rule", None) else f"{_problem_where(problem)}: [method] rule"
-    name, _ = _rule_info(problem, rule, problem.method.degree, where)
-    s = {"rel_tol": rel, "abs_tol": abs_,
-         "budget": args.budget or g.budget or DEFAULT_BUDGET,
-         "time_limit": args.time_limit if args.time_limit is not None else g.time_limit,
-         "rule": name}
-    if problem.method.degree is not None:
-        s["degree"] = problem.method.degree
-    return s
-
-
-def _parallel(problem, workers, backend, cluster):
-    """(evaluator or None, description, note): the problem's method with overrides."""
-    given_workers, given_backend, given_cluster = workers, backend, cluster
-    workers = workers if workers is not None else problem.method.workers
-    backend = backend if backend is not None else problem.method.backend
-    cluster = cluster if cluster is not None else problem.method.cluster
-    want = workers not in (1, None) or backend not in ("auto", "serial", None) or cluster
-    try:
-        from cubage.engine import parallel
-    except ImportError:
-        note = ("parallel evaluation is not available in this installation; evaluating serially"
-                if want else None)
-        return None, "serial", note
-    try:
-        ev = parallel.make_evaluator(workers=workers, backend=backend, cluster=cluster, spec=problem.integrand_spec)
-    except (ValueError, TypeError) as exc:
-        msg = str(exc)
-        key = "cluster" if ("cluster" in msg or "scheduler" in msg) and cluster else \
-            "workers" if "workers" in msg else "backend"
-        given = {"workers": given_workers, "backend": given_backend, "cluster": given_cluster}[key]
-        where = f"--{key}" if given is not None else f"{_problem_where(problem)}: [method] {key}"
-        raise UsageError(f"{where}: {msg}") from None
-    if ev is None:
-        return None, "serial", None
-    desc = ev.describe() if hasattr(ev, "describe") else type(ev).__name__
-    return ev, desc, None
-
-
-def _close(ev) -> None:
-    if ev is not None and hasattr(ev, "close"):
-        try:
-            ev.close()
-        except Exception:  # noqa: BLE001 - closing must never hide the run's outcome
-            pass
-
-
-def _result_record(result, problem, *, name: str, run_dir=None, extra: dict | None = None) -> dict:
-    """The JSON object of ``--json`` and ``result.json``."""
-    import numpy as np
-
-    from cubage.engine.run import STATUSES
-    from cubage.session.run_directory import json_numbers
-    rec = result.to_json()
-    vals = np.atleast_1d(np.asarray(result.values if np.size(result.values) else result.value, dtype=float))
-    rec["value"] = json_numbers(result.value)
-    rec["error"] = json_numbers(result.error)
-    rec["status_meaning"] = STATUSES.get(result.status, "")
-    rec["error_note"] = "heuristic estimate, not a guaranteed bound"
-    rec["problem"] = name
-    rec["title"] = problem.title
-    rec["components"] = int(problem.components)
-    if problem.reference is not None:
-        ref = np.atleast_1d(np.asarray(problem.reference.value, dtype=float))
-        rec["reference"] = problem.reference.value
-        rec["reference_source"] = problem.reference.source
-        if ref.size == vals.size:
-            diff = vals - ref
-            rec["true_error"] = json_numbers(diff[0] if vals.size == 1 and np.ndim(result.value) == 0 else diff)
-    if run_dir is not None:
-        rec["run_dir"] = str(run_dir)
-    if extra:
-        rec.update(extra)
-    return rec
-
-
-def _exit_code(status: str) -> int:
-    if status == "converged":
-        return EXIT_OK
-    if status == "failed":
-        return EXIT_FAILED
-    return EXIT_SHORT
+def _overrides(args):
+    """The session's Overrides from the command line (labels name the options in messages)."""
+    from cubage.session.prepare import Overrides
+    keys = ("rel_tol", "abs_tol", "budget", "time_limit", "rule", "workers", "backend", "cluster")
+    return Overrides(**{k: getattr(args, k, None) for k in keys},
+                     labels={k: "--" + k.replace("_", "-") for k in keys})
 
 
 def _interactive(args) -> bool:
@@ -349,37 +270,56 @@ def _continue_hint(res, run, rundir) -> str:
         "keep a --run-dir to be able to continue a stopped run"
 
 
-def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_after: float = -1.0,
-             checkpoint_every: float = 60.0) -> int:
-    """Drive the run with the right display, write the result, print the ending; the exit code."""
-    from cubage.cli.terminal_display import LivePanel, PlainTicker, summary_lines
-    from cubage.engine.run import STATUSES
-    from cubage.session.run_directory import RESULT, drive, write_json
+def _print_json(obj: dict) -> None:
+    from cubage.session.jsonio import dumps
+    print(dumps(obj), flush=True)
 
+
+def _execute(prep, args, *, name: str, guard, rundir=None, log_after: float = -1.0,
+             checkpoint_every: float = 60.0, written_by: str) -> int:
+    """Drive the prepared run with the right display, write the verdict, print the ending; the exit code."""
+    from cubage.cli.terminal_display import LivePanel, PlainTicker, summary_lines
+    from cubage.session.driver import RunDriver
+    from cubage.session.result_record import result_record
+    from cubage.session.run_directory import VERDICT, RunDirError
+    from cubage.session.status import exit_code, meaning
+
+    problem, run = prep.problem, prep.run
     title = problem.title or name
-    if _interactive(args):
-        show = LivePanel(title, problem.reference, extra=method_text)
-    else:
-        show = PlainTicker(problem.reference)
-    if isinstance(show, LivePanel):
-        with show:
-            out = drive(run, rundir=rundir, on_snapshot=show, checkpoint_every=checkpoint_every, log_after=log_after)
-    else:
-        out = drive(run, rundir=rundir, on_snapshot=show, checkpoint_every=checkpoint_every, log_after=log_after)
-        if out.snapshot.evaluations > 0:
-            show(out.snapshot, final=True)
+    show = LivePanel(title, problem.reference, extra=prep.method_text) if _interactive(args) else \
+        PlainTicker(problem.reference)
+    driver = RunDriver(run, rundir=rundir, checkpoint_every=checkpoint_every, log_after=log_after)
+    guard.attach(driver)
+    try:
+        if isinstance(show, LivePanel):
+            with show:
+                out = driver.drive(show)
+        else:
+            out = driver.drive(show)
+            if out.snapshot.evaluations > 0:
+                show(out.snapshot, final=True)
+    finally:
+        guard.detach(driver)
+        driver.close()
     res = out.result
     extra = {"stopped_by": out.stop_reason} if out.stop_reason else {}
+    if out.storage_error:
+        extra["storage_error"] = out.storage_error
     second = None
-    if getattr(args, "second_opinion", False) and not out.failure and not out.stop_reason and res.evaluations > 0:
-        second = _second_opinion(run, problem, res)
+    if (getattr(args, "second_opinion", False) and not out.failure and not out.stop_reason
+            and not out.storage_error and res.evaluations > 0):
+        second = _second_opinion(prep, res, guard)
         extra["second_opinion"] = second
-    rec = _result_record(res, problem, name=name, run_dir=rundir.path if rundir else None, extra=extra)
-    if rundir is not None:
-        write_json(rundir.file(RESULT), rec)
-    code = _exit_code(res.status)
+    rec = result_record(res, problem=problem, name=name, written_by=written_by,
+                        settings=prep.settings_record(), run_dir=rundir.path if rundir else None, extra=extra)
+    if rundir is not None and not out.storage_error:
+        try:
+            rundir.write_file(VERDICT, rec)
+        except RunDirError as exc:
+            out.storage_error = rec["storage_error"] = str(exc)
+    code = exit_code(res.status)
     if args.json:
-        print(json.dumps(rec, allow_nan=False), flush=True)
+        _print_json(rec)
     elif res.evaluations > 0:
         more = []
         if out.stop_reason:
@@ -387,55 +327,81 @@ def _execute(run, problem, args, *, name: str, rundir, method_text: str, log_aft
         if rundir is not None:
             more.append(f"{'run dir':<11} {rundir.path}")
         hint = _continue_hint(res, run, rundir)
-        if hint:
+        if hint and not out.storage_error:
             more.append(f"{'next':<11} {hint}")
         if second is not None:
             more.extend(_second_opinion_lines(second))
-        for line in summary_lines(res, STATUSES, problem.reference, more):
+        for line in summary_lines(res, None, problem.reference, more):
             print(line, flush=True)
+    if out.display_errors:
+        _err(f"cubage: note: the display failed {out.display_errors} time(s) ({out.display_error}); "
+             "the run went on")
     if second is not None and second.get("agree") is False:
         _err("cubage: warning: the second opinion disagrees beyond both error estimates; at least one of them is "
              "wrong (see the Cautions in the README)")
+    if out.storage_error:
+        _err(f"cubage: {out.storage_error}")
+        return EXIT_BAD_INPUT
     if out.failure:
         kept = " (the estimate above is from before the failing step)" if res.evaluations > 0 and not args.json else ""
         _err(f"cubage: integrand failed: {out.failure}{kept}")
     elif code == EXIT_SHORT and args.json:
-        _err(f"cubage: stopped short of the goal: {res.status} ({STATUSES.get(res.status, '')})")
+        _err(f"cubage: stopped short of the goal: {res.status} ({meaning(res.status)})")
     return code
 
 
-def _second_opinion(run, problem, res) -> dict:
-    """Integrate again with other nodes and boundaries (:func:`cubage.engine.rules.second_opinion`); compare."""
+def _second_opinion(prep, res, guard) -> dict:
+    """Integrate again with other nodes and boundaries (:func:`cubage.engine.rules.second_opinion`); compare.
+
+    The same signal handling covers this phase: a signal stops the second run and the main result is kept.
+    """
     import numpy as np
 
     from cubage.engine.rules import second_opinion
-    from cubage.engine.run import IntegrandError, Run
-    from cubage.session.run_directory import json_numbers
+    from cubage.engine.run import Run
+    from cubage.session.driver import RunDriver
+    from cubage.session.jsonio import json_safe
+    problem, run = prep.problem, prep.run
     opts, words = second_opinion(problem.domain.kind, problem.domain.dim, run.rule_name, run.settings.split)
     s = run.settings
     try:
-        alt = Run(problem.integrand, problem.domain, evaluator=run.evaluator, fingerprint=problem.fingerprint(),
+        alt = Run(problem.integrand, problem.domain, evaluator=run.evaluator, fingerprint=prep.fingerprint,
                   rel_tol=s.rel_tol, abs_tol=s.abs_tol, budget=s.budget, time_limit=s.time_limit, **opts)
-        r2 = alt.run()
-    except (IntegrandError, ValueError) as exc:
+    except ValueError as exc:
         return {"method": words, "status": "failed", "message": str(exc), "agree": None}
+    driver = RunDriver(alt)
+    guard.attach(driver)
+    try:
+        out = driver.drive()
+    finally:
+        guard.detach(driver)
+    if out.failure:
+        return {"method": words, "status": "failed", "message": out.failure, "agree": None}
+    r2 = out.result
+    if r2.status == "stopped":
+        return json_safe({"method": words, "status": "stopped", "stopped_by": out.stop_reason,
+                          "evaluations": int(r2.evaluations), "agree": None})
     diff = np.abs(np.asarray(res.values) - np.asarray(r2.values))
     agree = bool(np.all(diff <= np.asarray(res.errors) + np.asarray(r2.errors)))
     scalar = np.ndim(res.value) == 0
-    return {"method": words, "value": json_numbers(r2.value), "error": json_numbers(r2.error),
-            "status": r2.status, "evaluations": int(r2.evaluations), "seconds": round(float(r2.seconds), 6),
-            "difference": json_numbers(float(diff[0]) if scalar else diff), "agree": agree}
+    return json_safe({"method": words, "value": r2.value, "error": r2.error,
+                      "status": r2.status, "evaluations": int(r2.evaluations), "seconds": round(float(r2.seconds), 6),
+                      "difference": float(diff[0]) if scalar else diff, "agree": agree})
 
 
 def _second_opinion_lines(so: dict) -> list[str]:
     import numpy as np
 
     from cubage.cli.terminal_display import fmt_err, fmt_value
+    from cubage.session.jsonio import number_from_json
     head = f"{'second':<11} {so['method']}"
     if so["status"] == "failed":
         return [head, f"{'':<11} failed: {so.get('message', '')}"]
-    vals = np.atleast_1d(np.asarray(so["value"], dtype=float))
-    errs = np.atleast_1d(np.asarray(so["error"], dtype=float))
+    if so["status"] == "stopped":
+        return [head, f"{'':<11} stopped by {so.get('stopped_by')} after {so.get('evaluations', 0):,} evaluations; "
+                      "no comparison"]
+    vals = np.atleast_1d([number_from_json(v) for v in np.atleast_1d(so["value"])])
+    errs = np.atleast_1d([number_from_json(v) for v in np.atleast_1d(so["error"])])
     lines = [head] + [f"{'':<11} {fmt_value(v)} ± {fmt_err(e)}" for v, e in zip(vals, errs)]
     verdict = ("agrees within the two error estimates" if so["agree"] else
                "DISAGREES beyond both error estimates: at least one answer is wrong")
@@ -443,112 +409,117 @@ def _second_opinion_lines(so: dict) -> list[str]:
     return lines
 
 
+def _session_entry(prep, command: str) -> dict:
+    import socket
+    import time
+
+    from cubage import __version__
+    return {"command": command, "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
+            "pid": os.getpid(), "cubage_version": __version__, "evaluation": prep.evaluation,
+            "from_evaluations": int(prep.run.evaluations), "overrides": prep.overrides.given()}
+
+
 # --------------------------------------------------------------------------
 # commands
 # --------------------------------------------------------------------------
 
-def cmd_run(args) -> int:
-    from cubage import __version__
-    from cubage.engine.run import Run
+def cmd_run(args, guard) -> int:
+    from cubage.session.prepare import prepare_run
     from cubage.session.run_directory import RunDir
 
     problem = _load(args.file, args.allow_python)
-    settings = _settings(problem, args)
-    name = problem.path.stem if problem.path is not None else args.file
     if problem.scan is not None:
         from cubage.cli.scan_command import run_scan_command
-        return run_scan_command(args, problem, settings, name)
-    ev, desc, note = _parallel(problem, args.workers, args.backend, args.cluster)
-    rd = None
+        from cubage.session.prepare import scan_settings
+        return run_scan_command(args, problem, scan_settings(problem, _overrides(args)), args.file
+                                if problem.path is None else problem.path.stem)
+    prep = prepare_run(problem, _overrides(args), snapshot_interval=SNAPSHOT_INTERVAL)
+    name = problem.path.stem if problem.path is not None else args.file
+    rd = RunDir(Path(args.run_dir)) if args.run_dir else None
+    if rd is not None:
+        rd.check_new_run(prep.fingerprint)
     try:
-        if note:
-            _err(f"cubage: note: {note}")
-        try:
-            run = Run(problem.integrand, problem.domain, evaluator=ev, fingerprint=problem.fingerprint(),
-                      snapshot_interval=SNAPSHOT_INTERVAL, **settings)
-        except ValueError as exc:
-            raise UsageError(str(exc)) from None
-        if args.run_dir:
-            rd = RunDir(Path(args.run_dir))
-            rd.check_new_run(problem.fingerprint())
-            info = {
-                "cubage_version": __version__, "command": "run", "problem": name, "title": problem.title,
+        guard.attach(prep.run)                 # a signal from here on stops the run at its first step
+        prep.start_evaluator()                 # may start a worker pool: the signal handling is in place
+        for n in prep.notes:
+            _err(f"cubage: note: {n}")
+        if rd is not None:
+            rd.create(problem.text, {
+                "problem": name, "title": problem.title,
                 "problem_source": str(problem.path.resolve()) if problem.path is not None else None,
-                "problem_fingerprint": problem.fingerprint(), "run_fingerprint": run.fingerprint(),
-                "settings": {k: v for k, v in run.settings.__dict__.items()},
-                "overrides": {k: getattr(args, k) for k in ("rel_tol", "abs_tol", "budget", "time_limit", "rule",
-                                                             "workers", "backend", "cluster", "checkpoint_every")
-                              if getattr(args, k) is not None},
-                "allow_python": bool(args.allow_python), "evaluation": desc,
-                "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(), "pid": os.getpid(),
-            }
-            rd.create(problem.text, info)
+                "problem_fingerprint": prep.fingerprint, "run_fingerprint": prep.run.fingerprint(),
+                "settings": dict(prep.run.settings.__dict__),
+                "overrides": {**prep.overrides.given(), **({"checkpoint_every": args.checkpoint_every}
+                                                           if args.checkpoint_every is not None else {})},
+                "allow_python": bool(args.allow_python), "sessions": [_session_entry(prep, "run")]})
             for n in rd.notes:
                 _err(f"cubage: note: {n}")
         every = args.checkpoint_every if args.checkpoint_every is not None else 60.0
-        return _execute(run, problem, args, name=name, rundir=rd, method_text=f"{run.rule_name}, {desc}",
-                        checkpoint_every=every)
+        guard.detach(prep.run)
+        return _execute(prep, args, name=name, guard=guard, rundir=rd, checkpoint_every=every,
+                        written_by="cubage run")
     finally:
+        guard.detach(prep.run)
         if rd is not None:
             rd.release()
-        _close(ev)
+        prep.close()
 
 
-def cmd_resume(args) -> int:
-    from cubage import __version__
+def cmd_resume(args, guard) -> int:
     from cubage.cli.scan_command import is_scan_dir, resume_scan_command
-    from cubage.engine.checkpoint import read_checkpoint
-    from cubage.engine.run import Run
-    from cubage.problem.problem_file import ProblemError, parse_problem
-    from cubage.session.run_directory import PROBLEM, RESULT, RunDir, RunDirError
+    from cubage.problem.problem_file import parse_problem
+    from cubage.session.prepare import check_time_limit, check_workers, resume_run
+    from cubage.session.run_directory import LEDGER, RunDir, RunDirError
     if is_scan_dir(args.dir):
         return resume_scan_command(args)
     rd = RunDir(Path(args.dir))
-    info = rd.open_existing()
-    ev = None
+    ledger = rd.open_existing()
+    prep = None
     try:
         for n in rd.notes:
             _err(f"cubage: note: {n}")
-        copy = rd.file(PROBLEM)
+        text = rd.read_source()
+        path = rd.file("source.toml")
         try:
-            text = copy.read_text(encoding="utf-8")
-        except (OSError, UnicodeDecodeError) as exc:
-            raise RunDirError(f"{copy}: cannot read the problem copy ({exc})") from None
-        path = copy
-        try:
-            if "python" in (tomllib.loads(text).get("integrand") or {}) and info.get("problem_source"):
-                path = Path(info["problem_source"])   # relative file.py:function resolves beside the original
+            if "python" in (tomllib.loads(text).get("integrand") or {}) and ledger.get("problem_source"):
+                path = Path(ledger["problem_source"])   # relative file.py:function resolves beside the original
         except tomllib.TOMLDecodeError:
             pass
-        trust = args.allow_python
-        try:
-            problem = parse_problem(text, path=path, allow_python=trust)
-        except ProblemError:
-            raise
-        name = info.get("problem") or copy.stem
-        saved = info.get("overrides", {})
-        ev, desc, note = _parallel(problem, args.workers if args.workers is not None else saved.get("workers"),
-                                   args.backend or saved.get("backend"), args.cluster or saved.get("cluster"))
-        if note:
-            _err(f"cubage: note: {note}")
-        read_checkpoint(rd.checkpoint)          # a clear CheckpointError before anything else
-        goal = {k: getattr(args, k) for k in ("rel_tol", "abs_tol", "budget", "time_limit")
-                if getattr(args, k) is not None}
-        run = Run.from_checkpoint(rd.checkpoint, problem.integrand, problem.domain, evaluator=ev,
-                                  fingerprint=problem.fingerprint(), snapshot_interval=SNAPSHOT_INTERVAL, **goal)
-        if goal and run.status == "converged":
-            run.set_goal(**goal)
-        rd.add_resume(info, {"started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
-                             "pid": os.getpid(), "cubage_version": __version__, "overrides": goal,
-                             "from_evaluations": run.evaluations, "evaluation": desc})
-        rd.file(RESULT).unlink(missing_ok=True)   # a watcher must not take the old ending for this run's
-        every = args.checkpoint_every if args.checkpoint_every is not None else \
-            float(saved.get("checkpoint_every", 60.0))
-        return _execute(run, problem, args, name=name, rundir=rd, method_text=f"{run.rule_name}, {desc}",
-                        log_after=rd.last_logged_evaluations(), checkpoint_every=every)
+        problem = parse_problem(text, path=path, allow_python=args.allow_python)
+        name = ledger.get("problem") or "source"
+        saved = ledger.get("overrides", {})
+        where = f"{rd.file(LEDGER)}: overrides"
+        o = _overrides(args)
+        try:                                  # the ledger's values pass the same checks as the options
+            if o.workers is None and saved.get("workers") is not None:
+                o.workers = check_workers(saved["workers"], f"{where}.workers")
+            for k in ("backend", "cluster"):
+                if getattr(o, k) is None and saved.get(k) is not None:
+                    if not isinstance(saved[k], str):
+                        raise RunDirError(f"{where}.{k}: must be a string, not {type(saved[k]).__name__}")
+                    setattr(o, k, saved[k])
+            every = args.checkpoint_every
+            if every is None:
+                every = saved.get("checkpoint_every", 60.0)
+                if every != 0:
+                    every = check_time_limit(every, f"{where}.checkpoint_every")
+        except ValueError as exc:
+            raise RunDirError(str(exc)) from None
+        prep = resume_run(problem, rd.checkpoint, o, snapshot_interval=SNAPSHOT_INTERVAL)
+        guard.attach(prep.run)
+        prep.start_evaluator()
+        for n in prep.notes:
+            _err(f"cubage: note: {n}")
+        rd.add_session(ledger, _session_entry(prep, "resume"))
+        rd.clear_verdict()                     # a follower must not take the old ending for this session's
+        guard.detach(prep.run)
+        return _execute(prep, args, name=name, guard=guard, rundir=rd, log_after=rd.last_logged_evaluations(),
+                        checkpoint_every=float(every), written_by="cubage resume")
     finally:
+        if prep is not None:
+            guard.detach(prep.run)
+            prep.close()
         rd.release()
-        _close(ev)
 
 
 def cmd_check(args) -> int:
@@ -619,6 +590,59 @@ def cmd_list(args) -> int:
     return EXIT_OK
 
 
+def cmd_watch(args) -> int:
+    """Follow a run directory: the text UI on a terminal, else plain lines until the run ends."""
+    import time
+
+    from cubage.cli.terminal_display import PlainTicker
+    from cubage.session.follower import RunFollower
+    from cubage.session.jsonio import number_from_json
+    from cubage.session.run_directory import LEDGER, OLD_LAYOUT_FILES, RunDir
+    from cubage.session.status import EXIT_SHORT as SHORT
+    from cubage.session.status import exit_code
+    d = Path(args.dir)
+    if not d.is_dir():
+        raise UsageError(f"cubage watch: {d}: no such run directory")
+    if not os.path.lexists(d / LEDGER) and any(os.path.lexists(d / n) for n in OLD_LAYOUT_FILES):
+        RunDir(d)._refuse_old_layout(None)
+    plain = args.plain or args.once or not (sys.stdout is not None and sys.stdout.isatty()
+                                            and sys.stdin is not None and sys.stdin.isatty())
+    if not plain:
+        return _ui(watch=args.dir)
+    f = RunFollower(d)
+    ticker = PlainTicker(None, every=args.every, stream=sys.stdout, prefix="watch")
+    said: set[str] = set()
+    first = True
+    while True:
+        f.poll()
+        if f.last_error and f.last_error not in said:
+            said.add(f.last_error)
+            _err(f"cubage: note: {f.last_error}")
+        status = f.status
+        if f.snapshot is not None:
+            ticker(f.snapshot, final=first or args.once)
+            first = False
+        if f.result is not None:
+            res = f.result
+            try:
+                v = ", ".join(f"{number_from_json(x):.12e}" for x in
+                              (res["value"] if isinstance(res.get("value"), list) else [res.get("value")]))
+                e = ", ".join(f"{number_from_json(x):.2e}" for x in
+                              (res["error"] if isinstance(res.get("error"), list) else [res.get("error")]))
+                print(f"cubage watch: ended: {status}: {v} ± {e} (estimate)", flush=True)
+            except (TypeError, ValueError, KeyError):
+                print(f"cubage watch: ended: {status}", flush=True)
+            return exit_code(status)
+        if status == "runner-gone":
+            print(f"cubage watch: {f.gone_message}", flush=True)
+            return SHORT
+        if args.once:
+            if f.snapshot is None:
+                print(f"cubage watch: {status}: no progress line yet", flush=True)
+            return EXIT_OK
+        time.sleep(0.5)
+
+
 def _ui(paths=None, watch=None, allow_python=False) -> int:
     try:
         from cubage.tui import app
@@ -638,54 +662,105 @@ def _bench(argv: list[str]) -> int:
     return int(bench.main(argv) or 0)
 
 
+def _terminal() -> bool:
+    return all(s is not None and s.isatty() for s in (sys.stdin, sys.stdout))
+
+
 # --------------------------------------------------------------------------
 # entry point
 # --------------------------------------------------------------------------
 
+def _fail(message: str, code: int, kind: str, want_json: bool) -> int:
+    """Report an error: its line(s) on stderr, and with ``--json`` one JSON object on stdout."""
+    _err(message)
+    if want_json:
+        try:
+            _print_json({"schema": "cubage-error 1", "status": "error", "error": kind,
+                         "message": message.splitlines()[0] if message else "", "exit_code": code})
+        except (OSError, ValueError):
+            pass
+    return code
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Run ``cubage`` with ``argv`` (default ``sys.argv[1:]``); returns the exit code."""
+    """Run ``cubage`` with ``argv`` (default ``sys.argv[1:]``); returns the exit code.
+
+    Signal handling (:class:`cubage.session.driver.StopSignals`) is installed
+    first and covers every phase: before a run exists a signal ends the
+    command quietly (exit 130); during a run it stops the run cleanly with its
+    estimate (exit 3).
+    """
     argv = list(sys.argv[1:] if argv is None else argv)
+    want_json = "--json" in argv
+    try:
+        from cubage.session.driver import StopSignals
+        guard = StopSignals()
+    except KeyboardInterrupt:
+        return _fail("cubage: interrupted", EXIT_INTERRUPTED, "interrupted", want_json)
+    try:
+        with guard:
+            return _main(argv, guard, want_json)
+    except KeyboardInterrupt:
+        return _fail("cubage: interrupted", EXIT_INTERRUPTED, "interrupted", want_json)
+
+
+def _main(argv: list[str], guard, want_json: bool) -> int:
     if argv and argv[0] == "bench":
         return _bench(argv[1:])
-    parser = build_parser()
     try:
+        parser = build_parser(show_names=any(a in ("-h", "--help") for a in argv))
         args = parser.parse_args(argv)
-    except SystemExit as exc:           # --help, --version, usage errors: argparse has printed
+    except SystemExit as exc:           # --help, --version: argparse has printed
         return exc.code if isinstance(exc.code, int) else EXIT_BAD_INPUT
+    except UsageError as exc:
+        return _fail(str(exc), EXIT_BAD_INPUT, "bad-input", want_json)
     debug = bool(getattr(args, "debug", False))
+    want_json = bool(getattr(args, "json", False))
+    try:
+        if args.command is None or args.command == "tui":
+            if not _terminal():
+                parser.print_help(sys.stderr)
+                return _fail("cubage: the text UI needs a terminal; for a headless run: cubage run FILE "
+                             "(see: cubage --help)", EXIT_BAD_INPUT, "bad-input", False)
+            if args.command is None:
+                return _ui()
+            return _ui(paths=args.paths or None, allow_python=args.allow_python)
+        if args.command == "watch":
+            return cmd_watch(args)
+        if args.command in ("run", "resume"):
+            return {"run": cmd_run, "resume": cmd_resume}[args.command](args, guard)
+        return {"check": cmd_check, "list": cmd_list}[args.command](args)
+    except KeyboardInterrupt:
+        raise
+    except Exception as exc:  # noqa: BLE001 - sorted into bad input, closed output and internal errors
+        return _report(exc, debug, want_json)
+
+
+def _report(exc: Exception, debug: bool, want_json: bool) -> int:
+    import errno
+
     from cubage.engine.checkpoint import CheckpointError
     from cubage.engine.domains import DomainError
     from cubage.problem.problem_file import ProblemError
+    from cubage.session.prepare import InputError
     from cubage.session.run_directory import RunDirError
-    try:
-        if args.command is None:
-            return _ui()
-        if args.command == "tui":
-            return _ui(paths=args.paths or None, allow_python=args.allow_python)
-        if args.command == "watch":
-            return _ui(watch=args.dir)
-        return {"run": cmd_run, "resume": cmd_resume, "check": cmd_check, "list": cmd_list}[args.command](args)
-    except ProblemError as exc:
-        _err(str(exc))
-        return EXIT_BAD_INPUT
-    except (UsageError, RunDirError, CheckpointError, DomainError) as exc:
-        _err(f"cubage: {exc}")
-        return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
-        _err("cubage: interrupted")
-        return 130
-    except BrokenPipeError:
-        try:
+    if isinstance(exc, ProblemError):
+        return _fail(str(exc), EXIT_BAD_INPUT, "bad-input", want_json)
+    if isinstance(exc, (UsageError, RunDirError, CheckpointError, DomainError, InputError)):
+        return _fail(f"cubage: {exc}", EXIT_BAD_INPUT, "bad-input", want_json)
+    if isinstance(exc, OSError) and exc.errno in (errno.EPIPE, errno.EBADF):
+        try:                                   # the caller closed our output: nothing more to say there
             sys.stdout = open(os.devnull, "w")
         except OSError:
             pass
+        _err("cubage: standard output was closed by the caller; the output is lost "
+             "(a run directory keeps the verdict)")
         return EXIT_FAILED
-    except Exception as exc:  # noqa: BLE001 - the last line of defence
-        if debug:
-            traceback.print_exc()
-        else:
-            _err(f"cubage: internal error: {type(exc).__name__}: {exc} (rerun with --debug for the traceback)")
+    if debug:
+        traceback.print_exc()
         return EXIT_FAILED
+    return _fail(f"cubage: internal error: {type(exc).__name__}: {exc} (rerun with --debug for the traceback)",
+                 EXIT_FAILED, "internal", want_json)
 
 
 if __name__ == "__main__":

@@ -4,7 +4,7 @@ The terminal shows one table row per finished point (in the order points
 finish) and, on a terminal, a progress bar over points on stderr.  ``--json``
 prints one object with every point.  With ``--run-dir`` the scan's files
 (:mod:`cubage.session.scan`) go there, with the table as ``scan.csv`` beside
-``result.json``; ``cubage resume DIR`` continues it.  Exit 0 when every point
+``verdict.json``; ``cubage resume DIR`` continues it.  Exit 0 when every point
 met its goal, 3 when any stopped short, 2 on bad input, 1 when a point's
 integrand failed.
 """
@@ -26,13 +26,10 @@ EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT = 0, 1, 2, 3
 
 def is_scan_dir(path) -> bool:
     """Whether ``path`` is a run directory holding a scan."""
-    from cubage.session.run_directory import RUN_JSON
-    try:
-        with open(Path(path) / RUN_JSON, encoding="utf-8") as fh:
-            info = json.load(fh)
-    except (OSError, ValueError):
-        return False
-    return isinstance(info, dict) and info.get("command") == "scan"
+    from cubage.session.jsonio import read_json_object
+    from cubage.session.run_directory import LEDGER
+    info = read_json_object(Path(path) / LEDGER)
+    return info is not None and info.get("command") == "scan"
 
 
 def _bar(done: int, total: int, width: int = 30) -> str:
@@ -83,12 +80,12 @@ class _Rows:
 
 
 class _StopFlag:
-    """What :class:`cubage.session.run_directory.StopSignals` stops: the scan's stop event."""
+    """What :class:`cubage.session.driver.StopSignals` stops: the scan's stop event."""
 
     def __init__(self):
         self.event = threading.Event()
 
-    def stop(self) -> None:
+    def stop(self, reason: str = "") -> None:
         self.event.set()
 
 
@@ -113,7 +110,8 @@ def _exit(res) -> int:
 
 def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains, workers: int, cluster) -> int:
     from cubage.cli.terminal_display import fmt_count
-    from cubage.session.run_directory import RESULT, StopSignals, write_json
+    from cubage.session.driver import StopSignals
+    from cubage.session.run_directory import VERDICT
     from cubage.session.scan import CSV_FILE, ExprSource, run_scan
     grid = problem.scan
     tty = (not args.json) and sys.stderr.isatty() and os.environ.get("TERM") != "dumb"
@@ -126,7 +124,8 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
     every = args.checkpoint_every if args.checkpoint_every is not None else 60.0
     source = ExprSource(problem.integrand_spec, problem.fingerprint())
     try:
-        with StopSignals(flag) as sigs:
+        with StopSignals() as sigs:
+            sigs.attach(flag)
             res = run_scan(source, problem.domain, grid, settings, warm=warm, chains=chains, workers=workers,
                            cluster=cluster, run_dir=rd.path if rd is not None else None, checkpoint_every=every,
                            on_point=rows, stop_event=flag.event)
@@ -138,7 +137,7 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
         from cubage.engine.checkpoint import write_atomic
         write_atomic(rd.file(CSV_FILE), res.csv_text().encode("utf-8"))
         if not res.stopped:
-            write_json(rd.file(RESULT), rec)
+            rd.write_file(VERDICT, rec)
     code = _exit(res)
     if args.json:
         print(json.dumps(rec, allow_nan=False), flush=True)
@@ -203,16 +202,15 @@ def run_scan_command(args, problem, settings: dict, name: str) -> int:
 def resume_scan_command(args) -> int:
     """``cubage resume DIR`` for a scan's run directory."""
     from cubage.problem.problem_file import parse_problem
-    from cubage.session.run_directory import PROBLEM, RESULT, RUN_JSON, RunDir, RunDirError, _read_json
+    from cubage.session.jsonio import read_json_object
+    from cubage.session.run_directory import HALT_REQUEST, LEDGER, SOURCE, VERDICT, RunDir, RunDirError
     rd = RunDir(Path(args.dir))
-    info = _read_json(rd.file(RUN_JSON))
+    rd._refuse_links()
+    info = read_json_object(rd.file(LEDGER))
     if info is None:
-        raise RunDirError(f"{rd.path}: not a cubage run directory (no readable {RUN_JSON})")
-    try:
-        text = rd.file(PROBLEM).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise RunDirError(f"{rd.file(PROBLEM)}: cannot read the problem copy ({exc})") from None
-    problem = parse_problem(text, path=rd.file(PROBLEM))
+        raise RunDirError(f"{rd.path}: not a cubage run directory (no readable {LEDGER})")
+    text = rd.read_source()
+    problem = parse_problem(text, path=rd.file(SOURCE))
     if problem.scan is None:
         raise RunDirError(f"{rd.path}: the problem copy has no [scan] table")
     settings = dict(info.get("settings") or {})
@@ -223,11 +221,11 @@ def resume_scan_command(args) -> int:
     workers = _workers_count(args.workers if args.workers is not None else info.get("workers", 1))
     rd.acquire()
     try:
-        stop = rd.file("stop-request")
-        stop.unlink(missing_ok=True)
-        rd.file(RESULT).unlink(missing_ok=True)
-        entry = {"started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(), "pid": os.getpid()}
-        rd.add_resume(info, entry)
+        rd.file(HALT_REQUEST).unlink(missing_ok=True)
+        rd.file(VERDICT).unlink(missing_ok=True)
+        entry = {"command": "resume", "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
+                 "pid": os.getpid()}
+        rd.add_session(info, entry)
         return _execute(problem, args, name=info.get("problem") or "scan", settings=settings, rd=rd,
                         warm=bool(info.get("warm", True)), chains=info.get("chains"), workers=workers, cluster=None)
     finally:

@@ -9,12 +9,15 @@ Three outputs, all our own layout:
 * :class:`PlainTicker` — for logs (nohup, pipes): one compact line on
   stderr every few seconds and one at the end, e.g.::
 
-      cubage| 12.0s  n=3.20e+06  regions=4,711  I=2.5734234e+00 ~4.1e-07  goal 2.6e-08  1.4e+05/s  eta 31s
+      cubage| 12.0 s  n=3.20e+06  regions=4,711  I=2.5734234e+00 ~4.1e-07  goal 2.6e-08  1.4e+05/s  eta 31.0 s
 
 * :func:`summary_lines` — the closing summary.
 
 The error figures are the engine's heuristic estimates, not bounds; the
-display says "estimate" and the summary spells the caution out.
+display says "estimate" and the summary spells the caution out.  Durations
+use the one format of :func:`cubage.session.forecast.duration_text`; the time
+to the goal is :func:`cubage.session.forecast.forecast`.  Nothing shown here
+can end a run: a part that fails to format reads ``-`` (issue 10 item 1).
 """
 
 from __future__ import annotations
@@ -26,29 +29,19 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from cubage.session.forecast import duration_text as fmt_duration
+from cubage.session.forecast import forecast
+from cubage.session.status import meaning
+
+__all__ = ["CAUTION", "PlainTicker", "LivePanel", "summary_lines", "fmt_duration", "fmt_count", "fmt_rate",
+           "fmt_value", "fmt_err", "reference_array"]
+
 CAUTION = "the error is the engine's estimate, not a guaranteed bound"
 
 
 # --------------------------------------------------------------------------
 # numbers
 # --------------------------------------------------------------------------
-
-def fmt_duration(seconds: float | None) -> str:
-    """Seconds as a short human duration (``"850 ms"``, ``"12.3 s"``, ``"4 min 05 s"``, ``"2 h 10 min"``)."""
-    if seconds is None or not math.isfinite(seconds) or seconds < 0:
-        return "—"
-    if seconds < 1:
-        return f"{seconds * 1000:.0f} ms"
-    if seconds < 60:
-        return f"{seconds:.1f} s"
-    if seconds < 3600:
-        m, s = divmod(int(round(seconds)), 60)
-        return f"{m} min {s:02d} s"
-    if seconds < 86400 * 3:
-        h, rem = divmod(int(round(seconds)), 3600)
-        return f"{h} h {rem // 60:02d} min"
-    return f"{seconds / 86400:.1f} days"
-
 
 def fmt_count(n: float) -> str:
     """An integer count with thousands separators, or a short form above 10^9."""
@@ -87,90 +80,39 @@ def reference_array(reference, m: int) -> np.ndarray | None:
 
 
 # --------------------------------------------------------------------------
-# time to the goal
-# --------------------------------------------------------------------------
-
-def time_to_goal(history: np.ndarray, goal: np.ndarray, rate: float, *, window: int = 40,
-                 min_points: int = 6) -> float | None:
-    """Estimated seconds until the error estimate meets the goal, or None.
-
-    Fits ``log(error) = a + b log(evaluations)`` by least squares over the
-    last ``window`` history rows (error of the worst component relative to
-    its goal) and extrapolates to ``error = goal`` at the current rate of
-    evaluations per second.
-
-    Parameters
-    ----------
-    history : ndarray, shape (n, 2 + 2m)
-        Rows (evaluations, regions, value_0.., error_0..) as in a Snapshot.
-    goal : ndarray, shape (m,)
-        Current goal per component.
-    rate : float
-        Evaluations per second.
-    window, min_points : int
-        How many recent rows to fit, and the fewest that make a fit.
-
-    Returns
-    -------
-    float or None
-        0 when the goal is met; None when there are too few points, the
-        error does not decrease, or the rate is unknown.
-    """
-    h = np.asarray(history, dtype=float)
-    goal = np.atleast_1d(np.asarray(goal, dtype=float))
-    if h.ndim != 2 or h.shape[0] < 1 or not (rate > 0) or not np.all(np.isfinite(goal)) or np.any(goal <= 0):
-        return None
-    m = (h.shape[1] - 2) // 2
-    if m < 1 or goal.size != m:
-        return None
-    err = h[:, 2 + m: 2 + 2 * m]
-    ratio = (err / goal).max(axis=1)
-    if ratio[-1] <= 1:
-        return 0.0
-    h, ratio = h[-window:], ratio[-window:]
-    n = h[:, 0]
-    ok = (n > 0) & (ratio > 0) & np.isfinite(ratio)
-    if ok.sum() < min_points:
-        return None
-    x, y = np.log(n[ok]), np.log(ratio[ok])
-    if np.ptp(x) <= 0:
-        return None
-    b, a = np.polyfit(x, y, 1)
-    if not b < -1e-3:
-        return None
-    n_goal = math.exp(-a / b)          # where a + b log n = log 1
-    n_now = float(h[-1, 0])
-    if not math.isfinite(n_goal):
-        return None
-    return max(0.0, (n_goal - n_now) / rate)
-
-
-# --------------------------------------------------------------------------
 # the plain ticker
 # --------------------------------------------------------------------------
 
 class PlainTicker:
     """Compact progress lines on a stream (stderr by default), every ``every`` seconds and at the end."""
 
-    def __init__(self, reference=None, every: float = 5.0, stream=None):
+    def __init__(self, reference=None, every: float = 5.0, stream=None, prefix: str = "cubage"):
         self.reference = reference
         self.every = every
         self.stream = stream if stream is not None else sys.stderr
+        self.prefix = prefix
         self._last = time.monotonic()
 
     def line(self, snap) -> str:
-        v, e, g = snap.value, snap.error, snap.goal
-        parts = [f"cubage| {snap.elapsed:6.1f}s", f"n={snap.evaluations:.2e}", f"regions={snap.regions:,}"]
+        """One line for ``snap``; a part that cannot be formatted reads ``-``."""
+        def part(fn):
+            try:
+                return fn()
+            except Exception:  # noqa: BLE001 - display code must never raise
+                return "-"
+        parts = [f"{self.prefix}| {part(lambda: fmt_duration(snap.elapsed)):>8}",
+                 part(lambda: f"n={snap.evaluations:.2e}"), part(lambda: f"regions={snap.regions:,}")]
         for i in range(snap.components):
             tag = "I" if snap.components == 1 else f"I{i}"
-            parts.append(f"{tag}={v[i]:.9e} ~{fmt_err(e[i])}")
-        parts.append("goal " + ",".join(fmt_err(x) for x in np.atleast_1d(g)))
-        parts.append(f"{snap.rate:.1e}/s" if snap.rate > 0 else "-/s")
-        eta = time_to_goal(snap.history, g, snap.rate)
-        parts.append("eta " + ("-" if eta is None else f"{eta:.0f}s"))
+            parts.append(part(lambda i=i, tag=tag: f"{tag}={snap.value[i]:.9e} ~{fmt_err(snap.error[i])}"))
+        parts.append(part(lambda: "goal " + ",".join(fmt_err(x) for x in np.atleast_1d(snap.goal))))
+        parts.append(part(lambda: f"{snap.rate:.1e}/s" if snap.rate > 0 else "-/s"))
+        fc = part(lambda: forecast(snap.history, snap.goal, snap.rate, budget=snap.budget))
+        eta = "-" if fc == "-" else fmt_duration(fc.seconds) + (" (beyond the budget)" if fc.beyond_budget else "")
+        parts.append("eta " + eta)
         ref = reference_array(self.reference, snap.components)
         if ref is not None:
-            parts.append("true-err " + ",".join(fmt_err(abs(a - b)) for a, b in zip(v, ref)))
+            parts.append(part(lambda: "true-err " + ",".join(fmt_err(abs(a - b)) for a, b in zip(snap.value, ref))))
         if snap.status not in ("running",):
             parts.append(f"[{snap.status}]")
         return "  ".join(parts)
@@ -229,7 +171,11 @@ class LivePanel:
             return
         self._last = now
         if self._live is not None:
-            self._live.update(self.render(snap), refresh=True)
+            try:
+                view = self.render(snap)
+            except Exception:  # noqa: BLE001 - a display failure must never end a run (issue 10 item 1)
+                return
+            self._live.update(view, refresh=True)
 
     def render(self, snap):
         """The renderable for one snapshot."""
@@ -262,8 +208,12 @@ class LivePanel:
         budget = f" of {fmt_count(snap.budget)}" if snap.budget else ""
         t.add_row("evaluations", f"{fmt_count(snap.evaluations)}{budget}   at {fmt_rate(snap.rate)}")
         t.add_row("regions", fmt_count(snap.regions))
-        eta = time_to_goal(snap.history, snap.goal, snap.rate)
-        t.add_row("elapsed", f"{fmt_duration(snap.elapsed)}   to goal ≈ {fmt_duration(eta)}")
+        try:
+            fc = forecast(snap.history, snap.goal, snap.rate, budget=snap.budget)
+            eta = fmt_duration(fc.seconds) + ("  (beyond the budget)" if fc.beyond_budget else "")
+        except Exception:  # noqa: BLE001 - a forecast must never end a run
+            eta = "-"
+        t.add_row("elapsed", f"{fmt_duration(snap.elapsed)}   to goal ≈ {eta}")
         if self.extra:
             t.add_row("method", self.extra)
         return Panel(t, title=f"[bold]{self.title}[/]", subtitle=f"{snap.status} · Ctrl-C stops and keeps the estimate",
@@ -274,8 +224,8 @@ class LivePanel:
 # the summary
 # --------------------------------------------------------------------------
 
-def summary_lines(result, statuses: dict, reference=None, extra: Sequence[str] = ()) -> list[str]:
-    """Plain text lines summarising a finished (or stopped) run."""
+def summary_lines(result, statuses: dict | None = None, reference=None, extra: Sequence[str] = ()) -> list[str]:
+    """Plain text lines summarising a finished (or stopped) run (``statuses``: meanings, default the session's)."""
     vals = np.atleast_1d(result.values) if len(np.atleast_1d(result.values)) else np.atleast_1d(result.value)
     errs = np.atleast_1d(result.errors) if len(np.atleast_1d(result.errors)) else np.atleast_1d(result.error)
     m = vals.size
@@ -287,7 +237,8 @@ def summary_lines(result, statuses: dict, reference=None, extra: Sequence[str] =
         if ref is not None:
             line += f"   (reference {ref[i]:.12e}, true error {fmt_err(abs(vals[i] - ref[i]))})"
         lines.append(line)
-    lines.append(f"{'status':<11} {result.status}: {statuses.get(result.status, '')}")
+    said = statuses.get(result.status, "") if statuses else meaning(result.status)
+    lines.append(f"{'status':<11} {result.status}: {said}")
     lines.append(f"{'work':<11} {fmt_count(result.evaluations)} evaluations, {fmt_count(result.regions)} "
                  f"region{'' if result.regions == 1 else 's'}, "
                  f"{fmt_duration(result.seconds)} (rule {result.rule})")

@@ -15,7 +15,9 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+import struct
 import zipfile
+import zlib
 from pathlib import Path
 
 import numpy as np
@@ -49,8 +51,11 @@ def write_atomic(path: Path, data) -> None:
     """
     path = Path(path)
     tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    tmp.unlink(missing_ok=True)
+    # O_EXCL | O_NOFOLLOW: never write through a link planted under the temporary name
+    fd = os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_NOFOLLOW", 0), 0o644)
     try:
-        with open(tmp, "wb") as fh:
+        with os.fdopen(fd, "wb") as fh:
             if callable(data):
                 data(fh)
             else:
@@ -103,7 +108,8 @@ def read_checkpoint(path) -> tuple[dict, dict[str, np.ndarray]]:
             arrays = {k: z[k] for k in z.files}
     except FileNotFoundError:
         raise CheckpointError(f"{path}: no such checkpoint") from None
-    except (zipfile.BadZipFile, OSError, ValueError, EOFError, KeyError) as exc:
+    except (zipfile.BadZipFile, OSError, ValueError, EOFError, KeyError, zlib.error, struct.error,
+            NotImplementedError, RuntimeError) as exc:   # a flipped bit in the zip headers lands in any of these
         raise CheckpointError(f"{path}: checkpoint is truncated or corrupted ({exc})") from None
     if "meta" not in arrays:
         raise CheckpointError(f"{path}: not a cubage checkpoint (no metadata)")

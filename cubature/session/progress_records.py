@@ -1,107 +1,165 @@
-"""Snapshots as JSON records, so that another process can follow a run.
+"""Snapshots as JSON, so that another process can follow a run: the trail line and the map record.
 
-A headless ``cubage run --run-dir DIR`` appends one record per snapshot
-interval to ``DIR/progress.jsonl``; ``cubage watch DIR`` (the text UI) reads
-them back into :class:`~cubage.engine.run.Snapshot` objects.  The record is our
-own plain JSON layout::
+A headless ``cubage run --run-dir DIR`` appends one *trail line* per second
+to ``DIR/trail.jsonl`` and rewrites the *map record* ``DIR/trail-map.json``
+every few seconds (atomically); a follower
+(:class:`cubage.session.follower.RunFollower`, used by ``cubage watch`` and
+the text UI) rebuilds :class:`~cubage.engine.run.Snapshot` objects from them.
 
-    {"kind": "snapshot", "time": <unix seconds>, "step": int, "evaluations": int,
-     "regions": int, "elapsed": float, "rate": float, "status": str, "message": str,
-     "value": [..m], "error": [..m], "goal": [..m],
-     "rel_tol": float, "abs_tol": float, "budget": int,
+A trail line is small and of constant size (issue 10 item 10): the running
+totals and at most :data:`ROWS_PER_LINE` new convergence-history rows (a
+delta: only rows newer than the previous line's, thinned evenly when more
+arrived)::
+
+    {"kind": "tick", "t": <unix seconds>, "step": int, "evaluations": int, "regions": int,
+     "elapsed": float, "rate": float, "status": str, "message": str (at most 400 characters),
+     "value": [..m], "error": [..m], "goal": [..m], "rel_tol": float, "abs_tol": float, "budget": int,
+     "rows": [[evaluations, regions, value.., error..], ...]}
+
+The map record holds what is large and only needed as its newest state::
+
+    {"kind": "map", "t": ..., "evaluations": int,
      "top": [{"lower": [..d], "upper": [..d], "value": [..m], "error": [..m], "depth": int,
               "vertices": [[..d] x (d+1)] or null}, ...],
      "depth_error": [...],
-     "map": {"centres": [[..d], ...], "sizes": [[..d], ...], "lower": [..d], "upper": [..d]} or null,
-     "history": [[evaluations, regions, value.., error..], ...]   # only the rows new since the last record
-    }
+     "map": {"centres": [[..d], ...], "sizes": [[..d], ...], "lower": [..d], "upper": [..d]}}
 
-Infinite numbers are written as the strings "inf"/"-inf" (JSON has none).
+Non-finite numbers follow the project's one rule (:mod:`cubage.session.jsonio`).
 """
 
 from __future__ import annotations
 
-import math
 import time
 
 import numpy as np
 
 from cubage.engine.run import Snapshot, TopRegion
+from cubage.session.jsonio import json_safe, number_from_json
 
+__all__ = ["ROWS_PER_LINE", "MESSAGE_CHARS", "trail_line", "map_record", "record_to_snapshot", "new_rows", "with_map"]
 
-def _num(x: float):
-    x = float(x)
-    if math.isinf(x):
-        return "inf" if x > 0 else "-inf"
-    if math.isnan(x):
-        return "nan"
-    return x
-
-
-def _list(a) -> list:
-    a = np.asarray(a, dtype=float)
-    if a.ndim == 0:
-        return _num(a)
-    return [_list(r) for r in a] if a.ndim > 1 else [_num(v) for v in a]
+#: At most this many history rows ride on one trail line.
+ROWS_PER_LINE = 4
+#: Messages are cut to this many characters on a trail line.
+MESSAGE_CHARS = 400
 
 
 def _arr(v) -> np.ndarray:
     def conv(x):
         if isinstance(x, list):
             return [conv(y) for y in x]
-        if isinstance(x, str):
-            return float(x)
+        if isinstance(x, (str, type(None))):
+            return number_from_json(x)
+        if isinstance(x, bool) or not isinstance(x, (int, float)):
+            raise TypeError(f"expected a number, got {type(x).__name__}")
         return x
     return np.asarray(conv(v), dtype=float)
 
 
-def snapshot_to_record(snap: Snapshot, *, history_from: int = 0, with_map: bool = True) -> dict:
-    """A JSON-ready dict of ``snap``; ``history`` rows from index ``history_from`` on."""
-    return {
-        "kind": "snapshot", "time": time.time(), "step": snap.step, "evaluations": int(snap.evaluations),
-        "regions": int(snap.regions), "elapsed": snap.elapsed, "rate": snap.rate, "status": snap.status,
-        "message": snap.message, "value": _list(snap.value), "error": _list(snap.error),
-        "goal": _list(snap.goal), "rel_tol": snap.rel_tol, "abs_tol": snap.abs_tol,
-        "budget": int(snap.budget),
-        "top": [{"lower": _list(t.lower), "upper": _list(t.upper), "value": _list(t.value),
-                 "error": _list(t.error), "depth": t.depth,
-                 "vertices": None if t.vertices is None else _list(t.vertices)} for t in snap.top],
-        "depth_error": _list(snap.depth_error),
-        "map": ({"centres": _list(snap.map_centres), "sizes": _list(snap.map_sizes),
-                 "lower": _list(snap.map_lower), "upper": _list(snap.map_upper)} if with_map else None),
-        "history": _list(snap.history[history_from:]) if len(snap.history) > history_from else [],
-    }
+def new_rows(history: np.ndarray, after: float, limit: int = ROWS_PER_LINE) -> np.ndarray:
+    """History rows with an evaluation count above ``after``, thinned evenly to ``limit`` (always the newest)."""
+    h = np.asarray(history, dtype=float)
+    if h.ndim != 2 or len(h) == 0:
+        return np.zeros((0, h.shape[1] if h.ndim == 2 else 0))
+    start = int(np.searchsorted(h[:, 0], after, side="right"))
+    rows = h[start:]
+    if len(rows) > limit:
+        pick = np.unique(np.linspace(0, len(rows) - 1, limit).round().astype(np.int64))
+        rows = rows[pick]
+    return rows
 
 
-def record_to_snapshot(rec: dict, history: np.ndarray | None = None, previous: Snapshot | None = None) -> Snapshot:
-    """Rebuild a :class:`Snapshot` from a record.
+def trail_line(snap: Snapshot, rows: np.ndarray | None = None) -> dict:
+    """The trail line of ``snap`` carrying ``rows`` (default: the last history row)."""
+    if rows is None:
+        rows = snap.history[-1:] if len(snap.history) else np.zeros((0, 2 + 2 * snap.components))
+    msg = snap.message if len(snap.message) <= MESSAGE_CHARS else snap.message[: MESSAGE_CHARS - 1] + "…"
+    return json_safe({
+        "kind": "tick", "t": round(time.time(), 3), "step": int(snap.step), "evaluations": int(snap.evaluations),
+        "regions": int(snap.regions), "elapsed": float(snap.elapsed), "rate": float(snap.rate),
+        "status": snap.status, "message": msg, "value": np.asarray(snap.value, float),
+        "error": np.asarray(snap.error, float), "goal": np.atleast_1d(np.asarray(snap.goal, float)),
+        "rel_tol": float(snap.rel_tol), "abs_tol": float(snap.abs_tol), "budget": int(snap.budget),
+        "rows": np.asarray(rows, float),
+    })
 
-    ``history``: the accumulated history rows so far (the record's own new
-    rows are appended to it).  ``previous``: the last snapshot, whose map is
-    reused when this record carries none.
-    """
-    value = _arr(rec["value"])
-    m = value.size
-    new = _arr(rec.get("history") or np.zeros((0, 2 + 2 * m)))
-    if new.ndim == 1:
-        new = new.reshape(0, 2 + 2 * m) if new.size == 0 else new[None]
-    hist = new if history is None or len(history) == 0 else np.concatenate([history, new])
+
+def map_record(snap: Snapshot) -> dict:
+    """The map record of ``snap`` (worst regions, error by depth, region map)."""
+    return json_safe({
+        "kind": "map", "t": round(time.time(), 3), "evaluations": int(snap.evaluations),
+        "top": [{"lower": t.lower, "upper": t.upper, "value": t.value, "error": t.error, "depth": int(t.depth),
+                 "vertices": t.vertices} for t in snap.top],
+        "depth_error": np.asarray(snap.depth_error, float),
+        "map": {"centres": snap.map_centres, "sizes": snap.map_sizes, "lower": snap.map_lower,
+                "upper": snap.map_upper},
+    })
+
+
+def _map_parts(map_rec: dict):
+    if not isinstance(map_rec, dict):
+        raise TypeError(f"a map record is a JSON object, got {type(map_rec).__name__}")
     tops = tuple(TopRegion(_arr(t["lower"]), _arr(t["upper"]), _arr(t["value"]), _arr(t["error"]),
                            int(t.get("depth", 0)), None if t.get("vertices") is None else _arr(t["vertices"]))
-                 for t in rec.get("top", []))
-    mp = rec.get("map")
-    if mp is not None:
-        d = len(mp["lower"])
-        centres = _arr(mp["centres"]).reshape(-1, d)
-        sizes = _arr(mp["sizes"]).reshape(-1, d)
-        lo, hi = _arr(mp["lower"]), _arr(mp["upper"])
+                 for t in map_rec.get("top", []))
+    depth_err = _arr(map_rec.get("depth_error", []))
+    mp = map_rec["map"]
+    d = len(mp["lower"])
+    centres = _arr(mp["centres"]).reshape(-1, d)
+    sizes = _arr(mp["sizes"]).reshape(-1, d)
+    return tops, depth_err, centres, sizes, _arr(mp["lower"]), _arr(mp["upper"])
+
+
+def with_map(snap: Snapshot, map_rec: dict) -> Snapshot:
+    """``snap`` with the worst regions, error by depth and region map of ``map_rec``."""
+    import dataclasses
+    tops, depth_err, centres, sizes, lo, hi = _map_parts(map_rec)
+    return dataclasses.replace(snap, top=tops, depth_error=depth_err, map_centres=centres, map_sizes=sizes,
+                               map_lower=lo, map_upper=hi)
+
+
+def record_to_snapshot(line: dict, history: np.ndarray | None = None, map_rec: dict | None = None,
+                       previous: Snapshot | None = None) -> Snapshot:
+    """Rebuild a :class:`Snapshot` from a trail line.
+
+    Parameters
+    ----------
+    line : dict
+        A trail line.
+    history : ndarray, optional
+        The history rows accumulated so far; the line's own rows are appended.
+    map_rec : dict, optional
+        The newest map record; without one the previous snapshot's map and
+        worst regions are kept.
+    previous : Snapshot, optional
+
+    Raises
+    ------
+    KeyError, TypeError, ValueError
+        A line that is not a trail line.
+    """
+    if not isinstance(line, dict):
+        raise TypeError(f"a trail line is a JSON object, got {type(line).__name__}")
+    value = _arr(line["value"]).reshape(-1)
+    m = value.size
+    new = _arr(line.get("rows") or [])
+    new = new.reshape(-1, 2 + 2 * m) if new.size else np.zeros((0, 2 + 2 * m))
+    if history is not None and len(history) and history.shape[1] == new.shape[1]:
+        hist = np.concatenate([history, new])
+    else:
+        hist = new
+    if map_rec is not None:
+        tops, depth_err, centres, sizes, lo, hi = _map_parts(map_rec)
     elif previous is not None:
+        tops, depth_err = previous.top, previous.depth_error
         centres, sizes, lo, hi = previous.map_centres, previous.map_sizes, previous.map_lower, previous.map_upper
     else:
+        tops, depth_err = (), np.zeros(0)
         centres = sizes = np.zeros((0, 1))
         lo, hi = np.zeros(1), np.ones(1)
-    return Snapshot(int(rec["step"]), int(rec["evaluations"]), value, _arr(rec["error"]), _arr(rec["goal"]),
-                    int(rec["regions"]), float(rec["elapsed"]), str(rec["status"]), float(rec.get("rate", 0.0)),
-                    tops, _arr(rec.get("depth_error", [])), centres, sizes, lo, hi, hist,
-                    str(rec.get("message", "")), float(rec.get("rel_tol", 0.0)), float(rec.get("abs_tol", 0.0)),
-                    int(rec.get("budget", 0)))
+    return Snapshot(int(line["step"]), int(line["evaluations"]), value, _arr(line["error"]).reshape(-1),
+                    _arr(line["goal"]).reshape(-1), int(line["regions"]), float(line["elapsed"]),
+                    str(line["status"]), float(number_from_json(line.get("rate", 0.0))), tops, depth_err,
+                    centres, sizes, lo, hi, hist, str(line.get("message", "")),
+                    float(number_from_json(line.get("rel_tol", 0.0))),
+                    float(number_from_json(line.get("abs_tol", 0.0))), int(line.get("budget", 0)))

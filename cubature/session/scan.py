@@ -488,7 +488,8 @@ class _ScanFiles:
 
     @property
     def stop_file(self) -> Path:
-        return self.path / "stop-request"
+        from cubage.session.run_directory import HALT_REQUEST
+        return self.path / HALT_REQUEST
 
     def read_points(self) -> dict[int, PointResult]:
         out: dict[int, PointResult] = {}
