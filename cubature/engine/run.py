@@ -87,6 +87,12 @@ class Settings:
         Stop with ``"region-limit"`` rather than grow beyond this.
     batch_points : int
         Target number of integrand points per step for ``batch="auto"``.
+    breaks, cuts, singular : optional
+        Declared features: region boundaries placed on them from the start
+        and maps flattening singularities (see :mod:`cubage.engine.partition`).
+        ``breaks``: one list of values per axis (or ``{axis: [values]}``);
+        ``cuts``: planes ``[normal, offset]``; ``singular``: tables
+        ``{"point": [...], "power": a}`` or ``{"normal": [...], "offset": b, "power": a}``.
     """
 
     rel_tol: float = 1e-6
@@ -101,6 +107,9 @@ class Settings:
     estimate: str = "sharp"
     max_regions: int | None = None
     batch_points: int = 131072
+    breaks: list | dict | None = None
+    cuts: list | None = None
+    singular: list | None = None
 
     def validate(self) -> None:
         if not (self.rel_tol >= 0 and self.abs_tol >= 0) or math.isnan(self.rel_tol) or math.isnan(self.abs_tol):
@@ -118,8 +127,11 @@ class Settings:
 
     def shape_key(self) -> dict:
         """The settings that decide the sequence of regions (part of the fingerprint)."""
-        return {"rule": self.rule, "degree": self.degree, "split": self.split, "queue": self.queue,
-                "batch": self.batch, "estimate": self.estimate, "batch_points": self.batch_points}
+        key = {"rule": self.rule, "degree": self.degree, "split": self.split, "queue": self.queue,
+               "batch": self.batch, "estimate": self.estimate, "batch_points": self.batch_points}
+        key.update({k: v for k, v in (("breaks", self.breaks), ("cuts", self.cuts), ("singular", self.singular))
+                    if v is not None})
+        return key
 
 
 @dataclass(frozen=True)
@@ -270,6 +282,11 @@ class _Queue:
 
 
 def _make_geometry(domain, settings: Settings):
+    if settings.breaks or settings.cuts or settings.singular:   # features: an initial partition
+        from cubage.engine.partition import make_geometry
+        made = make_geometry(domain, settings, box_rule, simplex_rule, default_rule)
+        if made is not None:
+            return made
     if isinstance(domain, Box):
         name = settings.rule or default_rule("box", domain.dim)
         rule = box_rule(name, domain.dim)
@@ -426,7 +443,10 @@ class Run:
     def _evaluate(self, g: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Rule values (k, r, m), |f|-rule (k, m), node values (k, p, m) of regions ``g``."""
         t = self.geometry.points(g)
-        x, jac = (self.geometry.map.to_user(t) if self.geometry.map is not None else (t, None))
+        if hasattr(self.geometry, "to_user"):                    # per-piece maps (cubage.engine.partition)
+            x, jac = self.geometry.to_user(g, t)
+        else:
+            x, jac = (self.geometry.map.to_user(t) if self.geometry.map is not None else (t, None))
         try:
             fx = self.evaluator(self.f, x) if self.evaluator is not None else self.f(x)
         except IntegrandError:
@@ -454,15 +474,17 @@ class Run:
         if bad.any():
             i = int(np.nonzero(bad.any(axis=1))[0][0])
             pt = ", ".join(f"{v:.17g}" for v in x[i])
-            raise IntegrandError(f"integrand returned {fx[i][bad[i]][0]} at x = ({pt})")
+            raise IntegrandError(f"integrand returned {fx[i][bad[i]][0]} at x = ({pt}); if that point is a "
+                                 "removable singularity give the integrand its limit there (expressions: "
+                                 "sin_over_x), or declare it singular=[{'point': [...]}] so that no node lies on it")
         if jac is not None:
             fx = fx * jac[:, None]
             if not np.isfinite(fx).all():
                 i = int(np.nonzero(~np.isfinite(fx).all(axis=1))[0][0])
                 pt = ", ".join(f"{v:.17g}" for v in x[i])
                 raise IntegrandError(
-                    f"integrand times the Jacobian of the infinite-range map overflows at x = ({pt}); "
-                    "the integrand must decay at infinity")
+                    f"integrand times the Jacobian of the variable map overflows at x = ({pt}); "
+                    "the integrand must decay at infinity (or its singularity there be integrable)")
         k = len(next(iter(g.values())))
         p = self.rule.size
         fr = fx.reshape(k, p, -1)
@@ -498,15 +520,19 @@ class Run:
         """Copies of the regions' geometry and depth: the ``start`` of a warm-started run."""
         with self._lock:
             if self.store is None:
-                return {**self.geometry.root(), "depth": np.zeros(1, np.int16)}
+                g = self.geometry.root()
+                return {**g, "depth": np.zeros(len(next(iter(g.values()))), np.int16)}
             return {name: self.store[name].copy() for name in (*self.geometry.columns, "depth")}
 
     def _evaluate_start(self) -> tuple[dict, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """The first regions (the root, or the warm-start partition in chunks of ``batch_points``) evaluated."""
-        if self._start_partition is None:
-            g = self.geometry.root()
-            return (g, *self._evaluate(g), np.zeros(1, np.int16))
         part = self._start_partition
+        if part is None:
+            g = self.geometry.root()
+            n = len(next(iter(g.values())))
+            if n == 1:
+                return (g, *self._evaluate(g), np.zeros(1, np.int16))
+            part = {**g, "depth": np.zeros(n, np.int16)}   # several roots: features (cubage.engine.partition)
         g = {name: np.asarray(part[name]) for name in self.geometry.columns}
         n = len(g[next(iter(g))])
         per = max(1, self.settings.batch_points // self.rule.size)

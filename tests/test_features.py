@@ -1,0 +1,283 @@
+"""Feature-aligned boundaries (issue 13): break values, cut planes, singular maps, against closed forms."""
+
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+import pytest
+from scipy.spatial import ConvexHull
+from scipy.special import gamma
+
+from cubage import Box, Run, Simplex, integrate
+from cubage.engine import partition, singular_maps
+from cubage.engine.run import IntegrandError
+
+SIMPLEX3 = Simplex([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1]])
+
+
+# ---------------------------------------------------------------- Irwin-Hall closed forms
+
+def irwin_hall_cdf(s: float, k: int) -> float:
+    # P(U_1 + ... + U_k <= s) = 1/k! sum_{j <= s} (-1)^j C(k, j) (s - j)^k  (Irwin 1927, Hall 1927)
+    return sum((-1) ** j * math.comb(k, j) * (s - j) ** k for j in range(int(math.floor(s)) + 1)) / math.factorial(k)
+
+
+def irwin_hall_abs_mean(s: float, k: int) -> float:
+    # E|S - s| = (k/2 - s) + 2 int_0^s F(t) dt, with int_0^s F = 1/(k+1)! sum (-1)^j C(k,j) (s-j)_+^(k+1)
+    # (integrating the Irwin-Hall CDF term by term)
+    integral = sum((-1) ** j * math.comb(k, j) * (s - j) ** (k + 1)
+                   for j in range(int(math.floor(s)) + 1)) / math.factorial(k + 1)
+    return k / 2 - s + 2 * integral
+
+
+def test_irwin_hall_formulas_cross_check():
+    # the closed forms against a direct one-dimensional quadrature of the k = 2 triangle density (mpmath)
+    import mpmath
+    pdf = lambda t: t if t <= 1 else 2 - t  # noqa: E731 - Irwin-Hall density for k = 2
+    assert float(mpmath.quad(pdf, [0, 1, 1.3])) == pytest.approx(irwin_hall_cdf(1.3, 2), rel=1e-14)
+    assert float(mpmath.quad(lambda t: abs(t - 1.3) * pdf(t), [0, 1, 1.3, 2])) == \
+        pytest.approx(irwin_hall_abs_mean(1.3, 2), rel=1e-14)
+
+
+@pytest.mark.parametrize("d,s", [(2, 0.7), (3, 1.4), (4, 2.3)])
+def test_kink_along_generic_plane_with_cut(d, s):
+    f = lambda X: np.abs(X.sum(axis=1) - s)  # noqa: E731
+    res = integrate(f, Box([0] * d, [1] * d), rel_tol=1e-10, cuts=[[[1.0] * d, s]])
+    exact = irwin_hall_abs_mean(s, d)        # Irwin-Hall, see above
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= max(res.error, 1e-12)
+    assert abs(res.value - exact) <= 1e-10 * exact
+
+
+@pytest.mark.parametrize("d,s", [(2, 0.7), (3, 1.4)])
+def test_indicator_cdf_with_cut(d, s):
+    f = lambda X: (X.sum(axis=1) < s).astype(float)  # noqa: E731
+    res = integrate(f, Box([0] * d, [1] * d), rel_tol=1e-10, cuts=[[[1.0] * d, s]])
+    exact = irwin_hall_cdf(s, d)             # Irwin-Hall CDF
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= max(res.error, 1e-13)
+
+
+def test_one_d_products_of_abs_and_indicators():
+    # int_0^1 |x - 0.3| |x - 0.55| (x < 0.8) dx, piecewise cubic: exact by the antiderivative on each piece
+    f = lambda X: np.abs(X[:, 0] - 0.3) * np.abs(X[:, 0] - 0.55) * (X[:, 0] < 0.8)  # noqa: E731
+    P = np.polynomial.Polynomial
+    q = P([0.3 * 0.55, -(0.3 + 0.55), 1.0])   # (x - 0.3)(x - 0.55)
+    exact = 0.0
+    for a, b, sign in ((0, 0.3, 1), (0.3, 0.55, -1), (0.55, 0.8, 1)):
+        Q = q.integ()
+        exact += sign * (Q(b) - Q(a))
+    res = integrate(f, Box([0.0], [1.0]), rel_tol=1e-12, rule="gauss-kronrod", breaks=[[0.3, 0.55, 0.8]])
+    assert res.status == "converged"
+    assert res.value == pytest.approx(exact, rel=1e-12)
+
+
+def test_break_values_axis_aligned_4d():
+    # (x < 0.37) exp(y): product form (0.37 (e - 1)) on the unit 4-cube  (closed form)
+    f = lambda X: (X[:, 0] < 0.37) * np.exp(X[:, 1])  # noqa: E731
+    res = integrate(f, Box([0] * 4, [1] * 4), rel_tol=1e-10, breaks={0: [0.37]})
+    assert res.status == "converged"
+    assert res.value == pytest.approx(0.37 * (math.e - 1), rel=1e-10)
+
+
+# ---------------------------------------------------------------- singularities
+
+def test_dirichlet_half_powers_on_every_face():
+    # (x y z (1 - x - y - z))^(-1/2) over the standard simplex = Gamma(1/2)^4 / Gamma(2) = pi^2  (Dirichlet's formula)
+    f = lambda X: (X[:, 0] * X[:, 1] * X[:, 2] * (1 - X.sum(axis=1))) ** -0.5  # noqa: E731
+    faces = [{"normal": n, "offset": b, "power": -0.5}
+             for n, b in (([1, 0, 0], 0), ([0, 1, 0], 0), ([0, 0, 1], 0), ([1, 1, 1], 1))]
+    res = integrate(f, SIMPLEX3, rel_tol=1e-7, singular=faces)
+    assert res.status == "converged"
+    assert abs(res.value - math.pi ** 2) <= max(res.error, 1e-9 * math.pi ** 2)
+
+
+def test_dirichlet_fractional_powers():
+    # int x^(-0.9) y^(-1/3) over the standard 2-simplex = Gamma(0.1) Gamma(2/3) Gamma(1) / Gamma(0.1 + 2/3 + 1)
+    # (Dirichlet's formula)
+    f = lambda X: X[:, 0] ** -0.9 * X[:, 1] ** (-1 / 3)  # noqa: E731
+    tri = Simplex([[0, 0], [1, 0], [0, 1]])
+    res = integrate(f, tri, rel_tol=1e-8, singular=[{"normal": [1, 0], "offset": 0, "power": -0.9},
+                                                    {"normal": [0, 1], "offset": 0, "power": -1 / 3}])
+    exact = gamma(0.1) * gamma(2 / 3) / gamma(0.1 + 2 / 3 + 1)
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= max(2 * res.error, 1e-9 * exact)
+
+
+def box_integral_b3_minus1() -> float:
+    # int_{[0,1]^3} 1/|r| dr = -pi/4 + (3/2) ln(2 + sqrt 3)  (Bailey, Borwein & Crandall 2006, "Box integrals",
+    # value B_3(-1); the Newtonian potential of a cube at a corner)
+    return -math.pi / 4 + 1.5 * math.log(2 + math.sqrt(3))
+
+
+def test_box_integral_closed_form_cross_checked_with_mpmath():
+    # inner integral int_0^1 dx / sqrt(x^2 + a^2) = asinh(1/a); the remaining 2-D integral by mpmath
+    import mpmath
+    two_d = mpmath.quad(lambda y, z: mpmath.asinh(1 / mpmath.sqrt(y * y + z * z)), [0, 1], [0, 1])
+    assert float(two_d) == pytest.approx(box_integral_b3_minus1(), rel=1e-12)
+
+
+def test_newtonian_potential_of_cube_at_its_centre():
+    # int over [-1/2,1/2]^3 of 1/|r| = 8 (1/2)^2 B_3(-1) = 2 B_3(-1)  (Waldvogel 1976, "The Newtonian potential of
+    # homogeneous cuboids", ZAMP 27; here from the box integral by scaling the 8 octants, cross-checked above)
+    f = lambda X: 1.0 / np.sqrt((X * X).sum(axis=1))  # noqa: E731
+    res = integrate(f, Box([-0.5] * 3, [0.5] * 3), rel_tol=1e-8, singular=[{"point": [0, 0, 0], "power": -1}])
+    exact = 2 * box_integral_b3_minus1()
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= max(res.error, 1e-10)
+
+
+def test_point_singularity_inside_is_not_hit_and_converges():
+    """issue 13: a point singularity inside the domain on a would-be node converges instead of failing."""
+    c = np.array([0.5, 0.5, 0.5])
+    f = lambda X: 1.0 / np.sqrt(((X - c) ** 2).sum(axis=1))  # noqa: E731
+    with pytest.raises(IntegrandError):
+        integrate(f, Box([0] * 3, [1] * 3), rel_tol=1e-6)           # the centre is a node: fails without
+    res = integrate(f, Box([0] * 3, [1] * 3), rel_tol=1e-8, singular=[{"point": c.tolist(), "power": -1}])
+    assert res.status == "converged"
+    assert abs(res.value - 2 * box_integral_b3_minus1()) <= max(res.error, 1e-10)
+
+
+def test_singular_point_on_simplex_pieces_with_cut():
+    # 1/|r| over the unit cube with a cut plane (simplex pieces) and the corner declared: B_3(-1)
+    f = lambda X: 1.0 / np.sqrt((X * X).sum(axis=1))  # noqa: E731
+    res = integrate(f, Box([0] * 3, [1] * 3), rel_tol=1e-7, cuts=[[[1, 1, 0], 0.9]],
+                    singular=[{"point": [0, 0, 0], "power": -1}])
+    assert res.status == "converged"
+    assert abs(res.value - box_integral_b3_minus1()) <= max(res.error, 1e-9)
+
+
+def test_removable_singularity_message_names_point():
+    """issue 13 item 3: a Python integrand failing at a node says where and how to fix it."""
+    f = lambda X: np.sin(X[:, 0]) / X[:, 0]  # noqa: E731
+    with pytest.raises(IntegrandError) as exc:
+        integrate(f, Box([-1.0], [1.0]), rule="gauss-kronrod")
+    msg = str(exc.value)
+    assert "x = (0)" in msg and "removable" in msg and "sin_over_x" in msg
+
+
+# ---------------------------------------------------------------- decomposition exactness
+
+def test_polytope_decomposition_volumes_match_convex_hulls():
+    rng = np.random.default_rng(20260213)
+    for d in (2, 3, 4):
+        lo, hi = np.zeros(d), np.array([1.0, 2.0, 0.5, 1.5][:d])
+        for _ in range(3):
+            a = rng.normal(size=d)
+            b = float(a @ (lo + rng.uniform(0.2, 0.8, d) * (hi - lo)))
+            simp = partition.cut_simplices(list(partition.kuhn_simplices(lo, hi)), a, b)
+            vols = partition._volumes(np.array(simp))
+            assert vols.sum() == pytest.approx(np.prod(hi - lo), rel=1e-12)
+            side = np.array([np.sign(v.mean(axis=0) @ a - b) for v in simp])
+            # the part of the box below the plane: corners below plus the plane's crossings of the box edges
+            corners = np.array(list(itertools.product(*zip(lo, hi))))
+            s = corners @ a - b
+            pts = [c for c, v in zip(corners, s) if v <= 0]
+            for i, j in itertools.combinations(range(len(corners)), 2):
+                if np.count_nonzero(corners[i] != corners[j]) == 1 and s[i] * s[j] < 0:
+                    pts.append(corners[i] + s[i] / (s[i] - s[j]) * (corners[j] - corners[i]))
+            hull = ConvexHull(np.array(pts)).volume          # scipy.spatial (Qhull)
+            assert vols[side < 0].sum() == pytest.approx(hull, rel=1e-10)
+
+
+def test_star_split_keeps_volume():
+    tet = [SIMPLEX3.vertices.copy()]
+    for p in ([0.2, 0.2, 0.2], [0.5, 0.5, 0.0], [0.3, 0.0, 0.0]):   # inside, on a face, on an edge
+        out = partition.star_split(tet, p)
+        assert partition._volumes(np.array(out)).sum() == pytest.approx(1 / 6, rel=1e-13)
+        assert all((np.abs(v - p).max(axis=1) < 1e-15).any() for v in out)
+
+
+# ---------------------------------------------------------------- Jacobians against finite differences
+
+def _fd_jacobian(fun, x, h=1e-5):
+    # fourth-order central differences (common practice)
+    d = x.size
+    J = np.empty((d, d))
+    for k in range(d):
+        e = np.zeros(d)
+        e[k] = h
+        J[:, k] = (8 * (fun(x + e) - fun(x - e)) - (fun(x + 2 * e) - fun(x - 2 * e))) / (12 * h)
+    return abs(np.linalg.det(J))
+
+
+def test_endpoint_map_jacobian():
+    t = np.linspace(0.05, 0.95, 7)
+    for left in (True, False):
+        for p in (2.0, 3.0, 10.0):
+            x, dx = singular_maps.endpoint_map(t, 0.0, 1.0, p, left)
+            xp, _ = singular_maps.endpoint_map(t + 1e-7, 0.0, 1.0, p, left)
+            xm, _ = singular_maps.endpoint_map(t - 1e-7, 0.0, 1.0, p, left)
+            assert np.allclose((xp - xm) / 2e-7, dx, rtol=1e-6)
+
+
+@pytest.mark.parametrize("d", [2, 3, 4])
+def test_radial_and_faces_map_jacobians(d):
+    rng = np.random.default_rng(7 + d)
+    V = rng.normal(size=(d + 1, d))
+    for _ in range(4):
+        lam = 0.1 + (1 - 0.1 * (d + 1)) * rng.dirichlet(np.ones(d + 1))   # away from the floored offsets
+        x = lam @ V
+        vertex = int(rng.integers(d + 1))
+        p = float(rng.choice([2.0, 3.0, 5.5]))
+        radial = lambda z, v=vertex, p=p: singular_maps.radial_map(z[None], V[None], np.array([v]), np.array([p]))[0][0]  # noqa: E731
+        jr = singular_maps.radial_map(x[None], V[None], np.array([vertex]), np.array([p]))[1][0]
+        assert jr == pytest.approx(_fd_jacobian(radial, x), rel=1e-5)
+        powers = rng.choice([1.0, 2.0, 3.0, 5.5], size=d + 1)
+        faces = lambda z, q=powers: singular_maps.faces_map(z[None], V[None], q[None])[0][0]  # noqa: E731
+        jf = singular_maps.faces_map(x[None], V[None], powers[None])[1][0]
+        assert jf == pytest.approx(_fd_jacobian(faces, x), rel=1e-5)
+
+
+def test_maps_send_pieces_onto_themselves():
+    # endpoints of the graded interval are fixed; vertices of the simplex are fixed by both simplex maps
+    V = SIMPLEX3.vertices
+    for j in range(4):
+        y, _ = singular_maps.faces_map(V[j][None], V[None], np.array([[2.0, 3.0, 1.0, 4.0]]))
+        assert np.allclose(y[0], V[j], atol=1e-12)
+
+
+# ---------------------------------------------------------------- everything else keeps working
+
+@pytest.mark.parametrize("kw", [dict(breaks=[[0.37], [], []]), dict(cuts=[[[1, 1, 1], 1.4]]),
+                                dict(singular=[{"point": [0.5, 0.5, 0.5], "power": -1}])])
+def test_resume_with_features_is_bit_identical(tmp_path, kw):
+    f = lambda X: np.abs(X.sum(axis=1) - 1.4) + 1.0 / np.sqrt(((X - 0.5) ** 2).sum(axis=1))  # noqa: E731
+    domain = Box([0] * 3, [1] * 3)
+    full = integrate(f, domain, rel_tol=1e-6, **kw)
+    run = Run(f, domain, rel_tol=1e-6, **kw)
+    for _ in range(5):
+        run.step()
+    assert not run.done
+    path = tmp_path / "state.npz"
+    run.save_checkpoint(path)
+    again = Run.from_checkpoint(path, f, domain)
+    res = again.run()
+    assert res.value == full.value and res.error == full.error and res.evaluations == full.evaluations
+
+
+def test_features_change_the_fingerprint(tmp_path):
+    f = lambda X: np.abs(X[:, 0] - 0.3)  # noqa: E731
+    a = Run(f, Box([0, 0], [1, 1]), breaks=[[0.3], []])
+    b = Run(f, Box([0, 0], [1, 1]))
+    assert a.fingerprint() != b.fingerprint()
+
+
+def test_vector_integrand_with_cut():
+    # components |x + y - 0.7| and (x + y < 0.7) on the unit square: Irwin-Hall with k = 2
+    f = lambda X: np.stack([np.abs(X.sum(axis=1) - 0.7), (X.sum(axis=1) < 0.7) * 1.0], axis=1)  # noqa: E731
+    res = integrate(f, Box([0, 0], [1, 1]), rel_tol=1e-10, cuts=[[[1, 1], 0.7]])
+    assert res.status == "converged"
+    assert res.values == pytest.approx([irwin_hall_abs_mean(0.7, 2), irwin_hall_cdf(0.7, 2)], rel=1e-10)
+
+
+def test_bad_features_refused():
+    from cubage.engine.partition import FeatureError
+    with pytest.raises(FeatureError):
+        Run(lambda X: X[:, 0], Box([0, 0], [1, 1]), cuts=[[[0, 0], 1]])
+    with pytest.raises(FeatureError):
+        Run(lambda X: X[:, 0], Box([0, 0], [1, 1]), singular=[{"point": [0, 0], "power": -2.5}])
+    with pytest.raises(FeatureError):
+        Run(lambda X: X[:, 0], Box([0, 0], [1, np.inf]), cuts=[[[1, 1], 1]])
