@@ -170,11 +170,14 @@ def build_parser(show_names: bool = True) -> argparse.ArgumentParser:
     _add_parallel_options(p, show_names)
     _add_common(p)
 
-    p = sub.add_parser("check", help="validate a problem and describe it",
-                       description="Read a problem, report the first mistake (exit 2) or describe it: "
-                                   "dimension, domain, integrand, goal, method, rule and reference.")
-    p.add_argument("file", metavar="FILE", help="problem file or problem name")
+    p = sub.add_parser("check", help="validate problems and describe them",
+                       description="Read each problem, report its first mistake or describe it: dimension, "
+                                   "domain, integrand, goal, method, rule and reference. Exit 2 if any is bad.")
+    p.add_argument("files", metavar="FILE", nargs="+", help="problem files or problem names")
     p.add_argument("--allow-python", action="store_true", help="allow python = ... integrands (imports your code)")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object on stdout: {\"ok\": ..., \"problems\": [...]}, bad ones with "
+                        "their error")
 
     p = sub.add_parser("resume", help="continue a run directory from its checkpoint",
                        description="Continue the run in DIR from its last checkpoint, appending to its "
@@ -186,8 +189,11 @@ def build_parser(show_names: bool = True) -> argparse.ArgumentParser:
 
     p = sub.add_parser("list", help="list the available problems",
                        description="List problems (name, dimension, domain kind, title) in DIR, or in "
-                                   "./problems and the bundled examples.")
+                                   "./problems and the bundled examples. Files that are not valid problems "
+                                   "are listed as invalid. Reading a problem never imports its Python code.")
     p.add_argument("dir", metavar="DIR", nargs="?", help="folder of *.toml problem files")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object on stdout: {\"folders\": [...], \"problems\": [...]}")
 
     p = sub.add_parser("tui", help="open the text UI", description="Open the text UI on some problems.")
     p.add_argument("paths", metavar="PATH", nargs="*", help="problem files or folders")
@@ -522,9 +528,9 @@ def cmd_resume(args, guard) -> int:
         rd.release()
 
 
-def cmd_check(args) -> int:
+def _check_rows(problem) -> tuple[list[tuple[str, str]], dict]:
+    """Rows describing a bound problem for ``cubage check`` and the JSON fields they add."""
     from cubage.engine.domains import Simplex
-    problem = _load(args.file, args.allow_python)
     where = f"{_problem_where(problem)}: [method] rule"
     name, nodes = _rule_info(problem, problem.method.rule, problem.method.degree, where)
     rows = [("problem", str(problem.path))]
@@ -535,21 +541,68 @@ def cmd_check(args) -> int:
         "box" if problem.domain.bounded else "box with infinite bounds (mapped to a finite one)")
     how = "from the problem" if problem.method.rule else "default for this domain"
     per = "2 children per split (bisection)"
-    rows.insert(3, ("kind", kind))
+    rows.insert(3 if problem.title else 2, ("kind", kind))
     idx = [i for i, (k, _) in enumerate(rows) if k == "method"][0] + 1
     rows.insert(idx, ("rule", f"{name} ({how}), {nodes} nodes per region, {per}"))
     if problem.notes:
         rows.append(("notes", " ".join(problem.notes.split())))
-    width = max(len(k) for k, _ in rows)
-    for k, v in rows:
-        print(f"{k:>{width}}  {v}")
-    print(f"{'':>{width}}  ok: the problem is valid")
-    return EXIT_OK
+    return rows, {"rule": name, "nodes_per_region": nodes, "components": int(problem.components)}
+
+
+def cmd_check(args) -> int:
+    """``cubage check FILE...``: describe each problem or report its first mistake; exit 2 if any is bad."""
+    from cubage.problem.problem_file import ProblemError, find_problem, load_problem
+    entries = []
+    for i, name in enumerate(args.files):
+        try:
+            problem = load_problem(find_problem(name), allow_python=args.allow_python)
+            rows, extra = _check_rows(problem)
+        except ProblemError as exc:
+            entries.append({"file": str(name), "ok": False, **exc.to_json()})
+            if not args.json:
+                _err(str(exc))
+            continue
+        except UsageError as exc:
+            entries.append({"file": str(name), "ok": False, "error": "bad-input", "message": str(exc)})
+            if not args.json:
+                _err(f"cubage: {exc}")
+            continue
+        entries.append({"file": str(problem.path), "ok": True, "problem": problem.spec.to_json(), **extra,
+                        "description": {k: v for k, v in rows}})
+        if not args.json:
+            if i:
+                print()
+            width = max(len(k) for k, _ in rows)
+            for k, v in rows:
+                print(f"{k:>{width}}  {v}")
+            print(f"{'':>{width}}  ok: the problem is valid", flush=True)
+    ok = all(e["ok"] for e in entries)
+    if args.json:
+        print(json.dumps({"ok": ok, "problems": entries}, allow_nan=False), flush=True)
+    return EXIT_OK if ok else EXIT_BAD_INPUT
+
+
+def _list_entry(f: Path) -> dict:
+    """One row of ``cubage list``: the problem read as data (no user code imported), or why it is invalid."""
+    from cubage.problem.problem_file import ProblemError, load_problem_spec
+    entry = {"name": f.stem, "path": str(f)}
+    try:
+        spec = load_problem_spec(f)
+    except ProblemError as exc:
+        entry.update(ok=False, error=exc.to_json())
+        return entry
+    except Exception as exc:  # noqa: BLE001 - one unreadable file never ends the listing
+        entry.update(ok=False, error={"error": "bad-input", "message": f"{f}: {type(exc).__name__}: {exc}"})
+        return entry
+    kind = "simplex" if spec.domain.kind == "simplex" else ("box" if spec.domain.bounded else "box, unbounded")
+    entry.update(ok=True, dimension=spec.dim, kind=kind, title=spec.title, integrand=spec.kind,
+                 needs_allow_python=spec.needs_python)
+    return entry
 
 
 def cmd_list(args) -> int:
-    from cubage.engine.domains import Simplex
-    from cubage.problem.problem_file import ProblemError, bundled_problem_dir, list_problems, load_problem, problem_dirs
+    """``cubage list [DIR]``: the problems, with invalid files listed as such (never a failure as a whole)."""
+    from cubage.problem.problem_file import bundled_problem_dir, list_problems, problem_dirs
     if args.dir:
         d = Path(args.dir)
         if not d.is_dir():
@@ -559,29 +612,22 @@ def cmd_list(args) -> int:
         dirs = problem_dirs()
         if bundled_problem_dir() not in dirs:
             dirs.append(bundled_problem_dir())
-    files = list_problems(dirs)
-    if not files:
+    entries = [_list_entry(f) for f in list_problems(dirs)]
+    if args.json:
+        print(json.dumps({"folders": [str(d) for d in dirs], "problems": entries}, allow_nan=False), flush=True)
+        return EXIT_OK
+    if not entries:
         print(f"no problems (*.toml) in {', '.join(str(d) for d in dirs)}")
         return EXIT_OK
     rows = []
-    for f in files:
-        try:
-            p = load_problem(f)
-            kind = "simplex" if isinstance(p.domain, Simplex) else ("box" if p.domain.bounded else "box, unbounded")
-            rows.append((f.stem, str(p.dim), kind, p.title or ""))
-        except ProblemError as exc:
-            needs_code = "--allow-python" in str(exc)
-            note = "needs --allow-python (python integrand)" if needs_code else "invalid: see cubage check"
-            title, dim, kind = "", "?", "?"
-            try:
-                data = tomllib.loads(f.read_text(encoding="utf-8"))
-                title = str(data.get("title", ""))
-                dom = data.get("domain") or {}
-                dim = str(len(dom.get("variables") or [])) or "?"
-                kind = "simplex" if "simplex" in dom else "box"
-            except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, TypeError, AttributeError):
-                pass
-            rows.append((f.stem, dim, kind, f"{title}  [{note}]".strip()))
+    for e in entries:
+        if not e["ok"]:
+            rows.append((e["name"], "?", "?", "[invalid: see cubage check]"))
+            continue
+        title = e["title"]
+        if e["needs_allow_python"]:
+            title = f"{title}  [python integrand: runs with --allow-python]".strip()
+        rows.append((e["name"], str(e["dimension"]), e["kind"], title))
     head = ("name", "dim", "domain", "title")
     w = [max(len(r[i]) for r in [head, *rows]) for i in range(3)]
     print(f"{head[0]:<{w[0]}}  {head[1]:>{w[1]}}  {head[2]:<{w[2]}}  {head[3]}")

@@ -33,7 +33,6 @@ import importlib.util
 import json
 import math
 import reprlib
-import sys
 import tomllib
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -44,10 +43,12 @@ import numpy as np
 from cubage.engine.domains import Box, DomainError, Simplex
 from cubage.engine.rules import default_rule, rule_limit_error
 from cubage.problem.expr import ExpressionError, compile_expression, declared_name
+from cubage.problem.python_integrand import PythonIntegrand, PythonTargetError, bind_python
 from cubage.problem.scan_table import ScanGrid, ScanTableError, parse_scan_table
 
 __all__ = [
-    "ProblemError", "Goal", "Method", "Reference", "Problem",
+    "ProblemError", "Goal", "Method", "Reference", "Problem", "ProblemSpec", "PythonIntegrand",
+    "read_problem_spec", "load_problem_spec", "bind_problem",
     "parse_problem", "load_problem", "integrand_from_spec",
     "bundled_problem_dir", "problem_dirs", "find_problem", "list_problems",
     "RULES", "BACKENDS",
@@ -102,6 +103,11 @@ class ProblemError(Exception):
     def _render(self) -> str:
         return "\n".join([self.headline, *self.detail])
 
+    def to_json(self) -> dict:
+        """The error as a JSON-ready object (for ``--json`` output)."""
+        return {"error": "bad-input", "message": self.headline, "reason": self.message, "file": self.path,
+                "line": self.line, "table": self.table, "key": self.key, "detail": list(self.detail)}
+
 
 @dataclass
 class Goal:
@@ -141,16 +147,22 @@ class Problem:
     method: Method = field(default_factory=Method)
     reference: Reference | None = None
     scan: ScanGrid | None = None       # the [scan] grid (cubage.problem.scan_table), if any
+    spec: ProblemSpec | None = None    # the pure data it was bound from (read_problem_spec)
 
     @property
     def dim(self) -> int:
         return len(self.variables)
 
     def fingerprint(self) -> str:
-        """sha256 of the domain and the integrand (not goal or method); stable across runs."""
+        """sha256 of the domain and the integrand (not goal or method); stable across runs.
+
+        For a Python integrand it covers the import path and the digest of the
+        imported code (:func:`cubage.problem.python_integrand.code_digest`), so
+        an edit of the module between a run and its resume is noticed.
+        """
         spec = dict(self.integrand_spec)
         if spec.get("kind") == "python":
-            spec = _python_fingerprint_spec(spec)
+            spec = {"kind": "python", "target": spec["target"], "code_sha256": spec.get("code_sha256")}
         else:
             spec = {"kind": "expr", "source": spec["source"], "variables": list(spec["variables"]),
                     "constants": {k: float(v).hex() for k, v in sorted(spec.get("constants", {}).items())}}
@@ -160,43 +172,157 @@ class Problem:
 
     def describe(self) -> list[tuple[str, str]]:
         """Rows (label, text) summarising the problem, for ``cubage check`` and the UI."""
-        rows: list[tuple[str, str]] = []
-        rows.append(("dimension", f"{self.dim} ({', '.join(self.variables)})"))
-        rows.append(("domain", self.domain.describe()))
-        spec = self.integrand_spec
-        if spec["kind"] == "expr":
-            src = spec["source"]
-            text = " ; ".join(src) if isinstance(src, list) else src
-            if spec.get("constants"):
-                text += "   with " + ", ".join(f"{k} = {v:g}" for k, v in spec["constants"].items())
-        else:
-            text = f"python {spec['target']}"
-        if self.components > 1:
-            text += f"   [{self.components} components]"
-        rows.append(("integrand", text))
-        g = self.goal
-        goal = f"rel_tol {g.rel_tol:g}, abs_tol {g.abs_tol:g}"
-        goal += f", budget {g.budget:,}" if g.budget is not None else ", budget unlimited"
-        if g.time_limit is not None:
-            goal += f", time_limit {g.time_limit:g} s"
-        rows.append(("goal", goal))
-        m = self.method
-        meth = f"rule {m.rule or 'default'}"
-        if m.degree is not None:
-            meth += f" (degree {m.degree})"
-        meth += f", workers {m.workers}, backend {m.backend}"
-        if m.cluster:
-            meth += f", cluster {m.cluster}"
-        rows.append(("method", meth))
+        return _describe(self.variables, self.domain, self.integrand_spec, self.components, self.goal,
+                         self.method, self.reference, self.scan)
+
+
+@dataclass(frozen=True, eq=False)
+class ProblemSpec:
+    """A problem file read and checked, as pure data: no user code is imported.
+
+    Made by :func:`read_problem_spec` / :func:`load_problem_spec`; turned into
+    a runnable :class:`Problem` by :func:`bind_problem` (which compiles the
+    expression, or imports the Python code when allowed).  Every check that
+    needs no user code has been made: the expression is compiled once to
+    validate it, so a spec whose ``expr`` is set always binds.
+
+    Attributes
+    ----------
+    path : Path or None
+        The file it came from.
+    text : str
+        The TOML text.
+    title, notes : str
+    variables : tuple of str
+        Variable names, NFKC-normalised as Python reads them.
+    domain : Box or Simplex
+    expr : str or tuple of str or None
+        The expression (a tuple for several components), or None.
+    python : str or None
+        ``"module:function"`` or ``"file.py:function"``, or None.
+    base_dir : str
+        Folder that relative Python targets resolve against.
+    constants : dict of str to float
+    components : int or None
+        Number of components; None for Python code until it is bound.
+    goal : Goal
+    method : Method
+    reference : Reference or None
+    scan : ScanGrid or None
+    """
+
+    path: Path | None
+    text: str
+    title: str
+    notes: str
+    variables: tuple[str, ...]
+    domain: Box | Simplex
+    expr: str | tuple[str, ...] | None
+    python: str | None
+    base_dir: str
+    constants: dict[str, float]
+    components: int | None
+    goal: Goal
+    method: Method
+    reference: Reference | None
+    scan: ScanGrid | None = None
+
+    @property
+    def dim(self) -> int:
+        """Number of variables."""
+        return len(self.variables)
+
+    @property
+    def kind(self) -> str:
+        """``"expr"`` or ``"python"``."""
+        return "expr" if self.expr is not None else "python"
+
+    @property
+    def needs_python(self) -> bool:
+        """True when binding imports the user's own code (``allow_python`` needed)."""
+        return self.python is not None
+
+    def line_of(self, table: str | None, key: str | None = None) -> int | None:
+        """1-based line of ``[table] key`` (or of the ``[table]`` header) in the text, if found."""
+        return _locate(self.text, table, key)
+
+    def integrand_spec(self) -> dict:
+        """The integrand as a JSON-ready dict (``Problem.integrand_spec`` without the code digest)."""
+        if self.expr is not None:
+            src = list(self.expr) if isinstance(self.expr, tuple) else self.expr
+            return {"kind": "expr", "source": src, "variables": list(self.variables),
+                    "constants": dict(self.constants)}
+        return {"kind": "python", "target": self.python, "base_dir": self.base_dir}
+
+    def describe(self) -> list[tuple[str, str]]:
+        """Rows (label, text) as :meth:`Problem.describe`, from the data alone."""
+        rows = _describe(self.variables, self.domain, self.integrand_spec(), self.components or 1,
+                         self.goal, self.method, self.reference, self.scan)
+        if self.python is not None:
+            rows = [(k, v + "   (not imported)" if k == "integrand" else v) for k, v in rows]
+        return rows
+
+    def to_json(self) -> dict:
+        """A JSON-ready summary (numbers that JSON cannot hold are written as strings)."""
+        ref = None
         if self.reference is not None:
             v = self.reference.value
-            vt = "[" + ", ".join(f"{x:.15g}" for x in v) + "]" if isinstance(v, list) else f"{v:.15g}"
-            rows.append(("reference", f"{vt}  ({self.reference.source})"))
-        else:
-            rows.append(("reference", "none"))
-        if self.scan is not None:
-            rows.append(("scan", self.scan.describe()))
-        return rows
+            ref = {"value": [_json_number(x) for x in v] if isinstance(v, list) else _json_number(v),
+                   "source": self.reference.source}
+        return {
+            "path": str(self.path) if self.path is not None else None, "title": self.title, "notes": self.notes,
+            "dimension": self.dim, "variables": list(self.variables), "kind": self.domain.kind,
+            "domain": self.domain.to_json(), "integrand": self.integrand_spec(), "components": self.components,
+            "goal": {"rel_tol": self.goal.rel_tol, "abs_tol": self.goal.abs_tol, "budget": self.goal.budget,
+                     "time_limit": self.goal.time_limit},
+            "method": {"rule": self.method.rule, "degree": self.method.degree, "workers": self.method.workers,
+                       "backend": self.method.backend, "cluster": self.method.cluster},
+            "reference": ref, "scan": self.scan.to_json() if self.scan is not None else None,
+        }
+
+
+def _json_number(x: float) -> float | str:
+    """``x``, or ``"inf"`` / ``"-inf"`` / ``"nan"`` where JSON has no number for it."""
+    return x if math.isfinite(x) else str(x)
+
+
+def _describe(variables, domain, spec, components, goal, method, reference, scan) -> list[tuple[str, str]]:
+    rows: list[tuple[str, str]] = []
+    rows.append(("dimension", f"{len(variables)} ({', '.join(variables)})"))
+    rows.append(("domain", domain.describe()))
+    if spec["kind"] == "expr":
+        src = spec["source"]
+        text = " ; ".join(src) if isinstance(src, list) else src
+        if spec.get("constants"):
+            text += "   with " + ", ".join(f"{k} = {v:g}" for k, v in spec["constants"].items())
+    else:
+        text = f"python {spec['target']}"
+    if components > 1:
+        text += f"   [{components} components]"
+    rows.append(("integrand", text))
+    g = goal
+    gt = f"rel_tol {g.rel_tol:g}, abs_tol {g.abs_tol:g}"
+    gt += f", budget {g.budget:,}" if g.budget is not None else ", budget unlimited"
+    if g.time_limit is not None:
+        gt += f", time_limit {g.time_limit:g} s"
+    rows.append(("goal", gt))
+    m = method
+    meth = f"rule {m.rule or 'default'}"
+    if m.degree is not None:
+        meth += f" (degree {m.degree})"
+    meth += f", workers {m.workers}, backend {m.backend}"
+    if m.cluster:
+        meth += f", cluster {m.cluster}"
+    rows.append(("method", meth))
+    if reference is not None:
+        v = reference.value
+        vt = "[" + ", ".join(f"{x:.15g}" for x in v) + "]" if isinstance(v, list) else f"{v:.15g}"
+        rows.append(("reference", f"{vt}  ({reference.source})"))
+    else:
+        rows.append(("reference", "none"))
+    if scan is not None:
+        rows.append(("scan", scan.describe()))
+    return rows
 
 
 # --------------------------------------------------------------------------
@@ -445,8 +571,8 @@ def _check_values(ctx: _Ctx, data: dict) -> None:
                                         "double-precision float (at most about 1.8e308)")
 
 
-def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bool = False) -> Problem:
-    """Parse and validate the text of a problem file.
+def read_problem_spec(text: str, *, path: Path | str | None = None) -> ProblemSpec:
+    """Read and check the text of a problem file as pure data (first phase; imports no user code).
 
     Parameters
     ----------
@@ -454,17 +580,29 @@ def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bo
         The TOML text.
     path : path, optional
         Where it came from (used in messages and to resolve ``file.py:func``).
-    allow_python : bool
-        Allow ``[integrand] python = ...`` (runs the user's own code).
+
+    Returns
+    -------
+    ProblemSpec
 
     Raises
     ------
     ProblemError
+        For anything wrong, one line naming file, line, table and key.  No
+        other exception escapes, whatever the text holds.
     """
     pstr = str(path) if path is not None else None
     ctx = _Ctx(text, pstr)
     if text.startswith("\ufeff"):
         text = text[1:]
+    try:
+        return _read_spec(ctx, text, pstr)
+    except (RecursionError, MemoryError, OverflowError) as exc:   # a last guard; each known cause is checked
+        raise ProblemError(f"cannot read this problem ({type(exc).__name__}); it is too large or too deeply "
+                           "nested", path=ctx.path) from None
+
+
+def _read_spec(ctx: _Ctx, text: str, pstr: str | None) -> ProblemSpec:
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -505,15 +643,88 @@ def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bo
 
     variables, domain = _parse_domain(ctx, tables["domain"])
     base_dir = str(Path(pstr).resolve().parent) if pstr is not None else str(Path.cwd())
-    integrand, spec, components = _parse_integrand(ctx, tables["integrand"], variables, domain,
-                                                   base_dir, allow_python)
+    expr, python, constants, components = _parse_integrand(ctx, tables["integrand"], variables)
     goal = _parse_goal(ctx, tables.get("goal", {}))
     method = _parse_method(ctx, tables.get("method", {}), domain)
     reference = _parse_reference(ctx, tables["reference"], components) if "reference" in tables else None
-    scan = _parse_scan(ctx, data["scan"], spec) if "scan" in data else None
-    return Problem(path=Path(pstr) if pstr is not None else None, text=text, title=title, notes=notes,
-                   variables=variables, domain=domain, integrand=integrand, integrand_spec=spec,
-                   components=components, goal=goal, method=method, reference=reference, scan=scan)
+    kind_spec = {"kind": "expr" if expr is not None else "python", "constants": constants}
+    scan = _parse_scan(ctx, data["scan"], kind_spec) if "scan" in data else None
+    return ProblemSpec(path=Path(pstr) if pstr is not None else None, text=text, title=title, notes=notes,
+                       variables=tuple(variables), domain=domain, expr=expr, python=python, base_dir=base_dir,
+                       constants=constants, components=components, goal=goal, method=method,
+                       reference=reference, scan=scan)
+
+
+def bind_problem(spec: ProblemSpec, *, allow_python: bool = False) -> Problem:
+    """Give a spec its integrand (second phase): compile the expression, or import the Python code.
+
+    Parameters
+    ----------
+    spec : ProblemSpec
+        From :func:`read_problem_spec` or :func:`load_problem_spec`.
+    allow_python : bool
+        Allow importing and running the user's own code (``python = ...``).
+
+    Returns
+    -------
+    Problem
+        Its ``integrand`` pickles by reference: a
+        :class:`~cubage.problem.expr.CompiledExpression` as its source, a
+        :class:`~cubage.problem.python_integrand.PythonIntegrand` as its
+        import path and code digest.
+
+    Raises
+    ------
+    ProblemError
+    """
+    ctx = _Ctx(spec.text, str(spec.path) if spec.path is not None else None)
+    ispec = spec.integrand_spec()
+    reference = spec.reference
+    if spec.expr is not None:
+        src = list(spec.expr) if isinstance(spec.expr, tuple) else spec.expr
+        try:
+            f = compile_expression(src, list(spec.variables), spec.constants)
+        except ExpressionError as exc:   # cannot happen: read_problem_spec compiled it already
+            raise ctx.error("integrand", "expr", exc.reason, detail=exc.caret_lines()) from None
+        components = f.components
+    else:
+        target = spec.python
+        if not allow_python:
+            raise ctx.error("integrand", "python", "this problem runs your own Python code; rerun with "
+                                                   f"--allow-python if you trust {ctx.path}")
+        try:
+            f = bind_python(target, spec.base_dir)
+        except PythonTargetError as exc:
+            raise ctx.error("integrand", "python", str(exc)) from None
+        ispec["code_sha256"] = f.code_sha256
+        components = _probe_components(ctx, f, spec.domain, target)
+        if reference is not None:
+            _check_reference_count(ctx, reference.value, components)
+    return Problem(path=spec.path, text=spec.text, title=spec.title, notes=spec.notes,
+                   variables=list(spec.variables), domain=spec.domain, integrand=f, integrand_spec=ispec,
+                   components=components, goal=spec.goal, method=spec.method, reference=reference,
+                   scan=spec.scan, spec=spec)
+
+
+def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bool = False) -> Problem:
+    """Parse, validate and bind the text of a problem file (both phases at once).
+
+    Equivalent to ``bind_problem(read_problem_spec(text, path=path), allow_python=allow_python)``.
+
+    Parameters
+    ----------
+    text : str
+        The TOML text.
+    path : path, optional
+        Where it came from (used in messages and to resolve ``file.py:func``).
+    allow_python : bool
+        Allow ``[integrand] python = ...`` (runs the user's own code).
+
+    Raises
+    ------
+    ProblemError
+    """
+    return bind_problem(read_problem_spec(text, path=path), allow_python=allow_python)
 
 
 def _parse_scan(ctx, tbl, spec) -> ScanGrid:
@@ -633,7 +844,8 @@ def _parse_domain(ctx, tbl):
     return list(vs), dom
 
 
-def _parse_integrand(ctx, tbl, variables, domain, base_dir, allow_python):
+def _parse_integrand(ctx, tbl, variables):
+    """(expr, python target, constants, components) of [integrand]; compiles the expression to check it."""
     has_expr, has_py = "expr" in tbl, "python" in tbl
     if has_expr and has_py:
         raise ctx.error("integrand", "python", "give either expr or python, not both")
@@ -682,8 +894,7 @@ def _parse_integrand(ctx, tbl, variables, domain, base_dir, allow_python):
         except ExpressionError as exc:
             where = f" (item {exc.index + 1})" if exc.index is not None else ""
             raise ctx.error("integrand", "expr", exc.reason + where, detail=exc.caret_lines()) from None
-        spec = {"kind": "expr", "source": src, "variables": list(variables), "constants": constants}
-        return f, spec, f.components
+        return (tuple(src) if isinstance(src, list) else src), None, constants, f.components
     target = tbl["python"]
     if not isinstance(target, str):
         raise ctx.error("integrand", "python", f'must be a string "module:function" or "file.py:function", '
@@ -691,65 +902,14 @@ def _parse_integrand(ctx, tbl, variables, domain, base_dir, allow_python):
     if ":" not in target or not target.rsplit(":", 1)[1].strip() or not target.rsplit(":", 1)[0].strip():
         raise ctx.error("integrand", "python",
                         f'{_short(target)} must look like "module:function" or "file.py:function"')
-    if not allow_python:
-        raise ctx.error("integrand", "python", "this problem runs your own Python code; rerun with --allow-python "
-                                               f"if you trust {ctx.path}")
-    spec = {"kind": "python", "target": target, "base_dir": base_dir}
-    try:
-        f = _import_target(target, base_dir)
-    except ProblemError as exc:
-        raise ctx.error("integrand", "python", exc.message) from None
-    components = _probe_components(ctx, f, domain, target)
-    return f, spec, components
+    return None, target, constants, None
 
 
 def _import_target(target: str, base_dir: str):
-    modname, _, funcname = target.rpartition(":")
-    modname, funcname = modname.strip(), funcname.strip()
     try:
-        if modname.endswith(".py"):
-            file = Path(modname)
-            if not file.is_absolute():
-                file = Path(base_dir) / file
-            if not file.is_file():
-                raise ProblemError(f"cannot find the file {file}")
-            digest = hashlib.sha256(str(file.resolve()).encode()).hexdigest()[:16]
-            name = f"cubage_user_{file.stem}_{digest}"
-            mod = sys.modules.get(name)
-            if mod is None:
-                spec = importlib.util.spec_from_file_location(name, file)
-                if spec is None or spec.loader is None:
-                    raise ProblemError(f"cannot load {file} as Python")
-                mod = importlib.util.module_from_spec(spec)
-                sys.modules[name] = mod
-                try:
-                    spec.loader.exec_module(mod)
-                except BaseException:
-                    sys.modules.pop(name, None)
-                    raise
-        else:
-            added = base_dir not in sys.path
-            if added:
-                sys.path.insert(0, base_dir)
-            try:
-                mod = importlib.import_module(modname)
-            finally:
-                if added:
-                    try:
-                        sys.path.remove(base_dir)
-                    except ValueError:
-                        pass
-    except ProblemError:
-        raise
-    except (Exception, SystemExit) as exc:  # user code may raise anything while importing
-        msg = " ".join(str(exc).split())
-        raise ProblemError(f"cannot import {modname}: {type(exc).__name__}: {msg}") from None
-    if not funcname.isidentifier() or not hasattr(mod, funcname):
-        raise ProblemError(f"{modname} has no function '{funcname}'")
-    fn = getattr(mod, funcname)
-    if not callable(fn):
-        raise ProblemError(f"{modname}:{funcname} is not callable")
-    return fn
+        return bind_python(target, base_dir)
+    except PythonTargetError as exc:
+        raise ProblemError(str(exc)) from None
 
 
 def _sample_points(domain) -> np.ndarray:
@@ -786,21 +946,6 @@ def _probe_components(ctx, f, domain, target) -> int:
         return int(y.shape[1])
     raise ctx.error("integrand", "python", f"{target} returned shape {y.shape} for {X.shape[0]} points; "
                                            f"it must return (n,) or (n, m)")
-
-
-def _python_fingerprint_spec(spec: dict) -> dict:
-    target = spec["target"]
-    modname = target.rpartition(":")[0].strip()
-    out = {"kind": "python", "target": target}
-    if modname.endswith(".py"):
-        file = Path(modname)
-        if not file.is_absolute():
-            file = Path(spec.get("base_dir", ".")) / file
-        try:
-            out["file_sha256"] = hashlib.sha256(file.read_bytes()).hexdigest()
-        except OSError:
-            out["base_dir"] = spec.get("base_dir")
-    return out
 
 
 def _num(ctx, table, key, v, *, positive=False, nonneg=False):
@@ -911,48 +1056,83 @@ def _parse_reference(ctx, tbl, components) -> Reference:
         raise ctx.error("reference", "source", "must be a non-empty string naming where the value comes from")
     v = tbl["value"]
     if isinstance(v, list):
-        if components == 1:
-            raise ctx.error("reference", "value", f"is a list of {len(v)} but the integrand has one component")
-        if len(v) != components:
-            raise ctx.error("reference", "value", f"has {len(v)} entries but the integrand has {components} components")
         vals = []
         for x in v:
             if not _is_number(x) or math.isnan(float(x)):
                 raise ctx.error("reference", "value", f"entries must be numbers, got {_tname(x)} {_short(x)}")
             vals.append(float(x))
+        if components is not None:
+            _check_reference_count(ctx, vals, components)
         return Reference(vals, src)
     if not _is_number(v) or math.isnan(float(v)):
         raise ctx.error("reference", "value", f"must be a number, got {_tname(v)} {_short(v)}")
-    if components > 1:
-        raise ctx.error("reference", "value", f"must be a list of {components} numbers (one per component)")
+    if components is not None:
+        _check_reference_count(ctx, float(v), components)
     return Reference(float(v), src)
+
+
+def _check_reference_count(ctx, value, components: int) -> None:
+    """A reference list must have one entry per component; a scalar needs one component."""
+    if isinstance(value, list):
+        if components == 1:
+            raise ctx.error("reference", "value", f"is a list of {len(value)} but the integrand has one component")
+        if len(value) != components:
+            raise ctx.error("reference", "value",
+                            f"has {len(value)} entries but the integrand has {components} components")
+    elif components > 1:
+        raise ctx.error("reference", "value", f"must be a list of {components} numbers (one per component)")
 
 
 # --------------------------------------------------------------------------
 # files
 # --------------------------------------------------------------------------
 
-def load_problem(path, *, allow_python: bool = False) -> Problem:
-    """Read and parse a problem file; an unreadable file is a ProblemError too."""
+#: Largest problem file read (bytes); a problem needs a few kilobytes.
+MAX_FILE_BYTES = 1_000_000
+
+
+def load_problem_spec(path) -> ProblemSpec:
+    """Read a problem file as pure data (:func:`read_problem_spec`); imports no user code.
+
+    An unreadable, oversized or non-UTF-8 file is a :class:`ProblemError` too.
+    """
     p = Path(path)
     try:
-        raw = p.read_bytes()
+        if p.is_dir():
+            raise ProblemError("is a folder, not a problem file (give a .toml file in it, or see: cubage list "
+                               f"{p})", path=str(p))
+        with p.open("rb") as fh:
+            raw = fh.read(MAX_FILE_BYTES + 1)
     except OSError as exc:
         raise ProblemError(f"cannot read the file: {exc.strerror or exc}", path=str(p)) from None
+    if len(raw) > MAX_FILE_BYTES:
+        raise ProblemError(f"larger than {MAX_FILE_BYTES:,} bytes; not a problem file", path=str(p))
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise ProblemError(f"not UTF-8 text (byte {exc.start})", path=str(p)) from None
-    return parse_problem(text, path=p, allow_python=allow_python)
+    return read_problem_spec(text, path=p)
+
+
+def load_problem(path, *, allow_python: bool = False) -> Problem:
+    """Read, check and bind a problem file (:func:`load_problem_spec` then :func:`bind_problem`)."""
+    return bind_problem(load_problem_spec(path), allow_python=allow_python)
 
 
 def integrand_from_spec(spec: dict) -> Callable:
-    """Re-create an integrand from ``Problem.integrand_spec`` (for worker processes)."""
+    """Re-create an integrand from ``Problem.integrand_spec`` (for worker processes).
+
+    A Python integrand whose spec carries ``code_sha256`` is refused if its
+    code changed on disk since (a :class:`ProblemError`).
+    """
     kind = spec.get("kind")
     if kind == "expr":
         return compile_expression(spec["source"], spec["variables"], spec.get("constants") or {})
     if kind == "python":
-        return _import_target(spec["target"], spec.get("base_dir") or str(Path.cwd()))
+        try:
+            return bind_python(spec["target"], spec.get("base_dir") or str(Path.cwd()), spec.get("code_sha256"))
+        except PythonTargetError as exc:
+            raise ProblemError(str(exc)) from None
     raise ProblemError(f"unknown integrand kind {kind!r}")
 
 
@@ -982,18 +1162,40 @@ def list_problems(dirs=None) -> list[Path]:
 
 
 def find_problem(name_or_path: str) -> Path:
-    """An existing file, else ``<name>`` / ``<name>.toml`` in the problem folders, else the bundled ones."""
+    """The file a command-line name means.
+
+    In order: an existing file; ``NAME.toml`` in the current folder; ``NAME``
+    or ``NAME.toml`` in the problem folders (:func:`problem_dirs`), then the
+    bundled examples.  A folder gets a message that says what to give instead
+    (issue 10 item 21).
+
+    Raises
+    ------
+    ProblemError
+    """
     p = Path(name_or_path)
     if p.is_file():
         return p
+    if p.suffix != ".toml" and Path(f"{name_or_path}.toml").is_file():
+        return Path(f"{name_or_path}.toml")
     dirs = problem_dirs()
     bundled = bundled_problem_dir()
     if bundled not in dirs:
         dirs = [*dirs, bundled]
-    for d in dirs:
-        for cand in (d / name_or_path, d / f"{name_or_path}.toml"):
-            if cand.is_file():
-                return cand
+    if not p.is_dir():
+        for d in dirs:
+            for cand in (d / name_or_path, d / f"{name_or_path}.toml"):
+                if cand.is_file():
+                    return cand
+    if p.is_dir():
+        try:
+            inside = sorted(f.name for f in p.glob("*.toml"))
+        except OSError:
+            inside = []
+        shown = ", ".join(inside[:5]) + (", ..." if len(inside) > 5 else "")
+        files = f"give one of its problem files ({shown})" if inside else "give a problem file (.toml)"
+        raise ProblemError(f"is a folder, not a problem file: {files}; to continue a run directory use: "
+                           f"cubage resume {name_or_path}", path=str(name_or_path))
     names = sorted({f.stem for f in list_problems(dirs)})
     hint = _suggest(str(name_or_path), names)
     avail = ", ".join(names) if names else "none"
