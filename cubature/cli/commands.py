@@ -578,7 +578,7 @@ def cmd_check(args) -> int:
             print(f"{'':>{width}}  ok: the problem is valid", flush=True)
     ok = all(e["ok"] for e in entries)
     if args.json:
-        print(json.dumps({"ok": ok, "problems": entries}, allow_nan=False), flush=True)
+        _print_json({"ok": ok, "problems": entries})
     return EXIT_OK if ok else EXIT_BAD_INPUT
 
 
@@ -614,7 +614,7 @@ def cmd_list(args) -> int:
             dirs.append(bundled_problem_dir())
     entries = [_list_entry(f) for f in list_problems(dirs)]
     if args.json:
-        print(json.dumps({"folders": [str(d) for d in dirs], "problems": entries}, allow_nan=False), flush=True)
+        _print_json({"folders": [str(d) for d in dirs], "problems": entries})
         return EXIT_OK
     if not entries:
         print(f"no problems (*.toml) in {', '.join(str(d) for d in dirs)}")
