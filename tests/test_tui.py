@@ -470,3 +470,121 @@ def test_meta_of_a_python_problem_without_importing_it(tmp_path):
     assert meta.reference == [0.5] and meta.reference_source == "by hand"
     assert meta.axis_note(0) == "" and "t/(1-t)" in meta.axis_note(1)   # [2, inf) is drawn mapped
     assert not any(k.startswith("cubage_user_metacode") for k in sys.modules)
+
+
+# --------------------------------------------------------------------------
+# issue 10: robustness of the UI
+# --------------------------------------------------------------------------
+
+def test_map_levels_stay_in_the_ramp():
+    """issue 10 item 2: the map's glyph level never leaves the ramp.
+
+    numpy's vectorised log1p can differ from the scalar one by an ulp, so
+    ceil(6 log1p(n) / log1p(top)) reached 7 for the densest cells (e.g. top = 5,
+    found by scanning counts); every level must lie in 0..6 and be 6 at the top.
+    """
+    from cubage.tui.widgets.density import GLYPHS, glyph_levels
+    for top in range(1, 3000):
+        g = np.array([[top] * 40, [1] * 40, [0] * 40])
+        lv = glyph_levels(g, len(GLYPHS) - 1)
+        assert lv.max() == len(GLYPHS) - 1 and lv.min() == 0
+    assert glyph_levels(np.zeros((3, 4), dtype=int), 6).max() == 0
+
+
+SIXD = """title = "six-dimensional Gaussian"
+[domain]
+variables = ["a", "b", "c", "d", "g", "h"]
+box = [[0, 1], [0, 1], [0, 1], [0, 1], [0, 1], [0, 1]]
+[integrand]
+expr = "exp(-(a*a + b*b + c*c + d*d + g*g + h*h))"
+[goal]
+rel_tol = 1e-9
+[reference]
+value = 0.17350422691704589
+source = "(sqrt(pi)/2 erf(1))^6, computed with mpmath to 30 digits"
+"""
+
+
+def test_six_d_map_tab_runs_to_the_end(tmp_path):
+    """issue 10 item 2: a 6-D problem, Enter, the map panel (v), go (g): no crash, the run converges."""
+    (tmp_path / "g6.toml").write_text(SIXD)
+
+    async def go():
+        app = CubageApp(collect_files([str(tmp_path)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 0)
+            await pilot.press("v")
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "converged", 30)
+            await pilot.pause(0.3)
+            text = screen_text(app)
+            assert "regions sampled" in text
+            # (sqrt(pi)/2 erf(1))^6, computed with mpmath
+            assert abs(view.run.result().value - 0.17350422691704589) < 1e-5
+            assert not any("panel failed" in n for n in view.notes.lines_text)
+    run(go())
+
+
+def test_a_failing_panel_never_ends_the_run(probs, monkeypatch):
+    """issue 10 item 2: a panel that raises while drawing or updating is reported in the notes;
+    the application and the run go on to the end."""
+    from cubage.tui.widgets import density, queue
+
+    def broken_render(self):
+        raise IndexError("string index out of range")
+
+    def broken_update(self, snap):
+        raise ValueError("surprising snapshot")
+
+    monkeypatch.setattr(density.RefinementMap, "render", density.guarded("draw")(broken_render))
+    monkeypatch.setattr(queue.QueueTrend, "watch_snap", queue.guarded("update")(broken_update))
+
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 0)
+            await pilot.press("v")                      # the map (broken) is on screen
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "converged", 20)
+            await pilot.pause(0.3)
+            assert "map unavailable" in screen_text(app)
+            notes = "\n".join(view.notes.lines_text)
+            assert "map panel failed to draw" in notes and "IndexError" in notes
+            assert "trend panel failed to update" in notes and "the run goes on" in notes
+            assert abs(view.run.result().value - E2) < 1e-8          # (e-1)^2, closed form
+    run(go())
+
+
+BRACKETS = """title = "energy in [eV] and [b]not bold[/b]"
+notes = "Energies in [eV]; see [1] and [red]this[/red]."
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "x * y"
+[reference]
+value = 0.25
+source = "[2] elementary, int x y = 1/4"
+"""
+
+
+def test_square_brackets_in_user_text_are_shown(tmp_path):
+    """issue 10 item 18: user text with square brackets (notes, references, titles) is shown as written,
+    never eaten as markup, in the picker's preview and in the run view."""
+    (tmp_path / "br.toml").write_text(BRACKETS)
+
+    async def go():
+        app = CubageApp(collect_files([str(tmp_path)]))
+        async with app.run_test(size=(100, 30)) as pilot:
+            await pilot.pause(0.3)
+            text = screen_text(app)
+            assert "energy in [eV] and [b]not bold[/b]" in text
+            assert "Energies in [eV]; see [1] and [red]this[/red]." in text
+            assert "[2] elementary" in text
+            view = await open_problem(pilot, app, 0)
+            view.say("a message naming [eV] and [bold]x[/bold]")
+            await pilot.pause(0.2)
+            text = screen_text(app)
+            assert "energy in [eV]" in text                      # the header's subtitle
+            assert "a message naming [eV] and [bold]x[/bold]" in text   # the ticker
+    run(go())

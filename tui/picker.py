@@ -174,11 +174,11 @@ class PickerScreen(Screen):
         out.add_column(overflow="fold")
         if prob is not None:
             head = Text(prob.title or path.stem, style="bold #e6e6e6")
-            out.add_row("file", short_path(path))
+            out.add_row("file", Text(short_path(path)))
             if prob.notes:
-                out.add_row("notes", reflow(prob.notes))
+                out.add_row("notes", Text(reflow(prob.notes)))
             for label, text in prob.describe():
-                out.add_row(label, text)
+                out.add_row(label, Text(text))
             g = prob.goal
             self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(prob.method.workers))
         elif target is not None and err is not None and "your own Python code" in err:
@@ -186,12 +186,12 @@ class PickerScreen(Screen):
                 from .meta import meta_from_file
                 meta = meta_from_file(path)
                 head = Text(meta.title, style="bold #e6e6e6")
-                out.add_row("file", short_path(path))
-                out.add_row("dimension", f"{meta.dim} ({', '.join(meta.variables)})")
+                out.add_row("file", Text(short_path(path)))
+                out.add_row("dimension", Text(f"{meta.dim} ({', '.join(meta.variables)})"))
                 if meta.reference is not None:
-                    out.add_row("reference", f"{meta.reference}  ({meta.reference_source})")
+                    out.add_row("reference", Text(f"{meta.reference}  ({meta.reference_source})"))
             except ProblemError as exc:
-                out.add_row("file", short_path(path))
+                out.add_row("file", Text(short_path(path)))
                 out.add_row(Text("error", style="bold #ff5f6d"), Text(str(exc), style="#ff5f6d"))
             out.add_row("integrand", Text(f"python {target}", style="#e8c547"))
             out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
@@ -200,7 +200,7 @@ class PickerScreen(Screen):
             self._placeholders("problem's", "problem's", "problem's")
         else:
             head = Text(path.stem, style="bold #e6e6e6")
-            out.add_row("file", short_path(path))
+            out.add_row("file", Text(short_path(path)))
             out.add_row(Text("invalid", style="bold #ff5f6d"), "")
             out.add_row("", Text(err or "", style="#ff5f6d"))
             self._placeholders("problem's", "problem's", "problem's")
@@ -233,7 +233,7 @@ class PickerScreen(Screen):
                                         self.query_one("#in-abs", Input).value,
                                         self.query_one("#in-workers", Input).value)
         except ValueError as exc:
-            self.notify(str(exc), title="Cannot open", severity="error")
+            self.notify(str(exc), title="Cannot open", severity="error", markup=False)
             return
         target = uses_python(path)
         if target is not None and not self.allow_python:
@@ -256,7 +256,7 @@ class PickerScreen(Screen):
             if idx is not None:
                 self._preview(idx)
             self.notify(exc.headline if hasattr(exc, "headline") else str(exc), title="Cannot open",
-                        severity="error")
+                        severity="error", markup=False)
             return
         self.app.push_screen(RunView(ProblemMeta.from_problem(prob), problem=prob, overrides=overrides,
                                      can_go_back=True))

@@ -9,6 +9,7 @@ import time
 from pathlib import Path
 
 import numpy as np
+from rich.text import Text
 from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -27,6 +28,7 @@ from .meta import ProblemMeta
 from .results import result_path, result_record, write_result
 from .widgets.convergence import ConvergenceChart
 from .widgets.density import RefinementMap
+from .widgets.guard import PanelFailed
 from .widgets.notes import NotesLog
 from .widgets.queue import QueueTrend, WorstRegions
 from .widgets.readout import FINAL, Readout
@@ -189,7 +191,7 @@ class RunView(Screen):
         """A line in the message pane, and in the ticker above the panels."""
         self.notes.say(text, level)
         t = self.query_one("#ticker", Static)
-        t.update(text)
+        t.update(Text(text))     # user text (paths, messages, expressions) is never markup (issue 10 item 18)
         t.set_class(level == "warn", "warn")
         t.set_class(level == "error", "error")
 
@@ -213,7 +215,7 @@ class RunView(Screen):
         name = (lambda k: v[k] if k < len(v) else f"x{k}")
         m.border_title = None
         label = f"{name(i)} × {name(j)}" if self.meta.dim >= 2 else name(i)
-        self.query_one("#lower", TabbedContent).get_tab("map-tab").label = f"Map {label}"
+        self.query_one("#lower", TabbedContent).get_tab("map-tab").label = Text(f"Map {label}")
 
     # -- the engine, driven here -------------------------------------------------
     def _make_run(self) -> None:
@@ -372,6 +374,13 @@ class RunView(Screen):
                          ("#worst", WorstRegions), ("#map", RefinementMap)):
             self.query_one(sel, cls).snap = snap
         self._warn(snap)
+
+    @_while_shown
+    def on_panel_failed(self, msg: PanelFailed) -> None:
+        """A panel failed to draw or update: say so in the notes; the run goes on (issue 10 item 2)."""
+        msg.stop()
+        self.say(f"the {msg.panel} panel failed to {msg.what} ({msg.error}, at {msg.where}); "
+                 "the run goes on", "error")
 
     def _warn(self, snap: Snapshot) -> None:
         if snap.evaluations == 0:

@@ -11,6 +11,7 @@ from cubage.engine.run import Snapshot
 
 from ..forecast import thin_log
 from ..meta import ProblemMeta
+from .guard import guarded
 
 
 class ConvergenceChart(PlotextPlot):
@@ -27,6 +28,7 @@ class ConvergenceChart(PlotextPlot):
         self.meta = meta
         self._empty = True
 
+    @guarded("draw")
     def render(self):
         if self._empty:
             s = self.snap
@@ -38,6 +40,7 @@ class ConvergenceChart(PlotextPlot):
         except Exception as exc:  # noqa: BLE001 - a plotting hiccup must not end the UI
             return Text(f"(chart unavailable: {type(exc).__name__})", style="dim")
 
+    @guarded("update")
     def watch_snap(self, snap: Snapshot | None) -> None:
         plt = self.plt
         plt.clear_data()

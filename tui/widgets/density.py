@@ -11,6 +11,7 @@ from cubage.engine.run import Snapshot
 
 from ..forecast import density_grid
 from ..meta import ProblemMeta
+from .guard import guarded
 
 #: Cell glyphs from empty to densest, and their colours (our own ramp).
 GLYPHS = " .:░▒▓█"
@@ -22,6 +23,23 @@ def axis_pairs(d: int) -> list[tuple[int, int]]:
     if d < 2:
         return [(0, 0)]
     return [(i, j) for i in range(d) for j in range(i + 1, d)]
+
+
+def glyph_levels(grid: np.ndarray, top_level: int) -> np.ndarray:
+    """Ramp level 0..``top_level`` of each count on a log scale (0 only for an empty cell).
+
+    ``ceil(top_level * log1p(n) / log1p(max))`` in exact arithmetic lies in
+    [0, top_level], but numpy's vectorised ``log1p`` can differ by one ulp
+    from its scalar value, so the ratio for the densest cell can come out as
+    1 + 2^-52 and the ceiling one level too high (issue 10 item 2: an
+    ``IndexError`` in the glyph lookup).  The levels are therefore bounded.
+    """
+    grid = np.asarray(grid)
+    top = int(grid.max()) if grid.size else 0
+    if top <= 0:
+        return np.zeros(grid.shape, dtype=np.int64)
+    lv = np.ceil(top_level * np.log1p(grid) / np.log1p(float(top))).astype(np.int64)
+    return np.clip(lv, 0, top_level)
 
 
 class RefinementMap(Static):
@@ -54,6 +72,7 @@ class RefinementMap(Static):
         v = self.meta.variables
         return v[i] if i < len(v) else f"x{i}"
 
+    @guarded("draw")
     def render(self) -> Text:
         s = self.snap
         i, j = self.axes()
@@ -75,9 +94,7 @@ class RefinementMap(Static):
             grid = density_grid(c[:, [i, j]], lo[[i, j]], hi[[i, j]], w, h)
             lo2, hi2 = (lo[i], lo[j]), (hi[i], hi[j])
             ylab = self._axis_name(j)
-        top = grid.max()
-        level = np.zeros_like(grid) if top == 0 else np.ceil(
-            (len(GLYPHS) - 1) * np.log1p(grid) / np.log1p(top)).astype(int)
+        level = glyph_levels(grid, len(GLYPHS) - 1)
         rows = grid.shape[0]
         for r in range(rows):
             if r == 0:

@@ -15,6 +15,7 @@ from cubage.engine.run import Snapshot
 
 from ..forecast import fmt_count
 from ..meta import ProblemMeta
+from .guard import guarded
 
 
 def _even(a: np.ndarray, n: int) -> np.ndarray:
@@ -34,6 +35,7 @@ class QueueTrend(Vertical):
         yield Static("total error (log)", id="trend-error-label", classes="trend-label")
         yield Sparkline([], id="trend-error")
 
+    @guarded("update")
     def watch_snap(self, snap: Snapshot | None) -> None:
         if snap is None or len(snap.history) == 0 or not self.is_mounted:
             return
@@ -74,6 +76,7 @@ class WorstRegions(DataTable):
         lab = "bounding box" if self.meta.kind == "simplex" else "bounds"
         self.add_column(lab, key="bounds")
 
+    @guarded("update")
     def watch_snap(self, snap: Snapshot | None) -> None:
         if snap is None or not self.is_mounted:
             return
@@ -83,5 +86,5 @@ class WorstRegions(DataTable):
             e = float(np.max(t.error))
             v = float(t.value[0])
             vt = f"{v:.6g}" if math.isfinite(v) else "nan"
-            self.add_row(Text(f"{e:.2e}", style="#e8c547"), vt, str(t.depth),
-                         bounds_text(t.lower, t.upper, names))
+            self.add_row(Text(f"{e:.2e}", style="#e8c547"), Text(vt), Text(str(t.depth)),
+                         Text(bounds_text(t.lower, t.upper, names)))

@@ -14,6 +14,7 @@ from cubage.engine.run import Snapshot
 
 from ..forecast import fmt_count, fmt_seconds, forecast_seconds
 from ..meta import ProblemMeta
+from .guard import guarded
 
 #: Colour of each status word (our own palette).
 STATUS_STYLE = {
@@ -51,6 +52,7 @@ class Readout(Static):
         super().__init__(**kw)
         self.meta = meta
 
+    @guarded("draw")
     def render(self) -> Text:
         s = self.snap
         t = Text(no_wrap=True, overflow="ellipsis")
