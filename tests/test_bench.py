@@ -114,3 +114,55 @@ def test_problem_file_with_reference_runs(tmp_path):
     with open(out / "runs.csv") as fh:
         runs = list(csv.DictReader(fh))
     assert len(runs) == 1 and runs[0]["group"] == "xy" and float(runs[0]["true_error"]) < 1e-12
+
+
+def _constructed_runs():
+    # constructed rows with the longest labels and every kind of miss; figures are arbitrary (layout only)
+    out = []
+    for m in ("gm", "gm/all-axes", "scipy-gm", "gm/local"):
+        for d in (2, 6):
+            for k, outcome in enumerate(("ok", "wrong", "budget")):
+                out.append({"group": "discontinuous", "d": d, "tol": 1e-6, "method": m, "evaluations": 1234567 + k,
+                            "seconds": 12.3456, "true_error": 1.5e-7 * (k + 1), "reported_error": 1e-7,
+                            "scale": 1.0, "outcome": outcome})
+    return out
+
+
+def test_terminal_tables_fit_80_columns():
+    """issue 10 item 19: the benchmark's table is readable at 80 columns (no cell cut to an ellipsis)."""
+    from rich.console import Console
+    rows = bench.aggregate(_constructed_runs())
+    con = Console(width=80, record=True, file=open("/dev/null", "w"), color_system=None)
+    for t in bench.terminal_tables(rows):
+        con.print(t)
+    text = con.export_text()
+    lines = text.splitlines()
+    assert max(len(x) for x in lines) <= 80
+    assert "…" not in text
+    for word in ("gm/all-axes", "scipy-gm", "gm/local", "1234568", "held", "1 wrong", "budget"):
+        assert word in text
+
+
+def test_chart_marks_each_series_with_its_own_marker():
+    """issue 10 item 19: without colour, the chart's series are told apart by their markers."""
+    import re
+    runs = _constructed_runs()
+    for k, r in enumerate(runs):   # spread the points so that they do not overlap
+        r["evaluations"] = 10 ** (2 + k % 5) * (1 + k)
+    text = re.sub(r"\x1b\[[0-9;]*m", "", bench.chart(runs, width=80, height=20))
+    methods = list(dict.fromkeys(r["method"] for r in runs))
+    marks = bench.MARKERS[:len(methods)]
+    assert len(set(marks)) == len(methods)
+    for m, mk in zip(methods, marks):
+        assert f"{mk}{mk} {m}" in text          # the legend pairs each method with its marker
+    plot = "\n".join(line[8:] for line in text.splitlines()[len(methods) + 1:])
+    for mk in marks:
+        assert mk in plot
+
+
+def test_bench_dims_are_bounded(capsys):
+    """issue 10 item 15i: ``cubage bench --dims 50`` is refused with one line (it grew without bound)."""
+    assert bench.main(["--dims", "50"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--dims" in err[0] and "2..12" in err[0] and "50" in err[0]
+    assert bench.main(["--dims", "13", "--no-progress"]) == 2

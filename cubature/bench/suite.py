@@ -92,6 +92,16 @@ QUICK = {"dims": [2, 3, 4], "draws": 3, "strategies": ["gm", "gm/plain"], "peers
 
 WRONG_FACTOR = 10.0
 
+#: Dimensions of the Genz suite.  The Genz-Malik rule needs d >= 2; beyond d = 12 its 2^d + 2d^2 + 2d + 1 nodes
+#: per region (4,409 at d = 12, 1,049,417 at d = 20) leave a benchmark budget too few regions to measure anything
+#: and a 50-D suite grows without bound in memory (issue 10 item 15i).
+MIN_DIM, MAX_DIM = 2, 12
+
+
+def gm_nodes(d: int) -> int:
+    """Nodes of one Genz-Malik region in ``d`` dimensions (Genz & Malik 1980): 2^d + 2d^2 + 2d + 1."""
+    return 2**d + 2 * d * d + 2 * d + 1
+
 
 class BenchInputError(Exception):
     """Bad command-line input (one-line message, exit code 2)."""
@@ -417,7 +427,7 @@ def _fmt(v, kind="g") -> str:
     if kind == "int":
         return f"{v:.0f}"
     if kind == "s":
-        return f"{v:.3g}"
+        return f"{v:.2g}"
     return f"{v:.1e}"
 
 
@@ -435,6 +445,43 @@ def format_row(row: dict) -> list[str]:
     return [_fmt(row[c], _KINDS.get(c, "g")) for c in COLUMNS]
 
 
+#: Columns of the terminal tables (one table per case group and tolerance); the files keep all of :data:`COLUMNS`.
+TERMINAL_COLUMNS = ["d", "method", "median_evals", "evals_vs_best", "median_seconds", "median_true_rel_err",
+                    "median_reported_rel_err", "reliability", "misses"]
+
+
+def misses_text(row: dict) -> str:
+    """Wrong answers, budget failures and errors of one row in a few words ("-" when none)."""
+    parts = [f"{row[k]} {word}" for k, word in (("wrong_answers", "wrong"), ("budget_failures", "budget"),
+                                                 ("errors", "error")) if row.get(k)]
+    return ", ".join(parts) or "-"
+
+
+def terminal_tables(rows: list[dict]) -> list:
+    """The results as rich tables that fit 80 columns: one per case group and tolerance, fewer columns.
+
+    Issue 10 item 19: one wide table of 14 columns was cut to ellipses in every
+    column at 80 columns.  The files (results.md, results.csv) keep every column.
+    """
+    from rich import box
+    from rich.table import Table
+    short = dict(SHORT, misses="misses", median_seconds="time s")
+    out = []
+    for group, tol in dict.fromkeys((r["group"], r["tol"]) for r in rows):
+        mine = [r for r in rows if r["group"] == group and r["tol"] == tol]
+        t = Table(box=box.SIMPLE_HEAD, padding=(0, 1, 0, 0), pad_edge=False, show_edge=False,
+                  title=f"{group}, rel tol {tol:.0e}", title_justify="left", title_style="bold")
+        for c in TERMINAL_COLUMNS:
+            t.add_column(short.get(c, c), justify="left" if c in ("method", "misses") else "right",
+                         no_wrap=c != "misses", min_width=8 if c == "misses" else None)
+        for r in mine:
+            bad = r["wrong_answers"] or (r["reliability"] < 1 and not math.isnan(r["reliability"]))
+            cells = [misses_text(r) if c == "misses" else _fmt(r[c], _KINDS.get(c, "g")) for c in TERMINAL_COLUMNS]
+            t.add_row(*cells, style="red" if bad else None)
+        out.append(t)
+    return out
+
+
 def write_csv(path: Path, rows: list[dict], columns: list[str]) -> None:
     with open(path, "w", newline="") as fh:
         w = csv.writer(fh)
@@ -450,14 +497,22 @@ def write_markdown(path: Path, rows: list[dict], header: list[str]) -> None:
     path.write_text("\n".join(lines) + "\n")
 
 
+#: One marker per series of the terminal chart, so that methods can be told apart without colour.
+MARKERS = ("o", "x", "+", "*", "#", "@", "%", "=", "~", "^", "$", "&")
+
+
 def chart(runs: list[dict], width: int = 100, height: int = 24) -> str:
-    """Error versus evaluations (log-log, one marker series per method) as text."""
+    """Error versus evaluations (log-log) as text, one series per method with its own marker.
+
+    The markers (:data:`MARKERS`) differ per series and are shown in the legend,
+    so the chart reads the same without colour (issue 10 item 19).
+    """
     import plotext as plt
     plt.clear_figure()
     plt.plotsize(width, height)
     plt.theme("clear")
     any_pts = False
-    for m in dict.fromkeys(r["method"] for r in runs):
+    for k, m in enumerate(dict.fromkeys(r["method"] for r in runs)):
         pts = [(r["evaluations"], r["true_error"] / max(r["scale"], 1e-300)) for r in runs
                if r["method"] == m and r["evaluations"] > 0 and np.isfinite(r["true_error"])]
         if not pts:
@@ -465,7 +520,7 @@ def chart(runs: list[dict], width: int = 100, height: int = 24) -> str:
         any_pts = True
         x = [math.log10(p[0]) for p in pts]
         y = [math.log10(max(p[1], 1e-17)) for p in pts]
-        plt.scatter(x, y, label=m, marker="dot")
+        plt.scatter(x, y, label=m, marker=MARKERS[k % len(MARKERS)])
     if not any_pts:
         return "(no points to chart)"
     plt.title("true relative error vs evaluations (log10 both axes)")
@@ -489,7 +544,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--families", nargs="+", default=None, metavar="FAMILY",
                    help=f"Genz families to include (default all: {', '.join(genz.FAMILIES)})")
     p.add_argument("--dims", nargs="+", type=int, default=None, metavar="D",
-                   help="dimensions of the Genz suite (default 2 3 4 5 6)")
+                   help=f"dimensions of the Genz suite, {MIN_DIM}..{MAX_DIM} (default 2 3 4 5 6)")
     p.add_argument("--tol", nargs="+", type=float, default=None, metavar="REL",
                    help="relative tolerance goal(s) (default 1e-6)")
     p.add_argument("--draws", type=int, default=None, metavar="N",
@@ -506,7 +561,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", default="bench-out", metavar="DIR",
                    help="folder for results.md, results.csv and runs.csv (default bench-out/)")
     p.add_argument("--quick", action="store_true",
-                   help="a small suite that ends within about two minutes: d = 2..4, 3 draws, "
+                   help="a small suite (about 20 s on a shared 2-core machine, measured): d = 2..4, 3 draws, "
                         "strategies gm and gm/plain, peer scipy-gm, tol 1e-6, budget 200000 "
                         "(explicit options still win)")
     p.add_argument("--no-chart", action="store_true", help="skip the error-vs-evaluations chart")
@@ -541,8 +596,9 @@ def _settings(a) -> dict:
         if fam not in genz.FAMILIES:
             raise BenchInputError(f"--families: unknown family {fam!r} (families: {', '.join(genz.FAMILIES)})")
     for d in s["dims"]:
-        if d < 2:
-            raise BenchInputError(f"--dims: dimension must be >= 2, got {d}")
+        if not MIN_DIM <= d <= MAX_DIM:
+            raise BenchInputError(f"--dims: dimension must be {MIN_DIM}..{MAX_DIM}, got {d} (a Genz-Malik region "
+                                  f"has 2^d + 2d^2 + 2d + 1 nodes, {gm_nodes(MAX_DIM):,} at d = {MAX_DIM})")
     for t in s["tols"]:
         if not (t > 0 and t < 1):
             raise BenchInputError(f"--tol: relative tolerance must be in (0, 1), got {t}")
@@ -641,25 +697,18 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
     write_csv(out_dir / "runs.csv", runs, ["group", "d", "tol", "method", "draw", "evaluations", "seconds",
                                            "status", "outcome", "value", "exact", "true_error",
                                            "reported_error", "goal"])
-    from rich import box
-    from rich.table import Table
-    if not console.is_terminal:
-        console.width = max(console.width, 150)
-    table = Table(box=box.SIMPLE_HEAD, padding=(0, 1),
-                  title=f"cubage bench: {len(runs)} runs (reported errors are heuristic estimates)",
-                  caption="evals/time/errors are medians; x best = evaluations over the fewest among methods "
-                          "that always met the goal; held = share with true error <= reported")
-    for c in COLUMNS:
-        table.add_column(SHORT.get(c, c), justify="left" if c in ("group", "method") else "right",
-                         no_wrap=True)
-    for r in rows:
-        bad = r["wrong_answers"] or (r["reliability"] < 1 and not math.isnan(r["reliability"]))
-        table.add_row(*format_row(r), style="red" if bad else None)
-    console.print(table)
+    console.print(f"[bold]cubage bench[/]: {len(runs)} runs; reported errors are heuristic estimates, not bounds")
+    for table in terminal_tables(rows):
+        console.print()
+        console.print(table)
+    console.print("evals, time and errors are medians; x best = evaluations over the fewest among the methods "
+                  "that always met the goal; held = share of runs whose true error was within the reported one; "
+                  "misses = runs that claimed convergence wrongly, ran out of budget, or raised. All columns: "
+                  "results.md / results.csv.", style="dim", highlight=False)
     for n in notes:
         console.print(f"note: {n}")
     if show_chart and runs:
-        text = chart(runs, width=min(console.width, 110))
+        text = chart(runs, width=max(40, min(console.width, 110)))
         if not console.is_terminal:
             text = re.sub(r"\x1b\[[0-9;]*m", "", text)
         console.file.write(text + "\n")
