@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 from rich.console import Group
@@ -11,19 +10,22 @@ from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, VerticalScroll
-from textual.screen import Screen
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.screen import ModalScreen, Screen
 from textual.widgets import Footer, Header, Input, Label, OptionList, Static
 from textual.widgets.option_list import Option
 
-from cubage.problem.problem_file import Problem, ProblemError, load_problem
+from cubage import DEFAULT_BUDGET
+from cubage.problem.problem_file import Problem, ProblemError, list_problems, load_problem
 
 from .confirm import AskModal
+from .goal_editor import parse_count, parse_tolerance
+from .key_help import KeyHelp
 from .meta import ProblemMeta, uses_python
 
 
-def parse_overrides(rel: str, abs_: str, workers: str) -> dict:
-    """The picker's three inputs as run overrides (blank = the problem's own).
+def parse_overrides(rel: str, abs_: str, workers: str, budget: str = "") -> dict:
+    """The picker's inputs as run overrides (blank = the problem's own).
 
     Raises
     ------
@@ -32,16 +34,9 @@ def parse_overrides(rel: str, abs_: str, workers: str) -> dict:
     """
     out: dict = {}
     for name, key, text in (("rel tol", "rel_tol", rel), ("abs tol", "abs_tol", abs_)):
-        text = text.strip()
-        if not text:
-            continue
-        try:
-            v = float(text)
-        except ValueError:
-            raise ValueError(f"{name}: {text!r} is not a number") from None
-        if not (v >= 0) or math.isinf(v):
-            raise ValueError(f"{name}: must be a finite number >= 0, got {text}")
-        out[key] = v
+        v = parse_tolerance(text, name)
+        if v is not None:
+            out[key] = v
     w = workers.strip()
     if w:
         if w == "auto":
@@ -54,6 +49,9 @@ def parse_overrides(rel: str, abs_: str, workers: str) -> dict:
             if n < 1:
                 raise ValueError(f"workers: must be at least 1, got {n}")
             out["workers"] = n
+    b = parse_count(budget, "budget")
+    if b is not None:
+        out["budget"] = b
     if out.get("rel_tol") == 0 and out.get("abs_tol", 1.0) == 0:
         raise ValueError("rel tol and abs tol cannot both be 0")
     return out
@@ -91,10 +89,24 @@ class PickerScreen(Screen):
     BINDINGS = [
         Binding("enter", "open", "Open & run", priority=True),
         Binding("tab", "app.focus_next", "Next field"),
+        Binding("ctrl+o", "open_path", "Open path"),
         Binding("ctrl+r", "reload", "Reload"),
+        Binding("question_mark", "keys", "Keys"),
+        Binding("f1", "keys", "Keys", show=False),
         Binding("escape", "focus_list", "List", show=False),
         Binding("ctrl+q", "app.quit", "Quit"),
     ]
+
+    #: What each key does, for the key-help screen.
+    KEY_HELP = {
+        "open": "open the highlighted problem in a run view (with the goal fields below applied)",
+        "focus_next": "next field: the list, rel tol, abs tol, workers, budget (blank = the problem's own)",
+        "open_path": "open a problem file (or a folder of them) that is not in the list, by its path",
+        "reload": "read the highlighted file again (after editing it)",
+        "keys": "this help (also F1)",
+        "focus_list": "back to the list from a field",
+        "quit": "quit cubage",
+    }
 
     def __init__(self, files: list[Path], allow_python: bool = False):
         super().__init__()
@@ -120,6 +132,8 @@ class PickerScreen(Screen):
             yield Input(id="in-abs", placeholder="problem's")
             yield Label("workers")
             yield Input(id="in-workers", placeholder="problem's")
+            yield Label("budget")
+            yield Input(id="in-budget", placeholder="problem's")
         yield Footer(compact=True)
 
     def _label(self, f: Path) -> Text:
@@ -180,7 +194,8 @@ class PickerScreen(Screen):
             for label, text in prob.describe():
                 out.add_row(label, Text(text))
             g = prob.goal
-            self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(prob.method.workers))
+            self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(prob.method.workers),
+                               f"{g.budget:.3g}" if g.budget else f"{DEFAULT_BUDGET:.3g}")
         elif target is not None and err is not None and "your own Python code" in err:
             try:
                 from .meta import meta_from_file
@@ -197,19 +212,20 @@ class PickerScreen(Screen):
             out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
                                  "first" + (" (trusted for this session)." if self.allow_python else "."),
                                  style="italic"))
-            self._placeholders("problem's", "problem's", "problem's")
+            self._placeholders("problem's", "problem's", "problem's", "problem's")
         else:
             head = Text(path.stem, style="bold #e6e6e6")
             out.add_row("file", Text(short_path(path)))
             out.add_row(Text("invalid", style="bold #ff5f6d"), "")
             out.add_row("", Text(err or "", style="#ff5f6d"))
-            self._placeholders("problem's", "problem's", "problem's")
+            self._placeholders("problem's", "problem's", "problem's", "problem's")
         self.query_one("#preview", Static).update(Group(head, out))
 
-    def _placeholders(self, rel: str, abs_: str, workers: str) -> None:
+    def _placeholders(self, rel: str, abs_: str, workers: str, budget: str) -> None:
         self.query_one("#in-rel", Input).placeholder = rel
         self.query_one("#in-abs", Input).placeholder = abs_
         self.query_one("#in-workers", Input).placeholder = workers
+        self.query_one("#in-budget", Input).placeholder = budget
 
     def _say(self, text: str) -> None:
         self.query_one("#preview", Static).update(Text(text, style="bold #ff5f6d"))
@@ -217,6 +233,49 @@ class PickerScreen(Screen):
     # -- actions --------------------------------------------------------------------------
     def action_focus_list(self) -> None:
         self.query_one("#problem-list", OptionList).focus()
+
+    def action_keys(self) -> None:
+        self.app.push_screen(KeyHelp(self, "Keys: choosing a problem",
+                                     extra="Problems come from the paths given to cubage tui (default: ./problems "
+                                           "when present, else the bundled examples). Error estimates are "
+                                           "heuristic, not guaranteed bounds."))
+
+    def action_open_path(self) -> None:
+        def chosen(text: str | None) -> None:
+            if text:
+                self.add_path(text)
+        self.app.push_screen(PathPrompt(), chosen)
+
+    def add_path(self, text: str) -> bool:
+        """Add the problem file (or the problems of a folder) at ``text`` to the list and highlight it."""
+        q = Path(text.strip()).expanduser()
+        if q.is_dir():
+            new = list_problems([q])
+            if not new:
+                self.notify(f"{q}: no problem files (*.toml) in this folder", title="Open path",
+                            severity="error", markup=False)
+                return False
+        elif q.is_file():
+            new = [q]
+        else:
+            self.notify(f"{q}: no such file or folder", title="Open path", severity="error", markup=False)
+            return False
+        ol = self.query_one("#problem-list", OptionList)
+        known = {f.resolve(): i for i, f in enumerate(self.files)}
+        first = None
+        for f in new:
+            i = known.get(f.resolve())
+            if i is None:
+                i = len(self.files)
+                self.files.append(f)
+                known[f.resolve()] = i
+                ol.add_option(Option(self._label(f), id=str(i)))
+            first = i if first is None else first
+        ol.border_title = f"Problems ({len(self.files)})"
+        ol.highlighted = first
+        ol.focus()
+        self._preview(first)
+        return True
 
     def action_reload(self) -> None:
         self._cache.clear()
@@ -231,7 +290,8 @@ class PickerScreen(Screen):
         try:
             overrides = parse_overrides(self.query_one("#in-rel", Input).value,
                                         self.query_one("#in-abs", Input).value,
-                                        self.query_one("#in-workers", Input).value)
+                                        self.query_one("#in-workers", Input).value,
+                                        self.query_one("#in-budget", Input).value)
         except ValueError as exc:
             self.notify(str(exc), title="Cannot open", severity="error", markup=False)
             return
@@ -263,3 +323,25 @@ class PickerScreen(Screen):
 
     def on_screen_resume(self) -> None:
         self.app.sub_title = "choose a problem"
+
+
+class PathPrompt(ModalScreen[str | None]):
+    """Asks for the path of a problem file or folder; dismisses with the text (None on Esc)."""
+
+    BINDINGS = [Binding("escape", "cancel", "Cancel")]
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="path-box") as box:
+            box.border_title = "Open a problem file or folder"
+            yield Input(placeholder="path, e.g. ~/integrals/form-factor.toml", id="path-input")
+            yield Static(Text.from_markup("[b]enter[/b] open    [b]esc[/b] cancel"), id="path-keys")
+
+    def on_mount(self) -> None:
+        self.query_one("#path-input", Input).focus()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        self.dismiss(event.value.strip() or None)
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)

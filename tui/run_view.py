@@ -24,6 +24,8 @@ from cubage.engine.run import Snapshot
 
 from .confirm import AskModal
 from .follow import RunDirFollower
+from .goal_editor import GoalEditor
+from .key_help import KeyHelp
 from .meta import ProblemMeta
 from .results import result_path, result_record, write_result
 from .widgets.convergence import ConvergenceChart
@@ -43,8 +45,8 @@ SNAPSHOT_EVERY = 0.2
 #: Seconds the engine thread sleeps after each step (0: just hand the interpreter lock over).
 ENGINE_YIELD = 0.0
 PANELS = ("queue-tab", "map-tab", "notes-tab")
-#: Goal-changing statuses after which a tightened goal lets the run go on.
-REOPENABLE = ("converged", "budget-spent", "time-limit")
+#: Endings after which a new goal (goal editor) lets the run go on from its current partition.
+REOPENABLE = ("converged", "budget-spent", "time-limit", "stopped")
 
 
 def make_evaluator(problem, workers) -> tuple[object | None, str]:
@@ -113,17 +115,36 @@ class RunView(Screen):
     """
 
     BINDINGS = [
-        Binding("g", "begin", "Go"),
-        Binding("space", "hold", "Hold"),
+        Binding("g", "go", "Go"),
+        Binding("g", "hold", "Hold"),
+        Binding("e", "goal", "Goal"),
         Binding("h", "halt", "Halt"),
-        Binding("right_square_bracket", "tighter", "Tol÷10"),
-        Binding("left_square_bracket", "looser", "Tol×10"),
         Binding("w", "write", "Save"),
         Binding("a", "axes", "Axes"),
         Binding("v", "panel", "Panel"),
         Binding("b", "back", "Back"),
+        Binding("question_mark", "keys", "Keys"),
+        Binding("f1", "keys", "Keys", show=False),
         Binding("q", "leave", "Quit"),
     ]
+
+    #: What each key does, for the key-help screen (the footer shows the short names).
+    KEY_HELP = {
+        "go": "go: start the run, go on after a hold; after the run ended short (budget spent, time limit, "
+              "halt) or converged, open the goal editor to raise the budget or change the tolerance and go on "
+              "from the current partition",
+        "hold": "hold the run after its current step (g goes on)",
+        "goal": "goal editor: relative and absolute tolerance, budget, time limit; applies at once, "
+                "also while running",
+        "halt": "halt now: keep and save the current estimate (NOT converged); in cubage watch, ask the "
+                "runner to stop",
+        "write": "save the result as JSON",
+        "axes": "next pair of axes on the refinement map",
+        "panel": "next tab below: queue, map, notes",
+        "back": "back to the problem list (asks first while a run is live)",
+        "keys": "this help (also F1)",
+        "leave": "quit cubage (asks first while a run is live)",
+    }
 
     #: What the run is doing: ready, running, paused, stopping, waiting or a final status word.
     state: reactive[str] = reactive("ready")
@@ -224,7 +245,7 @@ class RunView(Screen):
         rel = self.overrides.get("rel_tol", g.rel_tol)
         abs_ = self.overrides.get("abs_tol", g.abs_tol)
         workers = self.overrides.get("workers", p.method.workers)
-        kw = dict(rel_tol=rel, abs_tol=abs_, budget=g.budget or DEFAULT_BUDGET,
+        kw = dict(rel_tol=rel, abs_tol=abs_, budget=self.overrides.get("budget", g.budget or DEFAULT_BUDGET),
                   time_limit=g.time_limit, rule=p.method.rule)
         if p.method.degree is not None:
             kw["degree"] = p.method.degree
@@ -406,15 +427,17 @@ class RunView(Screen):
         follow = self.follower is not None
         if action == "back":
             return self.can_go_back
-        if action in ("begin", "tighter", "looser", "hold"):
+        if action in ("go", "hold", "goal"):
             if follow:
                 return False
-            if self.run is None:
-                return None
-            if action == "begin":
-                return None if (self._started or self.state == "failed") else True
+            if self.run is None or self.state == "failed":
+                return None if action != "hold" else False
+            live = self._engine_live
             if action == "hold":
-                return True if self._engine_live else None
+                return live and not self.run.paused
+            if action == "go":
+                return (not live) or self.run.paused
+            return True
         if action == "halt":
             if follow:
                 done = self.follower.result is not None or self._stop_asked
@@ -422,23 +445,47 @@ class RunView(Screen):
             return True if self._engine_live else None
         return True
 
-    def action_begin(self) -> None:
-        if self.run is None or self._started:
+    def action_keys(self) -> None:
+        extra = ("Error estimates are heuristic, not guaranteed bounds: a run says converged when its estimate "
+                 "meets the goal. The forecast of the time to the goal extrapolates the recent error curve.")
+        self.app.push_screen(KeyHelp(self, "Keys: following a run" if self.follower is not None
+                                     else "Keys: the run", extra=extra))
+
+    def action_go(self) -> None:
+        run = self.run
+        if run is None or self.follower is not None:
             return
-        self.say("running (engine in a worker thread)")
-        self._start_engine()
+        if not self._started:
+            self.say("running (engine in a worker thread)")
+            self._start_engine()
+        elif self._engine_live:
+            if run.paused:
+                run.resume()
+                self.say("going on")
+                self.state = self._derive_state()
+        elif run.status in REOPENABLE:
+            self._open_goal_editor(self._why_ended(run.status))
+        self.refresh_bindings()
+
+    def _why_ended(self, st: str) -> str:
+        s = self.run.settings
+        if st == "budget-spent":
+            return (f"The budget of {s.budget:,} evaluations is spent. Raise it (or loosen the tolerance) "
+                    "to go on from the current partition.")
+        if st == "time-limit":
+            return f"The time limit of {s.time_limit:g} s is reached. Raise it to go on from the current partition."
+        if st == "stopped":
+            return "The run was halted. Change the goal (or keep it) and apply to go on from the current partition."
+        return "The goal is met. Tighten the tolerance to go on from the current partition."
 
     def action_hold(self) -> None:
         run = self.run
-        if run is None or not self._engine_live:
+        if run is None or not self._engine_live or run.paused:
             return
-        if run.paused:
-            run.resume()
-            self.say("resumed")
-        else:
-            run.pause()
-            self.say("on hold (press space to resume)")
+        run.pause()
+        self.say("on hold after the current step (g goes on)")
         self.state = self._derive_state()
+        self.refresh_bindings()
 
     def action_halt(self) -> None:
         if self.follower is not None:
@@ -457,32 +504,47 @@ class RunView(Screen):
         self.say("stopping now: the current estimate is kept (NOT converged) and will be written", "warn")
         self.state = self._derive_state()
 
-    def _scale_goal(self, factor: float) -> None:
-        run = self.run
-        if run is None:
+    def action_goal(self) -> None:
+        if self.run is None or self.follower is not None:
             return
+        why = self._why_ended(self.run.status) if (self._started and not self._engine_live
+                                                    and self.run.status in REOPENABLE) else ""
+        self._open_goal_editor(why)
+
+    def _open_goal_editor(self, why: str) -> None:
+        run = self.run
         s = run.settings
-        rel = s.rel_tol * factor
-        abs_ = s.abs_tol * factor if s.abs_tol > 0 else None
-        was = run.status
+        budget = s.budget
+        if run.status == "budget-spent":
+            budget = max(2 * s.budget, s.budget + 1)          # a proposal; the field can be edited
+        self.app.push_screen(GoalEditor(s.rel_tol, s.abs_tol, budget, s.time_limit, run.evaluations, why),
+                             self._apply_goal)
+
+    def _apply_goal(self, goal: dict | None) -> None:
+        """Apply the goal editor's values; a run that had ended short or converged goes on when it can."""
+        run = self.run
+        if goal is None or run is None:
+            return
         try:
-            run.set_goal(rel_tol=rel, abs_tol=abs_)
+            if goal:
+                run.set_goal(**goal)
         except ValueError as exc:
             self.say(f"cannot change the goal: {exc}", "error")
             return
-        word = "tightened" if factor < 1 else "loosened"
-        self.say(f"goal {word}: rel_tol {run.settings.rel_tol:g}, abs_tol {run.settings.abs_tol:g}")
-        if self._started and not self._engine_live and was in REOPENABLE and not run.done:
-            self.say("the new goal is not met yet: going on")
-            self._start_engine()
+        s = run.settings
+        lim = f", time limit {s.time_limit:g} s" if s.time_limit is not None else ""
+        self.say(f"goal: rel_tol {s.rel_tol:g}, abs_tol {s.abs_tol:g}, budget {s.budget:,}{lim}")
+        if self._started and not self._engine_live:
+            if not run.done:
+                self._halting = False
+                self.say(f"going on from the current partition ({run.evaluations:,} evaluations, "
+                         f"{run.store.n if run.store is not None else 0:,} regions)")
+                self._start_engine()
+            else:
+                self.say(f"the run stays {run.status}: the new goal does not ask for more", "warn")
         self._pending = run.snapshot()
         self._tick()
-
-    def action_tighter(self) -> None:
-        self._scale_goal(0.1)
-
-    def action_looser(self) -> None:
-        self._scale_goal(10.0)
+        self.refresh_bindings()
 
     def _save(self, why: str = "") -> Path | None:
         if self.follower is not None:

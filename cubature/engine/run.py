@@ -406,7 +406,9 @@ class Run:
     def set_goal(self, rel_tol: float | None = None, abs_tol: float | None = None,
                  budget: int | None = None, time_limit: float | None = None) -> None:
         """Change the goal while running (tighten or loosen).  A run that had
-        converged becomes running again if the new goal is not met.
+        converged, spent its budget or time, or was stopped becomes running
+        again: it goes on from its current partition (and ends at once if
+        the new goal is already met).
 
         With ``queue="local"`` the run stops when every region meets the
         tolerance it was given when it was made, so a new tolerance has no
@@ -424,7 +426,7 @@ class Run:
                 new.time_limit = float(time_limit)
             new.validate()
             self.settings = new
-            if self.status in ("converged", "budget-spent", "time-limit") and self.store is not None:
+            if self.status in ("converged", "budget-spent", "time-limit", "stopped") and self.store is not None:
                 self.status = "running"
                 self._stop.clear()
 
