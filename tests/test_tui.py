@@ -737,3 +737,29 @@ def test_open_a_path_that_is_not_in_the_list(probs, tmp_path):
             assert await wait_until(pilot, lambda: app.screen.state == "converged")
             assert app.screen.run.result().value == pytest.approx(0.25, abs=1e-12)   # int x y = 1/4
     run(go())
+
+
+def test_hostile_files_never_end_the_picker(tmp_path):
+    """issue 10 items 11 and 15i: deeply nested TOML, a 401-digit number and a deeply nested expression are
+    listed and previewed as invalid (one message each); the picker lives on."""
+    (tmp_path / "a_nested.toml").write_text("x = " + "[" * 3000 + "]" * 3000 + "\n")
+    (tmp_path / "b_huge.toml").write_text(EXP2.replace("rel_tol = 1e-10", "rel_tol = 1" + "0" * 400)
+                                          .replace('expr = "exp(x + y)"', 'python = "m.py:f"'))
+    (tmp_path / "c_deep.toml").write_text(EXP2.replace('"exp(x + y)"', '"' + "-" * 400 + 'x"'))
+    (tmp_path / "d_ok.toml").write_text(EXP2)
+
+    async def go():
+        app = CubageApp(collect_files([str(tmp_path)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.3)
+            for _ in range(3):
+                assert isinstance(app.screen, PickerScreen)
+                assert "invalid" in screen_text(app) or "error" in screen_text(app)
+                await pilot.press("down")
+                await pilot.pause(0.2)
+            assert "exp(x + y)" in screen_text(app)
+            await pilot.press("up")
+            await pilot.press("enter")                 # an invalid file does not open, and nothing crashes
+            await pilot.pause(0.3)
+            assert isinstance(app.screen, PickerScreen)
+    run(go())

@@ -102,8 +102,8 @@ def uses_python(path) -> str | None:
     """The ``[integrand] python`` target of a problem file, or None (also None when unreadable)."""
     try:
         data = tomllib.loads(Path(path).read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError):
-        return None
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, RecursionError, MemoryError):
+        return None     # nested 3000 deep, unreadable...: the full load says why (issue 10 item 11)
     integ = data.get("integrand")
     if isinstance(integ, dict) and isinstance(integ.get("python"), str):
         return integ["python"]
@@ -147,5 +147,6 @@ def meta_from_file(path) -> ProblemMeta:
         scale = [float(x) for x in dom.get("scale", [])]
         return ProblemMeta(str(data.get("title") or path.stem), path, variables, kind, lo, hi, _kinds(lo, hi),
                            ref, src or "", scale)
-    except (KeyError, TypeError, ValueError, IndexError, OSError, tomllib.TOMLDecodeError) as exc:
+    except (KeyError, TypeError, ValueError, IndexError, OSError, ArithmeticError, RecursionError,
+            tomllib.TOMLDecodeError) as exc:
         raise ProblemError(f"cannot read title/variables/domain: {exc}", path=str(path)) from None

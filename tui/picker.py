@@ -160,6 +160,8 @@ class PickerScreen(Screen):
                 self._cache[path] = (load_problem(path, allow_python=False), None)
             except ProblemError as exc:
                 self._cache[path] = (None, str(exc))
+            except (RecursionError, ArithmeticError, MemoryError) as exc:   # bad input, whatever the parser
+                self._cache[path] = (None, f"{path}: cannot be read ({type(exc).__name__})")
         return self._cache[path]
 
     @property
@@ -179,6 +181,17 @@ class PickerScreen(Screen):
         self.action_open()
 
     def _preview(self, idx: int) -> None:
+        """Show the preview of file ``idx``; a file that breaks the preview is shown as such, never fatal."""
+        try:
+            self._preview_file(idx)
+        except Exception as exc:  # noqa: BLE001 - one bad file must not end the picker (issue 10 item 11)
+            path = self.files[idx]
+            self._cache[path] = (None, f"{path}: cannot be read ({type(exc).__name__}: {exc})"[:500])
+            self.query_one("#preview", Static).update(Group(
+                Text(path.stem, style="bold #e6e6e6"),
+                Text("invalid", style="bold #ff5f6d"), Text(self._cache[path][1], style="#ff5f6d")))
+
+    def _preview_file(self, idx: int) -> None:
         path = self.files[idx]
         prob, err = self._load(path)
         target = uses_python(path)
@@ -310,7 +323,7 @@ class PickerScreen(Screen):
         from .run_view import RunView
         try:
             prob = load_problem(path, allow_python=trust)
-        except ProblemError as exc:
+        except (ProblemError, RecursionError, ArithmeticError, MemoryError) as exc:
             self._cache[path] = (None, str(exc))
             idx = self.query_one("#problem-list", OptionList).highlighted
             if idx is not None:
