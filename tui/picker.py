@@ -57,6 +57,14 @@ def parse_overrides(rel: str, abs_: str, workers: str, budget: str = "") -> dict
     return out
 
 
+def count_text(n: int) -> str:
+    """A count short enough for a field: ``2e7`` when it is a digit times a power of ten, else ``12_345_678``."""
+    m, e = f"{n:e}".split("e")
+    if float(m) == int(float(m)) and int(e) >= 4:
+        return f"{int(float(m))}e{int(e)}"
+    return f"{n:_}"
+
+
 def reflow(text: str) -> str:
     """Join the lines of each paragraph (paragraphs are separated by blank lines)."""
     paras = [" ".join(p.split()) for p in text.strip().split("\n\n")]
@@ -208,7 +216,7 @@ class PickerScreen(Screen):
                 out.add_row(label, Text(text))
             g = prob.goal
             self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(prob.method.workers),
-                               f"{g.budget:.3g}" if g.budget else f"{DEFAULT_BUDGET:.3g}")
+                               count_text(g.budget or DEFAULT_BUDGET))
         elif target is not None and err is not None and "your own Python code" in err:
             try:
                 from .meta import meta_from_file

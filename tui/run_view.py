@@ -169,6 +169,7 @@ class RunView(Screen):
         self._final_reported = False
         self._stop_asked = False
         self._halting = False
+        self._keys_for: tuple | None = None
 
     def watch_state(self, value: str) -> None:
         # also during on_mount (before is_mounted turns true): the first poll of a followed run sets the
@@ -341,6 +342,16 @@ class RunView(Screen):
             self._show(snap)
         if self.follower is None:
             self.state = self._derive_state()
+        self._refresh_keys()
+
+    def _refresh_keys(self) -> None:
+        """Redraw the footer when what the keys can do has changed (g: go or hold, e, h)."""
+        run = self.run
+        key = (self.state, self._engine_live, run.paused if run is not None else None,
+               self.follower.result is not None if self.follower is not None else None)
+        if key != self._keys_for:
+            self._keys_for = key
+            self.refresh_bindings()
 
     # -- the run, followed from its directory ----------------------------------------
     @_while_shown
