@@ -557,3 +557,79 @@ def test_second_opinion_flags_a_kink_the_first_rule_cannot_see(tmp_path, cli):
     assert so["method"] == "gauss-kronrod" and abs(so["value"] - exact) < 1e-6 * exact
     assert so["agree"] is False
     assert "second opinion disagrees" in p.stderr
+
+
+# --------------------------------------------------------------------------
+# issue 10 items 12, 15i, 20: start-up, Ctrl-C, closed output, no terminal
+# --------------------------------------------------------------------------
+
+def test_without_a_terminal_cubage_prints_the_help_and_exits_2(tmp_path, cubage):
+    """issue 10 item 20: `cubage` with no TTY prints the help and exits 2 instead of starting the UI."""
+    p = cubage(cwd=tmp_path, timeout=30)
+    assert p.returncode == 2 and "usage: cubage" in p.stderr and "needs a terminal" in p.stderr
+    assert p.stdout == "" and "Traceback" not in p.stderr
+
+
+def test_parsing_imports_no_numerics():
+    """issue 10 item 12: the command starts without numpy or the engine (they load where they are needed)."""
+    code = ("import sys, cubage.cli.commands as c; c.build_parser(show_names=False).parse_args(['run', 'x']); "
+            "print(sorted(m for m in ('numpy', 'cubage.engine.run', 'rich') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60,
+                         env={**os.environ, "PYTHONPATH": str(ROOT)})
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "[]"
+
+
+# the console script's own two lines, after a mark that says the interpreter itself has started
+ENTRY = ("import sys; sys.stderr.write('ready\\n'); sys.stderr.flush(); "
+         "from cubage.cli import main; sys.exit(main())")
+
+
+@pytest.mark.parametrize("delay", [0.02, 0.1, 0.3, 0.8])
+def test_ctrl_c_at_any_moment_is_quiet(tmp_path, delay):
+    """issue 10 item 12: Ctrl-C in the first moments (while imports run) or later prints no traceback."""
+    import signal
+    import time
+    f = write(tmp_path, "peak.toml", PEAK3)
+    p = subprocess.Popen([sys.executable, "-c", ENTRY, "run", str(f), "--budget", "1e9"], cwd=tmp_path,
+                         env={**os.environ, "PYTHONPATH": str(ROOT)}, stdin=subprocess.DEVNULL,
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert p.stderr.readline() == "ready\n"        # Python's own start-up is done; cubage's begins
+    time.sleep(delay)
+    p.send_signal(signal.SIGINT)
+    out, err = p.communicate(timeout=60)
+    assert "Traceback" not in err and "KeyboardInterrupt" not in err, err
+    # interrupted during start-up (130) or stopped with the estimate (3)
+    assert p.returncode in (130, 3), (p.returncode, err)
+
+
+def test_a_closed_stdout_is_not_an_internal_error(tmp_path):
+    """issue 10 item 15i: a stdout closed by the caller is not "internal error"."""
+    f = write(tmp_path, "xy.toml", XY)
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    argv = [sys.executable, "-m", "cubage", "run", str(f), "--json", "--run-dir", str(tmp_path / "rd")]
+    closed = subprocess.run(argv, stdout=None, stderr=subprocess.PIPE, text=True, timeout=60, env=env,
+                            preexec_fn=lambda: os.close(1))
+    assert closed.returncode == 0 and "internal error" not in closed.stderr, closed.stderr
+    assert json.loads((tmp_path / "rd" / "verdict.json").read_text())["status"] == "converged"
+    # a pipe whose reader has gone
+    r, w = os.pipe()
+    os.close(r)
+    try:
+        gone = subprocess.run([sys.executable, "-m", "cubage", "run", str(f), "--json"], stdout=w,
+                              stderr=subprocess.PIPE, text=True, timeout=60, env=env)
+    finally:
+        os.close(w)
+    assert "internal error" not in gone.stderr and "Traceback" not in gone.stderr, gone.stderr
+    assert gone.returncode in (0, 1)
+
+
+def test_plain_log_lines_use_the_one_duration_format(tmp_path, cli):
+    """issue 10 item 20: the ticker used raw seconds ("eta 107707s"); durations now read like "29 h 55 min"."""
+    import re
+    f = write(tmp_path, "peak.toml", PEAK3)
+    p = cli("run", f, "--budget", "2000", cwd=tmp_path)
+    line = p.stderr.splitlines()[0]
+    assert line.startswith("cubage| ") and "eta " in line
+    assert not re.search(r"\d+s\b", line), line            # never a bare "123s"
+    assert re.search(r"cubage\|\s+\d+(\.\d)? (ms|s)\b", line), line

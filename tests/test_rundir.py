@@ -13,6 +13,7 @@ import os
 import socket
 import subprocess
 import sys
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -266,3 +267,219 @@ def test_trail_repairs_a_cut_last_line(tmp_path):
     log._fh.write("{}\n")
     log.close()
     assert p.read_text().splitlines()[-1] == "{}"
+
+
+# --------------------------------------------------------------------------
+# issue 10 and issue 11 item 7: refusals with one line, never "internal error"
+# --------------------------------------------------------------------------
+
+def _one_line_bad(code, out, err, *needles):
+    assert code == 2, (code, out, err)
+    assert "internal error" not in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1, err
+    for n in needles:
+        assert n in err, (n, err)
+
+
+def test_an_old_layout_is_refused_with_a_clear_message(tmp_path, cli):
+    """issue 11 item 7: run directories of the first layout (run.json, progress.jsonl, ...) are refused clearly."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "old"
+    d.mkdir()
+    for name in ("problem.toml", "run.json", "checkpoint.npz", "progress.jsonl"):
+        (d / name).write_text("{}")
+    _one_line_bad(*cli("resume", d), "older cubage layout", "cubage run")
+    _one_line_bad(*cli("run", a, "--run-dir", d), "older cubage layout")
+    _one_line_bad(*cli("watch", d, "--once"), "older cubage layout")
+
+
+def test_run_dir_below_a_regular_file(tmp_path, cli):
+    """issue 10 item 14: --run-dir below a regular file is one line, exit 2."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    (tmp_path / "plain").write_text("x")
+    _one_line_bad(*cli("run", a, "--run-dir", tmp_path / "plain" / "rd"), "is a file, not a folder")
+
+
+def test_ledger_with_wrong_types(tmp_path, cli):
+    """issue 10 item 14: a run directory's ledger with wrong types is one line, exit 2."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    led = json.loads((d / "ledger.json").read_text())
+    for key, bad, needle in (("overrides", [1, 2], "'overrides' must be an object"),
+                             ("problem", 7, "'problem' must be a string"),
+                             ("overrides", {"workers": "many"}, "overrides.workers"),
+                             ("overrides", {"checkpoint_every": "soon"}, "overrides.checkpoint_every"),
+                             ("overrides", {"backend": 3}, "overrides.backend")):
+        (d / "ledger.json").write_text(json.dumps({**led, key: bad}))
+        _one_line_bad(*cli("resume", d), "ledger.json", needle)
+        assert not (d / "occupant.json").exists()          # the lock is released after the refusal
+
+
+@pytest.mark.parametrize("where", ["local header", "central directory", "end record"])
+def test_bit_flip_in_the_checkpoint_zip_headers(tmp_path, cli, where):
+    """issue 10 item 14: a bit flip in a checkpoint's zip headers is one line, exit 2 (not "internal error")."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    ck = d / "partition.npz"
+    data = bytearray(ck.read_bytes())
+    sig = {"local header": b"PK\x03\x04", "central directory": b"PK\x01\x02", "end record": b"PK\x05\x06"}[where]
+    pos = data.find(sig)
+    assert pos >= 0
+    for off in range(4, min(30, len(data) - pos)):   # flip one bit in each header byte in turn
+        flipped = bytearray(data)
+        flipped[pos + off] ^= 0x10
+        ck.write_bytes(bytes(flipped))
+        code, out, err = cli("resume", d, "--json")
+        if code == 2:
+            assert "internal error" not in err and "partition.npz" in err, err
+        else:                                # a flip the container does not notice (a date field)
+            assert code in (0, 3), err
+            assert "internal error" not in err
+    ck.write_bytes(bytes(data))
+
+
+def test_links_in_a_run_directory_are_refused(tmp_path, cli):
+    """issue 10 item 15: resume never follows a symlinked trail out of the run directory."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    outside = tmp_path / "precious.log"
+    outside.write_text("my notes\n")
+    (d / "trail.jsonl").unlink()
+    (d / "trail.jsonl").symlink_to(outside)
+    _one_line_bad(*cli("resume", d), "trail.jsonl", "symbolic link")
+    assert outside.read_text() == "my notes\n"
+    (d / "trail.jsonl").unlink()
+    (d / "verdict.json").unlink()
+    (d / "verdict.json").symlink_to(outside)
+    _one_line_bad(*cli("run", a, "--run-dir", d), "verdict.json", "symbolic link")
+    assert outside.read_text() == "my notes\n"
+
+
+def test_run_dir_in_a_folder_that_cannot_be_written(tmp_path, cli):
+    """issue 10 item 15h: a run directory under /proc or in a read-only folder: one line naming the cause."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    _one_line_bad(*cli("run", a, "--run-dir", "/proc/cubage-test-rd"), "/proc/cubage-test-rd", "cannot")
+    ro = Path("/sys/kernel/cubage-test-rd")      # sysfs refuses new folders even to root
+    _one_line_bad(*cli("run", a, "--run-dir", ro), str(ro), "cannot be made")
+
+
+def test_read_only_run_directory(tmp_path, cli, monkeypatch):
+    """issue 10 item 15h: a read-only run directory: one line naming the cause, not masked by the lock release."""
+    import errno
+
+    from cubage.session import run_directory
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    real_open = os.open
+
+    def read_only(path, flags, *args, **kw):          # what a read-only mount answers to every write
+        if flags & (os.O_WRONLY | os.O_RDWR | os.O_CREAT) and str(d) in str(path):
+            raise OSError(errno.EROFS, "Read-only file system", str(path))
+        return real_open(path, flags, *args, **kw)
+    monkeypatch.setattr(run_directory.os, "open", read_only)
+    _one_line_bad(*cli("resume", d), "Read-only file system")
+
+
+def test_disk_full_during_a_checkpoint(tmp_path, cli, monkeypatch):
+    """issue 10 item 15h: a disk that fills during a checkpoint: one line naming the cause; the estimate is kept."""
+    import errno
+
+    from cubage.engine.run import Run
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+
+    def full(self, path):
+        raise OSError(errno.ENOSPC, "No space left on device", str(path))
+    monkeypatch.setattr(Run, "save_checkpoint", full)
+    code, out, err = cli("run", a, "--run-dir", tmp_path / "rd", "--json")
+    assert code == 2 and "No space left on device" in err and "partition.npz" in err
+    assert "internal error" not in err and "Traceback" not in err
+    rec = json.loads(out)
+    assert "No space left" in rec["storage_error"] and rec["evaluations"] > 0
+    assert not (tmp_path / "rd" / "occupant.json").exists()
+
+
+def test_a_second_run_on_a_directory_in_use_says_what_to_do(tmp_path, cli):
+    """issue 10 item 21: a second run on a directory in use must not suggest resume (which fails with "in use")."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    holder = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        (d / "occupant.json").write_text(json.dumps({"pid": holder.pid, "host": socket.gethostname(),
+                                                     "started": "2026-01-01T00:00:00"}))
+        code, out, err = cli("run", a, "--run-dir", d)
+        _one_line_bad(code, out, err, f"in use by pid {holder.pid}", f"cubage watch {d}", "halt-request")
+        assert "resume" not in err
+        _one_line_bad(*cli("resume", d), f"in use by pid {holder.pid}")
+    finally:
+        holder.kill()
+        holder.wait()
+
+
+def _dead_pid() -> int:
+    gone = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True, text=True)
+    return int(gone.stdout)
+
+
+def test_watch_says_the_runner_is_gone_and_how_to_continue(tmp_path, cli):
+    """issue 10 item 16: after the runner dies, watch shows that it is gone and says `cubage resume DIR`."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    # what kill -9 leaves: no verdict, the lock of a process that is gone, a trail whose last word is "running"
+    (d / "verdict.json").unlink()
+    lines = (d / "trail.jsonl").read_text().splitlines()
+    last = json.loads(lines[-1])
+    last["status"] = "running"
+    (d / "trail.jsonl").write_text("\n".join(lines[:-1] + [json.dumps(last)]) + "\n")
+    (d / "occupant.json").write_text(json.dumps({"pid": _dead_pid(), "host": socket.gethostname(), "started": "t"}))
+    code, out, err = cli("watch", d, "--plain")
+    assert code == 3, err
+    assert "is gone" in out and f"cubage resume {d}" in out
+    assert "runner-gone" not in err and "Traceback" not in err
+
+
+def test_watch_survives_lines_that_are_not_objects(tmp_path, cli):
+    """issue 10 item 15i: a trail line that is valid JSON but not an object must not kill `cubage watch`."""
+    a = tmp_path / "a.toml"
+    a.write_text(GAUSS2)
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "3000")[0] == 3
+    with open(d / "trail.jsonl", "a") as fh:
+        fh.write("[1, 2, 3]\n42\nnull\n")
+    code, out, err = cli("watch", d, "--plain")
+    assert code == 3, err                                  # the verdict: budget-spent
+    assert "ended: budget-spent" in out and "unreadable line skipped" in err and "Traceback" not in err
+
+
+def test_trail_lines_stay_small_whatever_the_history(tmp_path):
+    """issue 10 item 10: a trail line is small and of constant size (history as deltas, the map in its own file)."""
+    from cubage import Simplex
+    from cubage.engine.run import Run
+    from cubage.session.progress_records import ROWS_PER_LINE, map_record, new_rows, trail_line
+
+    # a 6-D simplex run whose snapshot carries a long history, many regions and worst-region vertices
+    verts = np.vstack([np.zeros(6), np.eye(6)])
+    run = Run(lambda X: 1 / (0.01 + (X * X).sum(1)), Simplex(verts), rel_tol=1e-15, budget=10**8, batch=1)
+    for _ in range(400):
+        run.step()
+    snap = run.snapshot()
+    assert len(snap.history) > 300
+    sizes = [len(json.dumps(trail_line(snap, new_rows(snap.history, after)))) for after in (-1.0, 1e3, 1e5)]
+    assert max(sizes) < 1500, sizes                      # bounded, whatever the number of new rows
+    assert len(json.loads(json.dumps(trail_line(snap, new_rows(snap.history, -1.0))))["rows"]) == ROWS_PER_LINE
+    assert len(json.dumps(map_record(snap))) > 10 * max(sizes)   # the large part lives in trail-map.json

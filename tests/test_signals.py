@@ -197,3 +197,100 @@ def test_sighup_with_run_dir_checkpoints_and_stops(tmp_path, capsys):
     assert res["stopped_by"] == "SIGHUP"
     assert json.loads((d / "verdict.json").read_text())["status"] == "stopped"
     assert (d / "partition.npz").is_file() and not (d / "occupant.json").exists()
+
+
+# --------------------------------------------------------------------------
+# issue 10 items 15a and 15g: every phase of a command is covered
+# --------------------------------------------------------------------------
+
+QUICK = """
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 2]]
+[integrand]
+expr = "exp(-x*x - y*y)"
+[goal]
+rel_tol = 1e-9
+"""
+
+
+def test_sigterm_while_the_pool_starts_stops_cleanly(tmp_path, capsys, monkeypatch):
+    """issue 10 item 15a: the handlers are installed before any pool starts; SIGTERM then stops the run cleanly."""
+    from cubage.session.prepare import PreparedRun
+    prob = tmp_path / "endless.toml"
+    prob.write_text(ENDLESS)
+    d = tmp_path / "rd"
+    start, seen = PreparedRun.start_evaluator, {}
+
+    def start_under_fire(self):
+        seen["handler"] = signal.getsignal(signal.SIGTERM)
+        os.kill(os.getpid(), signal.SIGTERM)           # arrives while the pool is being started
+        start(self)
+        seen["evaluator"] = self.evaluator
+    monkeypatch.setattr(PreparedRun, "start_evaluator", start_under_fire)
+    before = signal.getsignal(signal.SIGTERM)
+    from cubage.cli.commands import main
+    capsys.readouterr()
+    code = main(["run", str(prob), "--json", "--run-dir", str(d), "--workers", "2", "--backend", "threads"])
+    out, err = capsys.readouterr()
+    assert seen["handler"] not in (signal.SIG_DFL, before)        # ours, already installed
+    assert seen["evaluator"] is not None
+    assert code == 3, err
+    res = json.loads(out)
+    assert res["status"] == "stopped" and res["stopped_by"] == "SIGTERM"
+    assert json.loads((d / "verdict.json").read_text())["status"] == "stopped"
+    assert not (d / "occupant.json").exists()
+    assert signal.getsignal(signal.SIGTERM) is before
+
+
+@pytest.mark.parametrize("delay", [0.3, 0.8])
+def test_sigterm_early_in_a_process_pool_run_leaves_no_workers(tmp_path, delay):
+    """issue 10 item 15a: SIGTERM around the pool's start ends cubage; no worker keeps its output pipes open."""
+    import subprocess
+    import sys
+    prob = tmp_path / "endless.toml"
+    prob.write_text(ENDLESS)
+    entry = ("import sys; sys.stderr.write('ready\\n'); sys.stderr.flush(); "
+             "from cubage.cli import main; sys.exit(main())")
+    root = Path(__file__).resolve().parents[1]
+    p = subprocess.Popen([sys.executable, "-c", entry, "run", str(prob), "--workers", "2", "--backend", "processes",
+                          "--json"], cwd=tmp_path, env={**os.environ, "PYTHONPATH": str(root)},
+                         stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert p.stderr.readline() == "ready\n"
+    time.sleep(delay)
+    p.send_signal(signal.SIGTERM)
+    # communicate() returns only when every holder of the pipes (cubage and any worker) has closed them
+    out, err = p.communicate(timeout=60)
+    assert p.returncode in (3, 130), (p.returncode, err)
+    assert "Traceback" not in err
+    if p.returncode == 3:
+        assert json.loads(out)["stopped_by"] == "SIGTERM"
+
+
+def test_sigterm_during_the_second_opinion_keeps_the_main_result(tmp_path, capsys, monkeypatch):
+    """issue 10 item 15g: SIGTERM in the --second-opinion phase still writes the main result and JSON; lock freed."""
+    from cubage.session.driver import RunDriver
+    prob = tmp_path / "q.toml"
+    prob.write_text(QUICK)
+    d = tmp_path / "rd"
+    drive, calls = RunDriver.drive, []
+
+    def drive_and_signal(self, *a, **kw):
+        calls.append(self)
+        if len(calls) == 2:                               # the second opinion's run
+            os.kill(os.getpid(), signal.SIGTERM)
+        return drive(self, *a, **kw)
+    monkeypatch.setattr(RunDriver, "drive", drive_and_signal)
+    from cubage.cli.commands import main
+    capsys.readouterr()
+    code = main(["run", str(prob), "--json", "--run-dir", str(d), "--second-opinion"])
+    out, err = capsys.readouterr()
+    assert len(calls) == 2
+    res = json.loads(out)
+    # ∫_0^1 e^{-x^2} dx ∫_0^2 e^{-y^2} dy = (pi/4) erf(1) erf(2)  (Abramowitz & Stegun 7.1.1)
+    import math
+    assert res["status"] == "converged" and abs(res["value"] - math.pi / 4 * math.erf(1) * math.erf(2)) < 1e-8
+    assert res["second_opinion"]["status"] == "stopped" and res["second_opinion"]["stopped_by"] == "SIGTERM"
+    assert code == 0, err
+    assert json.loads((d / "verdict.json").read_text())["second_opinion"]["status"] == "stopped"
+    assert not (d / "occupant.json").exists()

@@ -256,7 +256,7 @@ def _overrides(args):
 
 
 def _interactive(args) -> bool:
-    return (not args.json) and sys.stdout.isatty() and os.environ.get("TERM") != "dumb"
+    return (not args.json) and sys.stdout is not None and sys.stdout.isatty() and os.environ.get("TERM") != "dumb"
 
 
 def _continue_hint(res, run, rundir) -> str:
@@ -738,6 +738,9 @@ def main(argv: list[str] | None = None) -> int:
     """
     argv = list(sys.argv[1:] if argv is None else argv)
     want_json = "--json" in argv
+    for name in ("stdout", "stderr"):     # closed by the caller: Python leaves None there; write into the void
+        if getattr(sys, name) is None:
+            setattr(sys, name, open(os.devnull, "w"))
     try:
         from cubage.session.driver import StopSignals
         guard = StopSignals()

@@ -26,8 +26,8 @@ __all__ = ["Forecast", "forecast", "forecast_evaluations", "time_to_goal", "dura
 WINDOW = 32
 #: Fewest rows that make a fit.
 MIN_POINTS = 6
-#: Forecasts beyond this many evaluations are reported as unreachable (math.inf).
-HORIZON = 1e300
+#: Forecasts beyond this many evaluations (30 years at 10^9 per second) are reported as unreachable (math.inf).
+HORIZON = 1e18
 
 
 @dataclass(frozen=True)
