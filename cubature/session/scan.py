@@ -49,6 +49,7 @@ gives the same table, bit for bit, as one that ran through.
 from __future__ import annotations
 
 import concurrent.futures as cf
+import dataclasses
 import functools
 import hashlib
 import json
@@ -78,6 +79,9 @@ COARSEN_SHARE = 0.3
 #: (Measured ratio parent/children on smooth and peaked 3-D integrands: median 9-13, 95th
 #: percentile 100-1000; the share above bounds what a wrong guess can cost.)
 COARSEN_GROWTH = 64.0
+
+#: A worker runs consecutive points of its chain for about this long before reporting back.
+SEGMENT_SECONDS = 0.5
 
 POINTS_FILE = "scan-points.jsonl"
 CSV_FILE = "scan.csv"
@@ -172,7 +176,7 @@ def _row_keys(*cols: np.ndarray) -> np.ndarray:
 
 
 def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray, allowance: float, *,
-            growth: float = COARSEN_GROWTH, passes: int = 64) -> dict:
+            growth: float | None = None, passes: int = 64) -> dict:
     """Merge pairs of sibling boxes whose errors were tiny, within an error allowance.
 
     Two boxes of the same shape that are neighbours along one axis and fill
@@ -192,6 +196,7 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
     allowance : float
         Largest estimated increase of the total error.
     """
+    growth = COARSEN_GROWTH if growth is None else float(growth)
     c = np.asarray(part["centre"], float).copy()
     h = np.asarray(part["halfw"], float).copy()
     dep = np.asarray(part.get("depth", np.zeros(len(c))), np.int64).copy()
@@ -255,8 +260,14 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
             "depth": np.maximum(dep, 0).astype(np.int16)}
 
 
-def _seed(run: Run) -> dict | None:
-    """The start partition a finished point hands to its successor (None: the successor starts cold)."""
+def _seed(run: Run, previous: np.ndarray | None = None) -> dict | None:
+    """The start partition a finished point hands to its successor (None: the successor starts cold).
+
+    The coarsening allowance is :data:`COARSEN_SHARE` of the goal expected at the successor: the larger
+    of this point's goal and the goal at the value extrapolated linearly from this point and the one
+    before it on the chain (``previous``, its values) -- so that a point whose value passed near zero
+    (a tiny relative goal, a very fine partition) does not hand that partition on whole.
+    """
     if run.status != "converged" or run.store is None:
         return None
     part = run.partition()
@@ -265,7 +276,12 @@ def _seed(run: Run) -> dict | None:
     lo, hi = run.geometry.map_extent()
     key = run.store["key"]
     err = np.where(np.isfinite(key), key, 0.0)
-    allowance = COARSEN_SHARE * float((run.goal() * run.key_weight).min())
+    goal = run.goal()
+    if previous is not None and np.shape(previous) == np.shape(run.total_value):
+        s = run.settings
+        guess = 2.0 * run.total_value - np.asarray(previous, float)
+        goal = np.maximum(goal, np.maximum(s.abs_tol, s.rel_tol * np.abs(guess)))
+    allowance = COARSEN_SHARE * float((goal * run.key_weight).min())
     return coarsen(part, err, lo, hi, allowance)
 
 
@@ -398,6 +414,7 @@ class _Job:
     checkpoint_every: float = 60.0
     stop_file: str | None = None
     want_seed: bool = True
+    previous: np.ndarray | None = None   # values of the point before this one on its chain
 
 
 class _Stopped(Exception):
@@ -456,7 +473,7 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
         return PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions,
                            "stopped", res.seconds, job.warm_from, res.message, _trust(res)), None, True
     res = run.result()
-    seed = _seed(run) if job.want_seed else None
+    seed = _seed(run, job.previous) if job.want_seed else None
     pr = PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions, res.status,
                      res.seconds, job.warm_from, res.message, _trust(res))
     return pr, seed, False
@@ -466,8 +483,23 @@ def _goal_only(settings: dict) -> dict:
     return {k: settings[k] for k in ("rel_tol", "abs_tol", "budget", "time_limit") if k in settings}
 
 
-def _solve_remote(job: _Job):
-    return _solve(job)
+def _solve_segment(jobs: list[_Job], seconds: float) -> list[tuple]:
+    """Points of one chain in a row, in a worker: at least one, then more while under ``seconds``.
+
+    Each point after the first starts from the seed its predecessor made (the order rule), exactly as
+    the caller's process would have started it.  Returns ``_solve``'s triples.
+    """
+    out = []
+    t0 = time.monotonic()
+    for i, job in enumerate(jobs):
+        if i > 0:
+            prev, seed = out[-1][0], out[-1][1]
+            job = dataclasses.replace(job, start=seed, warm_from=prev.index if seed is not None else None,
+                                      previous=np.atleast_1d(np.asarray(prev.value, float)))
+        out.append(_solve(job))
+        if out[-1][2] or time.monotonic() - t0 >= seconds:
+            break
+    return out
 
 
 # --------------------------------------------------------------------------
@@ -599,12 +631,24 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
     count = [len(done)]
     stopped = [False]
 
+    def segment_for(c: int) -> list[_Job]:
+        jobs = [job_for(c)]
+        for j in range(pos[c] + 1, len(plan[c])):
+            k = plan[c][j]
+            jobs.append(_Job(k, grid.point(k), source, domain, dict(settings), None, None,
+                             checkpoint=str(files.current(k)) if files is not None else None,
+                             checkpoint_every=checkpoint_every,
+                             stop_file=str(files.stop_file) if files is not None else None,
+                             want_seed=warm and j + 1 < len(plan[c])))
+        return jobs
+
     def job_for(c: int) -> _Job:
         k = plan[c][pos[c]]
         prev, seed = seeds.get(c, (None, None))
         start = seed if (warm and seed is not None) else None
+        before = np.atleast_1d(np.asarray(done[prev].value, float)) if prev is not None else None
         return _Job(k, grid.point(k), source, domain, dict(settings), start,
-                    prev if start is not None else None,
+                    prev if start is not None else None, previous=before,
                     checkpoint=str(files.current(k)) if files is not None else None,
                     checkpoint_every=checkpoint_every,
                     stop_file=str(files.stop_file) if files is not None else None,
@@ -639,7 +683,7 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
         running: dict = {}
         for c in range(len(plan)):
             if pos[c] < len(plan[c]):
-                running[ex.submit(_solve_remote, job_for(c))] = c
+                running[ex.submit(_solve_segment, segment_for(c), SEGMENT_SECONDS)] = c
         try:
             while running:
                 if stop_event is not None and stop_event.is_set() and files is not None \
@@ -648,15 +692,15 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
                 ready, _ = cf.wait(list(running), timeout=0.2, return_when=cf.FIRST_COMPLETED)
                 for fut in ready:
                     c = running.pop(fut)
-                    pr, seed, was_stopped = fut.result()
-                    if was_stopped:
-                        stopped[0] = True
-                        continue
-                    finished(c, pr, seed)
-                    if stop_event is not None and stop_event.is_set():
+                    for pr, seed, was_stopped in fut.result():
+                        if was_stopped:
+                            stopped[0] = True
+                            break
+                        finished(c, pr, seed)
+                    if stopped[0] or (stop_event is not None and stop_event.is_set()):
                         stopped[0] = True
                     elif pos[c] < len(plan[c]):
-                        running[ex.submit(_solve_remote, job_for(c))] = c
+                        running[ex.submit(_solve_segment, segment_for(c), SEGMENT_SECONDS)] = c
         finally:
             for fut in running:
                 fut.cancel()
