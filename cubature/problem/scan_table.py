@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import itertools
 import math
+import unicodedata
 from dataclasses import dataclass
 
 import numpy as np
@@ -196,6 +197,7 @@ def parse_scan_table(table, constants) -> ScanGrid:
     names, axes = [], []
     declared = list(constants)
     for name, v in table.items():
+        name = unicodedata.normalize("NFKC", name)      # as Python (and the expression compiler) reads names
         if name not in declared:
             have = ", ".join(declared) if declared else "none"
             raise ScanTableError(f"'{name}' is not a constant of [integrand] constants (declared: {have})", name)
