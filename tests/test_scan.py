@@ -49,7 +49,7 @@ def test_lists_ranges_and_grid():
     p = parse_problem(BASE.format(scan='a = { log = [0.1, 10], count = 5 }\nc = [0.0, 0.5]'))
     g = p.scan
     assert g.names == ("a", "c") and g.shape == (5, 2) and g.size == 10
-    # log spacing: the ends as written, equal ratios between (common practice, as numpy.logspace)
+    # log spacing: the ends as written, equal ratios between (common practice, as numpy.geomspace)
     np.testing.assert_allclose(g.axes[0], [0.1, 10**-0.5, 1.0, 10**0.5, 10.0], rtol=1e-15)
     assert g.axes[0][0] == 0.1 and g.axes[0][-1] == 10.0
     assert g.point(3) == {"a": g.axes[0][1], "c": 0.5}          # C order: the last key fastest

@@ -112,6 +112,9 @@ def main(paths: list[str] | None = None, watch: str | None = None, allow_python:
         if not d.is_dir():
             print(f"cubage watch: {watch}: no such run directory", file=sys.stderr)
             return 2
+        from .scan_view import is_scan_dir, watch_scan
+        if is_scan_dir(d):
+            return watch_scan(d)
         if not (d / PROBLEM).is_file():
             print(f"cubage watch: {watch}: not a run directory (no {PROBLEM})", file=sys.stderr)
             return 2

@@ -339,6 +339,10 @@ class PickerScreen(Screen):
             self.notify(exc.headline if hasattr(exc, "headline") else str(exc), title="Cannot open",
                         severity="error", markup=False)
             return
+        if prob.scan is not None:
+            from .scan_view import open_scan
+            open_scan(self.app, prob, overrides)
+            return
         self.app.push_screen(RunView(ProblemMeta.from_problem(prob), problem=prob, overrides=overrides,
                                      can_go_back=True))
 

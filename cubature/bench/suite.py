@@ -714,12 +714,26 @@ def bench(settings: dict, out_dir: Path, repeats: int = 1, seed: int = 2024, sho
         console.file.write(text + "\n")
         console.file.flush()
     console.print(f"wrote {out_dir / 'results.md'}, {out_dir / 'results.csv'}, {out_dir / 'runs.csv'}")
+    _bench_pictures(runs, out_dir, console)
     code = 0
     if failed:
         for m in failed:
             print(f"cubage bench: integrand failed: {m}", file=sys.stderr)
         code = 1
     return rows, runs, notes, code
+
+
+def _bench_pictures(runs: list[dict], out_dir: Path, console) -> None:
+    """error-vs-evaluations.png/.svg beside the tables when matplotlib (the extra 'plot') is installed."""
+    from cubage.cli.pictures import PicturesUnavailable, bench_figure
+    if not runs:
+        return
+    try:
+        paths = bench_figure(runs, out_dir / "error-vs-evaluations")
+    except PicturesUnavailable as exc:
+        console.print(f"note: no pictures ({exc})")
+        return
+    console.print("wrote " + ", ".join(str(p) for p in paths))
 
 
 def main(argv: list[str] | None = None) -> int:

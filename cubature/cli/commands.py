@@ -209,6 +209,15 @@ def build_parser(show_names: bool = True) -> argparse.ArgumentParser:
     p.add_argument("--every", type=_arg(_seconds), metavar="S", default=5.0,
                    help="seconds between plain lines (default 5)")
 
+    p = sub.add_parser("plot", help="draw a scan or a benchmark as PNG and SVG (needs the extra 'plot')",
+                       description="Draw I(p) with error bars from a scan's run directory (a heat map for two "
+                                   "scanned constants), or the error-versus-evaluations chart from a benchmark's "
+                                   "output folder (runs.csv), as PNG and SVG. Needs matplotlib: "
+                                   "pip install 'cubage[plot]'.")
+    p.add_argument("source", metavar="DIR", help="a scan's run directory or a benchmark's output folder")
+    p.add_argument("--out", metavar="STEM", help="output path without suffix (default: scan or "
+                                                 "error-vs-evaluations inside DIR)")
+
     sub.add_parser("bench", help="benchmarks (see: cubage bench --help)", add_help=False)
     return top
 
@@ -776,6 +785,9 @@ def _main(argv: list[str], guard, want_json: bool) -> int:
             return _ui(paths=args.paths or None, allow_python=args.allow_python)
         if args.command == "watch":
             return cmd_watch(args)
+        if args.command == "plot":
+            from cubage.cli.pictures import plot_command
+            return plot_command(args)
         if args.command in ("run", "resume"):
             return {"run": cmd_run, "resume": cmd_resume}[args.command](args, guard)
         return {"check": cmd_check, "list": cmd_list}[args.command](args)

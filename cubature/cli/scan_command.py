@@ -147,7 +147,7 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
               f"{fmt_count(res.evaluations)} evaluations (error figures are heuristic estimates, not bounds)",
               flush=True)
         if rd is not None:
-            print(f"table: {rd.file(CSV_FILE)}", flush=True)
+            print(f"table: {rd.file(CSV_FILE)}; pictures (PNG, SVG): cubage plot {rd.path}", flush=True)
     if res.stopped:
         hint = f"; continue with: cubage resume {rd.path}" if rd is not None else \
             " (keep a --run-dir to be able to continue)"
@@ -185,6 +185,11 @@ def run_scan_command(args, problem, settings: dict, name: str) -> int:
         if args.run_dir:
             rd = RunDir(Path(args.run_dir))
             rd.check_new_run(problem.fingerprint())
+            from cubage.session.scan import POINTS_FILE
+            if (rd.path / POINTS_FILE).exists():
+                from cubage.session.run_directory import RunDirError
+                raise RunDirError(f"--run-dir {rd.path}: already holds this scan; continue it with: "
+                                  f"cubage resume {rd.path}")
             info = {"cubage_version": __version__, "command": "scan", "problem": name, "title": problem.title,
                     "problem_source": str(problem.path.resolve()) if problem.path is not None else None,
                     "problem_fingerprint": problem.fingerprint(), "settings": settings,

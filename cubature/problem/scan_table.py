@@ -150,7 +150,7 @@ def _range(name: str, spec: dict) -> np.ndarray:
         return np.linspace(a, b, n)
     if not (a > 0 and b > 0):
         raise ScanTableError(f"log = [{a:g}, {b:g}]: both ends must be positive", name)
-    vals = np.logspace(math.log10(a), math.log10(b), n)
+    vals = np.geomspace(a, b, n)
     vals[0], vals[-1] = a, b                # the ends exactly as written
     return vals
 

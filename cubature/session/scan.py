@@ -80,6 +80,10 @@ COARSEN_SHARE = 0.3
 #: percentile 100-1000; the share above bounds what a wrong guess can cost.)
 COARSEN_GROWTH = 64.0
 
+#: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
+LIVE_INTERVAL = 1.0
+#: Rows of convergence history kept in a live file.
+LIVE_HISTORY = 200
 #: A worker runs consecutive points of its chain for about this long before reporting back.
 SEGMENT_SECONDS = 0.5
 
@@ -415,6 +419,7 @@ class _Job:
     stop_file: str | None = None
     want_seed: bool = True
     previous: np.ndarray | None = None   # values of the point before this one on its chain
+    live: str | None = None               # file showing this point's progress to watchers (run directories)
 
 
 class _Stopped(Exception):
@@ -447,6 +452,7 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
         run = Run(f, job.domain, fingerprint=fp, start=job.start, **job.settings)
     last_ck = time.monotonic()
     last_poll = 0.0
+    last_live = -math.inf
     stopped = False
     try:
         while True:
@@ -461,6 +467,9 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
                         (job.stop_file is not None and os.path.exists(job.stop_file)):
                     stopped = True
                     break
+            if job.live and now - last_live >= LIVE_INTERVAL:
+                last_live = now
+                _write_live(job, run)
             if job.checkpoint and job.checkpoint_every > 0 and now - last_ck >= job.checkpoint_every:
                 run.save_checkpoint(job.checkpoint)
                 last_ck = time.monotonic()
@@ -477,6 +486,27 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
     pr = PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions, res.status,
                      res.seconds, job.warm_from, res.message, _trust(res))
     return pr, seed, False
+
+
+def _write_live(job: _Job, run: Run) -> None:
+    """The current point's progress for watchers: small, constant size, replaced atomically."""
+    snap = run.snapshot(top=0, map_points=1)
+    h = np.asarray(snap.history, dtype=float)
+    if len(h) > LIVE_HISTORY:
+        h = h[np.unique(np.linspace(0, len(h) - 1, LIVE_HISTORY).astype(np.int64))]
+    m = snap.components
+
+    def num(x):
+        x = float(x)
+        return x if math.isfinite(x) else None
+    rec = {"index": job.index, "constants": job.constants, "evaluations": int(snap.evaluations),
+           "value": [num(v) for v in snap.value], "error": [num(v) for v in snap.error],
+           "goal": [num(v) for v in snap.goal], "regions": int(snap.regions), "warm_from": job.warm_from,
+           "history": [[num(r[0]), num(r[2]), num(r[2 + m])] for r in h], "updated": time.time()}
+    try:
+        write_atomic(Path(job.live), (json.dumps(rec, allow_nan=False) + "\n").encode("utf-8"))
+    except OSError:
+        pass                                   # a display aid: never end the scan over it
 
 
 def _goal_only(settings: dict) -> dict:
@@ -517,6 +547,9 @@ class _ScanFiles:
 
     def current(self, index: int) -> Path:
         return self.path / f"scan-current-{index}.npz"
+
+    def live(self, c: int) -> Path:
+        return self.path / f"scan-live-{c}.json"
 
     @property
     def stop_file(self) -> Path:
@@ -639,7 +672,8 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
                              checkpoint=str(files.current(k)) if files is not None else None,
                              checkpoint_every=checkpoint_every,
                              stop_file=str(files.stop_file) if files is not None else None,
-                             want_seed=warm and j + 1 < len(plan[c])))
+                             want_seed=warm and j + 1 < len(plan[c]),
+                             live=str(files.live(c)) if files is not None else None))
         return jobs
 
     def job_for(c: int) -> _Job:
@@ -652,7 +686,8 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
                     checkpoint=str(files.current(k)) if files is not None else None,
                     checkpoint_every=checkpoint_every,
                     stop_file=str(files.stop_file) if files is not None else None,
-                    want_seed=warm and pos[c] + 1 < len(plan[c]))
+                    want_seed=warm and pos[c] + 1 < len(plan[c]),
+                    live=str(files.live(c)) if files is not None else None)
 
     def finished(c: int, pr: PointResult, seed) -> None:
         if files is not None:

@@ -1,0 +1,436 @@
+"""The scan view: I(p) filling in as points finish, the current point's convergence, the table of points.
+
+Opened for a problem with a ``[scan]`` table (the scan runs here, in a
+background thread) or by ``cubage watch DIR`` on a scan's run directory
+(following its files: ``scan-points.jsonl`` and ``scan-live-<chain>.json``,
+see :mod:`cubage.session.scan`).
+
+Layout: the curve of the value against the first scanned constant, with the
+reported errors as error bars (two scanned constants: a heat map of the
+value, unfinished cells dark); beside it the current point's error estimate
+against evaluations (log-log) with its goal; below, the table of finished
+points.  Keys: ``h`` asks the scan to halt (current points are checkpointed;
+``cubage resume DIR`` continues a run directory), ``b`` back, ``q`` quit.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import threading
+from pathlib import Path
+
+import numpy as np
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal
+from textual.screen import Screen
+from textual.widgets import DataTable, Footer, Header, Static
+from textual_plotext import PlotextPlot
+
+from cubage.problem.scan_table import ScanGrid
+from cubage.session.run_directory import HALT_REQUEST, LEDGER, OCCUPANT, SOURCE, VERDICT
+from cubage.session.scan import POINTS_FILE, PointResult, _ScanFiles
+
+POLL_SECONDS = 0.5
+
+
+# --------------------------------------------------------------------------
+# sources: where the view's data comes from
+# --------------------------------------------------------------------------
+
+class ScanState:
+    """What the view shows: finished points, the current points' progress, and whether it is over."""
+
+    def __init__(self):
+        self.points: dict[int, PointResult] = {}
+        self.live: list[dict] = []
+        self.over = False
+        self.note = ""
+
+
+class ScanDirSource:
+    """Follows a scan's run directory (read only, except the halt request on :meth:`halt`)."""
+
+    def __init__(self, path):
+        self.path = Path(path)
+        self.files = _ScanFiles(self.path)
+
+    def poll(self, state: ScanState) -> None:
+        state.points = self.files.read_points()
+        live = []
+        for f in sorted(self.path.glob("scan-live-*.json")):
+            try:
+                rec = json.loads(f.read_text(encoding="utf-8"))
+            except (OSError, ValueError):
+                continue
+            if isinstance(rec, dict) and rec.get("index") not in state.points:
+                live.append(rec)
+        state.live = live
+        state.over = (self.path / VERDICT).is_file()
+        state.note = "" if state.over or self.runner_alive() is not False else \
+            f"the scan's process is gone; continue it with: cubage resume {self.path}"
+        if state.over:
+            state.live = []
+
+    def runner_alive(self) -> bool | None:
+        from cubage.session.run_directory import pid_alive
+        try:
+            lock = json.loads((self.path / OCCUPANT).read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            return None if (self.path / VERDICT).is_file() else False
+        pid = lock.get("pid") if isinstance(lock, dict) else None
+        return pid_alive(int(pid)) if isinstance(pid, int) else None
+
+    def halt(self) -> str:
+        (self.path / HALT_REQUEST).touch()
+        return f"asked the scan to stop; continue it with: cubage resume {self.path}"
+
+    def close(self) -> None:
+        return None
+
+
+class ScanThreadSource:
+    """Runs the scan of a problem in a background thread of this process."""
+
+    def __init__(self, problem, settings: dict | None = None, workers: int = 1):
+        from cubage.session.scan import ExprSource
+        self.problem = problem
+        self.settings = settings or {"rel_tol": problem.goal.rel_tol, "abs_tol": problem.goal.abs_tol}
+        if problem.goal.budget is not None:
+            self.settings.setdefault("budget", problem.goal.budget)
+        if problem.method.rule:
+            self.settings.setdefault("rule", problem.method.rule)
+        self.source = ExprSource(problem.integrand_spec, problem.fingerprint())
+        self.stop = threading.Event()
+        self._lock = threading.Lock()
+        self._points: dict[int, PointResult] = {}
+        self._live: dict | None = None
+        self._last_live = 0.0
+        self._over = False
+        self._error = ""
+        self._thread = threading.Thread(target=self._work, name="cubage-scan", daemon=True)
+        self._thread.start()
+
+    def _on_point(self, pr, done, total) -> None:
+        with self._lock:
+            self._points[pr.index] = pr
+            self._live = None
+
+    def _on_step(self, job, run, now) -> None:
+        if now - self._last_live < POLL_SECONDS / 2:
+            return
+        self._last_live = now
+        snap = run.snapshot(top=0, map_points=1)
+        h = np.asarray(snap.history, dtype=float)
+        m = snap.components
+        rec = {"index": job.index, "constants": job.constants, "evaluations": int(snap.evaluations),
+               "value": snap.value.tolist(), "error": snap.error.tolist(), "goal": snap.goal.tolist(),
+               "history": [[r[0], r[2], r[2 + m]] for r in h[-400:]], "warm_from": job.warm_from}
+        with self._lock:
+            self._live = rec
+
+    def _work(self) -> None:
+        from cubage.session.scan import run_scan
+        try:
+            run_scan(self.source, self.problem.domain, self.problem.scan, self.settings,
+                     on_point=self._on_point, on_step=self._on_step, stop_event=self.stop)
+        except Exception as exc:  # noqa: BLE001 - shown in the view, never a crash of the UI
+            self._error = f"the scan ended with an error: {type(exc).__name__}: {exc}"
+        finally:
+            self._over = True
+
+    def poll(self, state: ScanState) -> None:
+        with self._lock:
+            state.points = dict(self._points)
+            state.live = [self._live] if self._live is not None else []
+        state.over = self._over
+        state.note = self._error
+
+    def halt(self) -> str:
+        self.stop.set()
+        return "stopping after the current step"
+
+    def close(self) -> None:
+        self.stop.set()
+
+
+# --------------------------------------------------------------------------
+# widgets
+# --------------------------------------------------------------------------
+
+def _first(v) -> float:
+    a = np.atleast_1d(np.asarray(v, dtype=float))
+    return float(a[0]) if a.size else math.nan
+
+
+class ScanCurve(PlotextPlot):
+    """The value against the first scanned constant with error bars; a heat map for two constants."""
+
+    def __init__(self, grid: ScanGrid, **kw):
+        super().__init__(**kw)
+        self.grid = grid
+        self._empty = True
+
+    def render(self):
+        if self._empty:
+            return Text("no finished point yet", style="dim")
+        try:
+            return super().render()
+        except Exception as exc:  # noqa: BLE001 - a plotting hiccup must not end the UI
+            return Text(f"(chart unavailable: {type(exc).__name__})", style="dim")
+
+    def show(self, points: dict[int, PointResult]) -> None:
+        plt = self.plt
+        plt.clear_data()
+        plt.clear_figure()
+        self._empty = not points
+        if self._empty:
+            self.refresh()
+            return
+        g = self.grid
+        if len(g.names) == 2:
+            vals = np.full(g.shape, np.nan)
+            for k, p in points.items():
+                vals[np.unravel_index(k, g.shape)] = _first(p.value)
+            fin = np.isfinite(vals)
+            low = float(np.nanmin(vals)) if fin.any() else 0.0
+            shown = np.where(fin, vals, low)
+            plt.matrix_plot(shown.T[::-1].tolist())       # rows: second constant, top = largest
+            plt.title(f"value over {g.names[0]} (across) and {g.names[1]} (up); "
+                      f"{int(fin.sum())}/{g.size} points")
+        else:
+            name = g.names[0]
+            pts = sorted(points.values(), key=lambda p: p.constants[name])
+            x = [p.constants[name] for p in pts]
+            y = [_first(p.value) for p in pts]
+            e = [_first(p.error) for p in pts]
+            plt.error(x, y, yerr=e, color=(232, 197, 71))
+            bad = [(xx, yy) for xx, yy, p in zip(x, y, pts) if p.status != "converged"]
+            if bad:
+                plt.scatter([b[0] for b in bad], [b[1] for b in bad], color="red", marker="x")
+            plt.xlabel(name)
+            more = "" if len(g.names) == 1 else f" (all values of {', '.join(g.names[1:])})"
+            plt.title(f"value ± reported error against {name}{more}")
+        self.refresh()
+
+
+class PointConvergence(PlotextPlot):
+    """The current point's error estimate against evaluations (log10 both), with its goal."""
+
+    def __init__(self, **kw):
+        super().__init__(**kw)
+        self._empty = True
+
+    def render(self):
+        if self._empty:
+            return Text("no point running", style="dim")
+        try:
+            return super().render()
+        except Exception as exc:  # noqa: BLE001
+            return Text(f"(chart unavailable: {type(exc).__name__})", style="dim")
+
+    def show(self, live: list[dict]) -> None:
+        plt = self.plt
+        plt.clear_data()
+        plt.clear_figure()
+        rec = max(live, key=lambda r: r.get("updated", 0) or 0) if live else None
+        hist = np.array([[np.nan if v is None else v for v in row] for row in (rec or {}).get("history", [])],
+                        dtype=float).reshape(-1, 3)
+        ok = (hist[:, 0] > 0) & (hist[:, 2] > 0) & np.isfinite(hist[:, 2]) if len(hist) else np.zeros(0, bool)
+        self._empty = rec is None or not ok.any()
+        if self._empty:
+            self.refresh()
+            return
+        x, y = np.log10(hist[ok, 0]), np.log10(hist[ok, 2])
+        plt.plot(x.tolist(), y.tolist(), color=(232, 197, 71), marker="braille")
+        goal = (rec.get("goal") or [None])[0]
+        if goal and goal > 0:
+            lo, hi = float(x.min()), float(max(x.max(), x.min() + 0.3))
+            plt.plot([lo, hi], [math.log10(goal)] * 2, color=(95, 211, 138), marker="braille")
+        cons = ", ".join(f"{k} = {v:g}" for k, v in rec.get("constants", {}).items())
+        plt.title(f"#{rec.get('index')} ({cons}): log10 error vs log10 evaluations")
+        self.refresh()
+
+
+# --------------------------------------------------------------------------
+# the screen
+# --------------------------------------------------------------------------
+
+class ScanView(Screen):
+    """Live view of a scan (run here or followed from a run directory)."""
+
+    BINDINGS = [
+        Binding("h", "halt", "Halt"),
+        Binding("b", "back", "Back"),
+        Binding("q", "leave", "Quit"),
+    ]
+
+    DEFAULT_CSS = """
+    ScanView #scan-top { height: 1fr; min-height: 12; }
+    ScanView #scan-curve { width: 3fr; height: 1fr; }
+    ScanView #scan-point { width: 2fr; height: 1fr; }
+    ScanView #scan-status { height: 1; padding: 0 1; color: #8fa3bf; background: #1f2630; }
+    ScanView #scan-table { height: 1fr; }
+    """
+
+    def __init__(self, title: str, grid: ScanGrid, source, *, can_go_back: bool = True):
+        super().__init__()
+        self.title_text = title
+        self.grid = grid
+        self.source = source
+        self.can_go_back = can_go_back
+        self.state = ScanState()
+        self._rows: set[int] = set()
+        self._seen = -1
+        self._halted = ""
+
+    def compose(self) -> ComposeResult:
+        yield Header()
+        with Horizontal(id="scan-top"):
+            c = ScanCurve(self.grid, id="scan-curve", classes="panel")
+            c.border_title = "I(p)"
+            yield c
+            p = PointConvergence(id="scan-point", classes="panel")
+            p.border_title = "Current point · log-log"
+            p.border_subtitle = "[#e8c547]━ estimate[/] [#5fd38a]━ goal[/]"
+            yield p
+        yield Static("", id="scan-status")
+        t = DataTable(id="scan-table", classes="panel", zebra_stripes=True, cursor_type="row")
+        t.border_title = "Points"
+        yield t
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.app.sub_title = f"scan: {self.title_text}"
+        t = self.query_one("#scan-table", DataTable)
+        t.add_columns("#", *self.grid.names, "value", "error", "evaluations", "status", "start")
+        self._poll()
+        self.set_interval(POLL_SECONDS, self._poll)
+
+    def _poll(self) -> None:
+        try:
+            self.source.poll(self.state)
+        except Exception as exc:  # noqa: BLE001 - a bad file must not end the UI
+            self.state.note = f"cannot read the scan: {type(exc).__name__}: {exc}"
+        st = self.state
+        try:
+            if len(st.points) != self._seen:
+                self._seen = len(st.points)
+                self.query_one("#scan-curve", ScanCurve).show(st.points)
+                self._add_rows()
+            self.query_one("#scan-point", PointConvergence).show(st.live)
+            self.query_one("#scan-status", Static).update(self._status_line())
+        except Exception:  # noqa: BLE001 - the screen may be tearing down
+            return
+
+    def _add_rows(self) -> None:
+        t = self.query_one("#scan-table", DataTable)
+        for k in sorted(set(self.state.points) - self._rows):
+            p = self.state.points[k]
+            self._rows.add(k)
+            style = "" if p.status == "converged" else "bold red"
+            t.add_row(str(k), *(f"{p.constants[n]:.6g}" for n in self.grid.names), f"{_first(p.value):.12e}",
+                      f"{_first(p.error):.2e}", f"{p.evaluations:,}", Text(p.status, style=style),
+                      "cold" if p.warm_from is None else f"from #{p.warm_from}", key=str(k))
+
+    def _status_line(self) -> str:
+        st = self.state
+        n, total = len(st.points), self.grid.size
+        width = 24
+        k = int(round(width * n / total)) if total else width
+        bar = "█" * k + "░" * (width - k)
+        short = sum(p.status != "converged" for p in st.points.values())
+        evals = sum(p.evaluations for p in st.points.values())
+        self.refresh_bindings()
+        word = "done" if st.over else ("halting" if self._halted else "running")
+        text = f"{bar} {n}/{total} points · {evals:,} evaluations · {word}"
+        if short:
+            text += f" · {short} short of the goal"
+        if st.note:
+            text += f" · {st.note}"
+        elif self._halted:
+            text += f" · {self._halted}"
+        return text
+
+    def check_action(self, action: str, parameters) -> bool | None:
+        if action == "back":
+            return self.can_go_back
+        if action == "halt":
+            return not self.state.over
+        return True
+
+    def action_halt(self) -> None:
+        if self.state.over:
+            return
+        self._halted = self.source.halt()
+
+    def action_back(self) -> None:
+        if self.can_go_back:
+            self.source.close()
+            self.app.pop_screen()
+
+    def action_leave(self) -> None:
+        self.source.close()
+        self.app.exit(0)
+
+    def on_unmount(self) -> None:
+        self.source.close()
+
+
+def is_scan_dir(path) -> bool:
+    """Whether ``path`` holds a scan (its points file, or a ledger saying so)."""
+    p = Path(path)
+    if (p / POINTS_FILE).is_file():
+        return True
+    try:
+        info = json.loads((p / LEDGER).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(info, dict) and info.get("command") == "scan"
+
+
+def follow_view(path) -> ScanView:
+    """The scan view following the run directory ``path`` (its problem copy gives the grid)."""
+    from cubage.problem.problem_file import parse_problem
+    p = Path(path)
+    problem = parse_problem((p / SOURCE).read_text(encoding="utf-8"), path=p / SOURCE)
+    if problem.scan is None:
+        raise ValueError(f"{p}: the problem copy has no [scan] table")
+    return ScanView(problem.title or p.name, problem.scan, ScanDirSource(p), can_go_back=False)
+
+
+def watch_scan(path) -> int:
+    """``cubage watch DIR`` on a scan: the app with this view alone; the exit code."""
+    import sys
+
+    from textual.app import App
+
+    from cubage.problem.problem_file import ProblemError
+    try:
+        view = follow_view(path)
+    except (OSError, UnicodeDecodeError, ValueError, ProblemError) as exc:
+        print(f"cubage watch: {str(exc).splitlines()[0]}", file=sys.stderr)
+        return 2
+
+    class _ScanWatchApp(App):
+        CSS_PATH = "app.tcss"
+        TITLE = "cubage"
+        ENABLE_COMMAND_PALETTE = False
+        BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False)]
+
+        def on_mount(self) -> None:
+            self.push_screen(view)
+
+    app = _ScanWatchApp()
+    rc = app.run()
+    return int(rc) if isinstance(rc, int) else int(app.return_code or 0)
+
+
+def open_scan(app, problem, overrides: dict | None = None, *, can_go_back: bool = True) -> None:
+    """Push the scan view running ``problem``'s scan here (the picker's hook)."""
+    o = dict(overrides or {})
+    settings = {"rel_tol": o.get("rel_tol", problem.goal.rel_tol), "abs_tol": o.get("abs_tol", problem.goal.abs_tol)}
+    app.push_screen(ScanView(problem.title or "scan", problem.scan, ScanThreadSource(problem, settings),
+                             can_go_back=can_go_back))
