@@ -16,6 +16,7 @@ import numpy as np
 import pytest
 
 from cubage.cli.commands import main
+from cubage.session.run_directory import VERDICT
 
 SCAN = """
 title = "width scan"
@@ -60,7 +61,7 @@ def test_cli_table_json_csv_and_exit_codes(scanfile, tmp_path, capsys):
         assert abs(p["value"] - _exact(p["constants"]["a"])) <= 10 * 1e-9 * _exact(p["constants"]["a"])
     csv = (rd / "scan.csv").read_text().splitlines()
     assert csv[0].startswith("index,a,value,error") and len(csv) == 6
-    assert (rd / "result.json").is_file()
+    assert (rd / VERDICT).is_file()
     # a budget too small for the goal: every point stops short -> exit 3, one line on stderr
     short = tmp_path / "short.toml"
     short.write_text(SCAN.format(budget="budget = 500").replace("exp(-a*(x*x + y*y))", "sqrt(a*x*x + y*y)"))

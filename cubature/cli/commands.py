@@ -664,6 +664,9 @@ def cmd_watch(args) -> int:
                                             and sys.stdin is not None and sys.stdin.isatty())
     if not plain:
         return _ui(watch=args.dir)
+    from cubage.cli.scan_command import is_scan_dir, watch_scan_plain
+    if is_scan_dir(d):
+        return watch_scan_plain(args)
     f = RunFollower(d)
     ticker = PlainTicker(None, every=args.every, stream=sys.stdout, prefix="watch")
     said: set[str] = set()

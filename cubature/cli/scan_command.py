@@ -236,3 +236,40 @@ def resume_scan_command(args) -> int:
     finally:
         rd.release()
 
+
+
+def watch_scan_plain(args) -> int:
+    """``cubage watch DIR --plain`` on a scan: a row per finished point until the scan ends (or ``--once``)."""
+    from cubage.session.follower import RunFollower
+    from cubage.session.jsonio import read_json_object
+    from cubage.session.run_directory import VERDICT
+    from cubage.session.scan import _ScanFiles
+    d = Path(args.dir)
+    files = _ScanFiles(d)
+    follower = RunFollower(d)
+    shown: set[int] = set()
+    rows = None
+    while True:
+        pts = files.read_points()
+        if rows is None:
+            names = list(next(iter(pts.values())).constants) if pts else []
+            rows = _Rows(names, 0, quiet=False, tty=False)
+            if names:
+                rows.header()
+        for k in sorted(set(pts) - shown):
+            shown.add(k)
+            rows(pts[k], len(shown), 0)
+        verdict = read_json_object(d / VERDICT)
+        if verdict is not None:
+            ok = bool(verdict.get("converged"))
+            print(f"watch: the scan has ended: {verdict.get('points_done')}/{verdict.get('points_total')} points, "
+                  f"{'every point met its goal' if ok else 'some points stopped short of the goal'}", flush=True)
+            return EXIT_OK if ok else EXIT_SHORT
+        if args.once:
+            print(f"watch: {len(shown)} points finished so far", flush=True)
+            return EXIT_OK
+        if follower.runner_alive() is False:
+            print(f"watch: the scan's process is gone after {len(shown)} points; continue it with: "
+                  f"cubage resume {d}", flush=True)
+            return EXIT_SHORT
+        time.sleep(min(float(args.every), 2.0))
