@@ -213,3 +213,19 @@ def test_resume_mid_point_is_bit_identical(tmp_path):
     resumed = run_scan(src, dom, g, settings, chains=2, run_dir=tmp_path)
     assert not resumed.stopped and resumed.converged
     assert _strip(resumed.points) == _strip(straight.points)
+
+
+def test_chains_on_a_dask_client_match_in_process():
+    """issue 14 item 4: chains on a dask cluster (an in-process client here) give the same table, bit for bit."""
+    distributed = pytest.importorskip("distributed")
+    f = lambda X, a: np.exp(-a * (X**2).sum(1))
+    dom = cubage.Box([0, 0, 0], [1, 1, 1])
+    grid = {"a": np.linspace(0.5, 3.0, 9)}
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=2, dashboard_address=None) as c:
+        on_dask = cubage.scan(f, dom, grid, rel_tol=1e-7, chains=3, cluster=c)
+    here = cubage.scan(f, dom, grid, rel_tol=1e-7, chains=3)
+    assert _strip(on_dask.points) == _strip(here.points) and here.converged
+    # closed form per point: (sqrt(pi/a)/2 erf(sqrt a))^3 (A&S 7.1.1)
+    for p in here.points:
+        a = p.constants["a"]
+        assert abs(p.value - (math.sqrt(math.pi / a) / 2 * math.erf(math.sqrt(a))) ** 3) <= 10 * 1e-7 * p.value

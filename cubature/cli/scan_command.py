@@ -160,6 +160,34 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
     return code
 
 
+class _cluster:
+    """The dask client of ``--cluster ADDR`` (named on this command line only; closed afterwards), or None."""
+
+    def __init__(self, args):
+        self.address = getattr(args, "cluster", None)
+        self.client = None
+        self.owned = False
+
+    def __enter__(self):
+        if not self.address:
+            return None
+        from cubage.cli.commands import UsageError
+        from cubage.engine.parallel import _connect
+        try:
+            self.client, self.owned, _ = _connect(self.address)
+        except ValueError as exc:
+            raise UsageError(f"--cluster: {exc}") from None
+        return self.client
+
+    def __exit__(self, *exc):
+        if self.client is not None and self.owned:
+            try:
+                self.client.close()
+            except Exception:  # noqa: BLE001 - closing must never hide the scan's outcome
+                pass
+        return False
+
+
 def _workers_count(workers) -> int:
     if workers in (None, 1):
         return 1
@@ -173,9 +201,10 @@ def run_scan_command(args, problem, settings: dict, name: str) -> int:
     from cubage import __version__
     from cubage.cli.commands import UsageError
     from cubage.session.run_directory import RunDir
-    if args.cluster or (args.backend or problem.method.backend) == "dask":
-        raise UsageError("a scan runs its chains on local worker processes (--workers N); "
-                         "a dask cluster is not supported for scans from the command line yet")
+    if problem.method.cluster and not args.cluster:
+        where = str(problem.path) if problem.path is not None else "<problem>"
+        raise UsageError(f"{where}: [method] cluster: a scan connects only to a cluster named on the command line "
+                         "(--cluster ADDR)")
     if getattr(args, "second_opinion", False):
         raise UsageError("--second-opinion does not apply to a scan")
     workers = _workers_count(args.workers if args.workers is not None else problem.method.workers)
@@ -197,8 +226,9 @@ def run_scan_command(args, problem, settings: dict, name: str) -> int:
                     "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
                     "pid": os.getpid()}
             rd.create(problem.text, info)
-        return _execute(problem, args, name=name, settings=settings, rd=rd, warm=warm, chains=args.chains,
-                        workers=workers, cluster=None)
+        with _cluster(args) as client:
+            return _execute(problem, args, name=name, settings=settings, rd=rd, warm=warm, chains=args.chains,
+                            workers=workers, cluster=client)
     finally:
         if rd is not None:
             rd.release()
@@ -231,8 +261,10 @@ def resume_scan_command(args) -> int:
         entry = {"command": "resume", "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
                  "pid": os.getpid()}
         rd.add_session(info, entry)
-        return _execute(problem, args, name=info.get("problem") or "scan", settings=settings, rd=rd,
-                        warm=bool(info.get("warm", True)), chains=info.get("chains"), workers=workers, cluster=None)
+        with _cluster(args) as client:
+            return _execute(problem, args, name=info.get("problem") or "scan", settings=settings, rd=rd,
+                            warm=bool(info.get("warm", True)), chains=info.get("chains"), workers=workers,
+                            cluster=client)
     finally:
         rd.release()
 
