@@ -56,9 +56,29 @@ class ScanDirSource:
     def __init__(self, path):
         self.path = Path(path)
         self.files = _ScanFiles(self.path)
+        self._points: dict[int, PointResult] = {}
+        self._offset = 0
+
+    def _read_new_points(self) -> dict[int, PointResult]:
+        """Points appended since the last poll (whole lines only: a line being written waits)."""
+        try:
+            with open(self.path / POINTS_FILE, "rb") as fh:
+                fh.seek(self._offset)
+                data = fh.read()
+        except OSError:
+            return self._points
+        end = data.rfind(b"\n") + 1
+        for line in data[:end].splitlines():
+            try:
+                pr = PointResult.from_json(json.loads(line))
+            except (ValueError, KeyError, TypeError):
+                continue
+            self._points[pr.index] = pr
+        self._offset += end
+        return self._points
 
     def poll(self, state: ScanState) -> None:
-        state.points = self.files.read_points()
+        state.points = dict(self._read_new_points())
         live = []
         for f in sorted(self.path.glob("scan-live-*.json")):
             try:

@@ -55,6 +55,7 @@ import hashlib
 import json
 import math
 import os
+import signal
 import threading
 import time
 from collections.abc import Callable
@@ -513,12 +514,27 @@ def _goal_only(settings: dict) -> dict:
     return {k: settings[k] for k in ("rel_tol", "abs_tol", "budget", "time_limit") if k in settings}
 
 
+def _ignore_interrupts() -> None:
+    """In a worker process: Ctrl-C reaches the whole process group, but only the scan's own process decides
+    how to stop (it asks the workers through the halt request, so that they checkpoint their points)."""
+    if threading.current_thread() is not threading.main_thread() or os.getpid() == _DRIVER_PID:
+        return
+    try:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+    except (ValueError, OSError):
+        pass
+
+
+_DRIVER_PID: int | None = None      # the process running run_scan (set there; never the workers)
+
+
 def _solve_segment(jobs: list[_Job], seconds: float) -> list[tuple]:
     """Points of one chain in a row, in a worker: at least one, then more while under ``seconds``.
 
     Each point after the first starts from the seed its predecessor made (the order rule), exactly as
     the caller's process would have started it.  Returns ``_solve``'s triples.
     """
+    _ignore_interrupts()
     out = []
     t0 = time.monotonic()
     for i, job in enumerate(jobs):
@@ -642,6 +658,8 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
     stop_event : threading.Event, optional
         Set it to stop: current points are checkpointed, ``ScanResult.stopped`` is True.
     """
+    global _DRIVER_PID
+    _DRIVER_PID = os.getpid()
     n = grid.size
     nchains = default_chains(n) if chains is None else max(1, min(int(chains), n))
     plan = plan_chains(grid.shape, nchains)
