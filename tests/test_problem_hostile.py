@@ -241,3 +241,35 @@ def test_unknown_variable_lists_the_declared_variables():
     assert "constants k" in err.headline and "j0" not in err.headline and "j1" not in err.headline
     err = _error(_problem("xx + y"))
     assert "did you mean 'x'" in err.headline
+
+
+# --- item 7 and 11: what would make the TOML parser itself slow or deep --------
+
+def test_dotted_key_with_many_parts_is_refused_before_parsing():
+    """issue 10 item 7: tomllib is quadratic in the parts of a dotted key (200 KB of 'a.a.a' ran for minutes)."""
+    err = _error("a" + ".a" * 100_000 + " = 1\n")
+    assert "dotted parts" in err.headline and err.line == 1
+
+
+def test_nested_inline_tables_are_refused_before_parsing():
+    """issue 10 item 11: 5000 nested inline tables would recurse in the TOML parser."""
+    err = _error(SQUARE + "[integrand]\nexpr = \"x\"\nnotes = " + "{ b = " * 5000 + "1" + " }" * 5000 + "\n")
+    assert "nest" in err.headline
+
+
+def test_ordinary_dots_and_brackets_pass_the_prescan():
+    """issue 10 item 7: floats, dotted strings, multi-line arrays and [[...]] do not trip the pre-scan."""
+    text = ('title = "a.b.c.d.e.f.g.h.i.j.k.l.m.n.o.p.q.r.s"\n[domain]\nvariables = ["x", "y"]\n'
+            'box = [\n  [0.5, 1.5],  # a comment with . . . . . . . . . . . . . . . . . . dots\n  [0.25, 2.5],\n]\n'
+            '[integrand]\nexpr = """\nx * y  # 1.0.0.0.0.0.0.0.0.0.0.0.0.0.0.0.0.0\n"""\n')
+    p = parse_problem(text)
+    assert p.dim == 2
+
+
+def test_many_variables_refused_before_building_anything():
+    """issue 10 item 6: a 300-D simplex is refused by its dimension before its vertices are checked."""
+    d = 300
+    names = ", ".join(f'"v{i}"' for i in range(d))
+    verts = ", ".join(["[" + ", ".join("1" if j == i else "0" for j in range(d)) + "]" for i in range(-1, d)])
+    err = _error(_problem("v0", f"[domain]\nvariables = [{names}]\nsimplex = [{verts}]\n"))
+    assert "[domain] variables" in err.headline and "1 to 20 dimensions" in err.headline

@@ -190,3 +190,12 @@ def test_rebinding_after_an_edit_runs_the_new_code(tmp_path):
     assert load_problem(f, allow_python=True).integrand(X)[0] == 0.5          # f = x
     (tmp_path / "mine.py").write_text("def f(X):\n    return 3 * X[:, 0]\n")
     assert load_problem(f, allow_python=True).integrand(X)[0] == 1.5          # f = 3x after the edit
+
+
+def test_unpickled_expressions_are_compiled_once_per_process():
+    """issue 11 item 4: an expression pickled to a worker is compiled once there, not once per task."""
+    e = bind_problem(read_problem_spec(EXPR)).integrand
+    a, b = pickle.loads(pickle.dumps(e)), pickle.loads(pickle.dumps(e))
+    assert a is b
+    X = np.array([[0.5, 2.0]])
+    np.testing.assert_array_equal(a(X), [[1.0, 3.0]])     # x*y = 1, k = 3, by hand

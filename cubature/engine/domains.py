@@ -122,7 +122,8 @@ class Simplex:
         v.flags.writeable = False
         object.__setattr__(self, "vertices", v)
         with np.errstate(over="ignore", invalid="ignore"):
-            edges = np.linalg.norm(v[:, None, :] - v[None, :, :], axis=-1)
+            # the longest edge, one vertex at a time (memory O(d^2), not O(d^3))
+            edges = np.array([np.linalg.norm(v - row, axis=1).max() for row in v])
             log_vol = _log_volume(v)
         if not np.isfinite(edges).all() or log_vol > _LOG_MAX:
             raise DomainError(f"{_OVERFLOW}: its edges or volume exceed 1.8e308")

@@ -657,10 +657,30 @@ class CompiledExpression:
         return np.stack(out, axis=1)
 
     def __reduce__(self):
-        return (compile_expression, (self.source, self.variables, self.constants))
+        # travels as its source; a process compiles each distinct expression once (see _rebuild)
+        return (_rebuild, (self.source, self.variables, self.constants))
 
     def __repr__(self):
         return f"CompiledExpression({self.source!r}, variables={self.variables!r})"
+
+
+_REBUILT: dict[str, CompiledExpression] = {}
+
+
+def _rebuild(source, variables, constants) -> CompiledExpression:
+    """Unpickle an expression: compiled once per process and kept (a few dozen at most).
+
+    A compiled expression is never modified after it is built, so sharing one
+    between tasks (and threads) is safe.
+    """
+    key = json.dumps([source, list(variables), {k: float(v).hex() for k, v in constants.items()}], sort_keys=True)
+    hit = _REBUILT.get(key)
+    if hit is None:
+        hit = CompiledExpression(source, variables, constants)
+        if len(_REBUILT) >= 64:
+            _REBUILT.clear()
+        _REBUILT[key] = hit
+    return hit
 
 
 def compile_expression(source: str | list[str], variables: list[str],

@@ -424,6 +424,31 @@ class _ValueScan:
     def inside(self) -> bool:
         return self.depth > 0 or self.ml is not None
 
+    def skip_string_or_comment(self, s: str, i: int) -> int | None:
+        """From ``s[i]`` (inside a multi-line string, or at a quote or ``#``): the index after the string,
+        or None when the line ends first (a comment, or a string that goes on)."""
+        n = len(s)
+        if self.ml is not None:
+            while i < n:
+                if self.ml == '"""' and s[i] == "\\":
+                    i += 2
+                    continue
+                if s.startswith(self.ml, i):
+                    self.ml = None
+                    return i + 3
+                i += 1
+            return None
+        c = s[i]
+        if c == "#":
+            return None
+        if s.startswith(c * 3, i):
+            self.ml = c * 3
+            return i + 3
+        j = i + 1
+        while j < n and s[j] != c:
+            j += 2 if (c == '"' and s[j] == "\\") else 1
+        return j + 1 if j < n else None
+
     def scan(self, s: str, i: int = 0) -> None:
         n = len(s)
         while i < n:
@@ -602,7 +627,52 @@ def read_problem_spec(text: str, *, path: Path | str | None = None) -> ProblemSp
                            "nested", path=ctx.path) from None
 
 
+#: Most parts of one dotted key (``a.b.c``) or table header; a problem needs 2.
+MAX_KEY_PARTS = 16
+
+
+def _prescan(ctx: _Ctx, text: str) -> None:
+    """Refuse, in one linear pass before the TOML parser runs, what would make it slow or recurse.
+
+    The TOML parser takes time quadratic in the number of parts of a dotted
+    key (``a.a.a...``: 200 KB ran for minutes) and recurses once per level of
+    nested arrays and inline tables.  Outside strings and comments this counts
+    the dots of each key and the depth of ``[`` / ``{``.
+    """
+    scan = _ValueScan()
+    dots = 0
+    for lineno, line in enumerate(text.splitlines(), 1):
+        i, n = 0, len(line)
+        while i < n:
+            if scan.ml is not None or line[i] in "\"'#":
+                j = scan.skip_string_or_comment(line, i)
+                if j is None:
+                    break
+                i = j
+                continue
+            c = line[i]
+            if c == ".":
+                dots += 1
+                if dots >= MAX_KEY_PARTS:
+                    raise ProblemError(f"a key or table name has more than {MAX_KEY_PARTS} dotted parts",
+                                       path=ctx.path, line=lineno)
+            elif c in "=,":
+                dots = 0
+            elif c in "[{":
+                dots = 0
+                scan.depth += 1
+                if scan.depth > MAX_NESTING + 2:     # + 2: a header [[...]] opens two at depth 0
+                    raise ProblemError(f"arrays or tables nest more than {MAX_NESTING} levels deep; a problem "
+                                       "file needs at most 3", path=ctx.path, line=lineno)
+            elif c in "]}":
+                dots = 0
+                scan.depth = max(0, scan.depth - 1)
+            i += 1
+        dots = 0
+
+
 def _read_spec(ctx: _Ctx, text: str, pstr: str | None) -> ProblemSpec:
+    _prescan(ctx, text)
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -763,6 +833,10 @@ def _same_name(first: str, second: str, norm: str) -> str:
             f"(NFKC, as Python reads them): '{norm}'")
 
 
+#: The most dimensions any rule family supports (see cubage.engine.rules.rule_limit_error).
+_MOST_DIMENSIONS = max(d for d in range(1, 65) if any(rule_limit_error(r, d) is None for r in RULES))
+
+
 def _parse_domain(ctx, tbl):
     if "variables" not in tbl:
         raise ctx.error("domain", "variables", 'missing; name the variables, e.g. variables = ["x", "y"]')
@@ -770,6 +844,10 @@ def _parse_domain(ctx, tbl):
     if not isinstance(vs, list) or not vs:
         got = "an empty list" if isinstance(vs, list) else _tname(vs)
         raise ctx.error("domain", "variables", f"must be a non-empty list of names, got {got}")
+    if len(vs) > _MOST_DIMENSIONS:    # no rule goes this far: say so before checking every name and bound
+        kind = "simplex" if "simplex" in tbl and "box" not in tbl else "box"
+        raise ctx.error("domain", "variables",
+                        f"{len(vs)} variables: {rule_limit_error(default_rule(kind, len(vs)), len(vs))}")
     seen: dict[str, str] = {}
     for v in vs:
         n = _check_identifier(ctx, "domain", "variables", v, "variable")
@@ -826,6 +904,9 @@ def _parse_domain(ctx, tbl):
     verts = tbl["simplex"]
     if not isinstance(verts, list):
         raise ctx.error("domain", "simplex", f"must be a list of vertices, got {_tname(verts)}")
+    too_many = rule_limit_error("grundmann-moller", d)
+    if too_many:     # before the (d + 1) x d vertices are checked and the simplex is built
+        raise ctx.error("domain", "variables", f"{d} variables: {too_many}")
     if len(verts) != d + 1:
         raise ctx.error("domain", "simplex", f"has {len(verts)} vertices; {d} variable(s) need {d + 1}")
     for i, row in enumerate(verts):
