@@ -243,7 +243,7 @@ def test_sigterm_while_the_pool_starts_stops_cleanly(tmp_path, capsys, monkeypat
     assert signal.getsignal(signal.SIGTERM) is before
 
 
-@pytest.mark.parametrize("delay", [0.3, 0.8])
+@pytest.mark.parametrize("delay", [0.5])
 def test_sigterm_early_in_a_process_pool_run_leaves_no_workers(tmp_path, delay):
     """issue 10 item 15a: SIGTERM around the pool's start ends cubage; no worker keeps its output pipes open."""
     import subprocess

@@ -11,7 +11,6 @@ integrand failed.
 
 from __future__ import annotations
 
-import json
 import os
 import socket
 import sys
@@ -140,7 +139,8 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
             rd.write_file(VERDICT, rec)
     code = _exit(res)
     if args.json:
-        print(json.dumps(rec, allow_nan=False), flush=True)
+        from cubage.session.jsonio import dumps
+        print(dumps(rec), flush=True)
     else:
         short = [p for p in res.points if not p.converged]
         print(f"{len(res.points)}/{grid.size} points, {len(res.points) - len(short)} met the goal, "

@@ -321,11 +321,13 @@ class PointResult:
         return self.status == "converged"
 
     def to_json(self) -> dict:
+        from cubage.session.jsonio import json_number  # the project's one rule for NaN/inf in JSON
+
         def num(v):
             a = np.asarray(v, dtype=float)
             if a.ndim == 0:
-                return float(a) if math.isfinite(float(a)) else None
-            return [float(x) if math.isfinite(x) else None for x in a]
+                return json_number(a)
+            return [json_number(x) for x in a]
         rec = {"index": int(self.index), "constants": dict(self.constants), "value": num(self.value),
                "error": num(self.error), "evaluations": int(self.evaluations), "regions": int(self.regions),
                "status": self.status, "seconds": round(float(self.seconds), 6), "warm_from": self.warm_from,
@@ -336,10 +338,12 @@ class PointResult:
 
     @classmethod
     def from_json(cls, rec: dict) -> PointResult:
+        from cubage.session.jsonio import number_from_json
+
         def arr(v):
             if isinstance(v, list):
-                return np.array([math.nan if x is None else x for x in v], dtype=float)
-            return math.nan if v is None else float(v)
+                return np.array([number_from_json(x) for x in v], dtype=float)
+            return number_from_json(v)
         return cls(int(rec["index"]), {k: float(v) for k, v in rec["constants"].items()}, arr(rec["value"]),
                    arr(rec["error"]), int(rec["evaluations"]), int(rec["regions"]), str(rec["status"]),
                    float(rec["seconds"]), rec.get("warm_from"), str(rec.get("message", "")), rec.get("trust"))
