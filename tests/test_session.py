@@ -138,6 +138,17 @@ def test_status_words_follow_the_engine():
     assert is_final("runner-gone") and "runner-gone" in FINAL and not is_final("ready")
 
 
+@pytest.mark.parametrize("ending", ["converged", "budget-spent", "time-limit", "stopped", "stalled", "failed"])
+def test_reopenable_words_are_what_the_engine_reopens(ending):
+    """The session's REOPENABLE set is exactly the endings Run.set_goal lets go on."""
+    from cubage.session.status import REOPENABLE
+    run = Run(lambda X: X[:, 0] * X[:, 1], Box([0, 0], [1, 1]), rel_tol=1e-3)
+    run.run()
+    run.status = ending                     # as if the run had ended so
+    run.set_goal(rel_tol=1e-12, budget=10**7, time_limit=1e6)
+    assert (not run.done) == (ending in REOPENABLE)
+
+
 def test_checks_name_the_source_of_the_value():
     """issue 11 item 3: every goal/method check in one place, each message naming where the value came from."""
     with pytest.raises(InputError, match=r"^--rel-tol: must be a finite number"):

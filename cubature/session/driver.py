@@ -147,6 +147,9 @@ class RunDriver:
             self.run.set_goal(rel_tol=rel, abs_tol=ab, budget=bud, time_limit=tl)
         except ValueError as exc:
             raise InputError(str(exc)) from None
+        if not self.run.done:
+            with self._lock:
+                self._stop_reason = None      # a reopened run's next ending has its own cause
         return not self.run.done
 
     # -- the loop ------------------------------------------------------------------

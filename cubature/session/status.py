@@ -15,7 +15,7 @@ engine word except ``running`` and ``paused``, and ``runner-gone``.
 
 from __future__ import annotations
 
-__all__ = ["ENGINE_WORDS", "SESSION_WORDS", "WORDS", "FINAL", "is_final", "meaning", "exit_code",
+__all__ = ["ENGINE_WORDS", "SESSION_WORDS", "WORDS", "FINAL", "REOPENABLE", "is_final", "meaning", "exit_code",
            "EXIT_OK", "EXIT_FAILED", "EXIT_BAD_INPUT", "EXIT_SHORT", "EXIT_INTERRUPTED"]
 
 #: The engine's status words and their meaning (a copy of cubage.engine.run.STATUSES, checked by a test).
@@ -44,6 +44,9 @@ WORDS: dict[str, str] = {**ENGINE_WORDS, **SESSION_WORDS}
 
 #: Statuses after which the run does not change by itself.
 FINAL: frozenset[str] = frozenset(w for w in ENGINE_WORDS if w not in ("running", "paused")) | {"runner-gone"}
+
+#: Final statuses from which a new goal or budget lets the same run go on (Run.set_goal reopens them).
+REOPENABLE: frozenset[str] = frozenset({"converged", "budget-spent", "time-limit", "stopped"})
 
 EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 

@@ -11,6 +11,7 @@ from textual.widgets import Static
 
 from cubage import STATUSES
 from cubage.engine.run import Snapshot
+from cubage.session.status import FINAL as _FINAL
 
 from ..forecast import fmt_count, fmt_seconds, forecast_seconds
 from ..meta import ProblemMeta
@@ -24,7 +25,7 @@ STATUS_STYLE = {
     "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d",
 }
 
-FINAL = ("converged", "budget-spent", "time-limit", "stopped", "region-limit", "stalled", "failed")
+FINAL = _FINAL          # the session's one set of final status words (cubage.session.status)
 
 ESTIMATE_NOTE = "± is an error estimate, not a bound"
 
