@@ -12,6 +12,8 @@ import threading
 import mpmath
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 import cubage
 from cubage.cli.commands import main
@@ -229,3 +231,59 @@ def test_chains_on_a_dask_client_match_in_process():
     for p in here.points:
         a = p.constants["a"]
         assert abs(p.value - (math.sqrt(math.pi / a) / 2 * math.erf(math.sqrt(a))) ** 3) <= 10 * 1e-7 * p.value
+
+
+# --------------------------------------------------------------------------
+# hostile and random [scan] tables
+# --------------------------------------------------------------------------
+
+_VALUES = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True), st.integers(min_value=-10**400, max_value=10**400),
+    st.booleans(), st.text(max_size=5),
+    st.lists(st.one_of(st.floats(allow_nan=True), st.integers(min_value=-10**30, max_value=10**30),
+                       st.text(max_size=3)), max_size=6),
+    st.fixed_dictionaries({}, optional={"lin": st.lists(st.floats(allow_nan=True), max_size=3),
+                                        "log": st.lists(st.floats(allow_nan=True), max_size=3),
+                                        "count": st.integers(min_value=-5, max_value=10**7),
+                                        "step": st.integers()}),
+)
+
+
+def _toml_value(v) -> str:
+    import json as _json
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, float):
+        return "nan" if math.isnan(v) else ("inf" if v == math.inf else "-inf" if v == -math.inf else repr(v))
+    if isinstance(v, int):
+        return str(v)
+    if isinstance(v, str):
+        return _json.dumps(v)
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    return "{ " + ", ".join(f"{k} = {_toml_value(x)}" for k, x in v.items()) + " }"
+
+
+@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(st.dictionaries(st.sampled_from(["a", "c", "b", "zz"]), _VALUES, max_size=3))
+def test_random_scan_tables_are_accepted_or_one_line_errors(table):
+    """issue 14 item 1 (and issue 10's rule): any [scan] table either parses into a valid grid or gives one
+    line naming [scan]; never a traceback."""
+    body = "\n".join(f"{k} = {_toml_value(v)}" for k, v in table.items())
+    try:
+        p = parse_problem(BASE.format(scan=body))
+    except ProblemError as exc:
+        assert "\n" not in exc.headline
+        return
+    g = p.scan
+    assert set(g.names) <= {"a", "c"} and 1 <= g.size <= MAX_POINTS
+    assert all(np.isfinite(ax).all() and ax.size >= 1 for ax in g.axes)
+
+
+def test_cluster_from_a_problem_file_is_not_contacted(tmp_path, capsys):
+    """issue 10 item 0 for scans: a [method] cluster in the file is refused unless named on the command line."""
+    f = tmp_path / "c.toml"
+    f.write_text(BASE.format(scan="a = [1.0, 2.0]") + '\n[method]\ncluster = "tcp://127.0.0.1:9"\n')
+    assert main(["run", str(f)]) == 2
+    err = capsys.readouterr().err
+    assert "--cluster" in err and len(err.strip().splitlines()) == 1
