@@ -287,3 +287,14 @@ def test_cluster_from_a_problem_file_is_not_contacted(tmp_path, capsys):
     assert main(["run", str(f)]) == 2
     err = capsys.readouterr().err
     assert "--cluster" in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_folder_of_another_scan_is_refused(tmp_path):
+    """issue 14 item 5: continuing a scan checks that the folder holds this scan (not another grid or integrand)."""
+    f = lambda X, a: np.exp(-a * (X**2).sum(1))
+    dom = cubage.Box([0, 0], [1, 1])
+    cubage.scan(f, dom, {"a": [1.0, 2.0]}, rel_tol=1e-8, run_dir=tmp_path)
+    with pytest.raises(cubage.CheckpointError, match="another scan"):
+        cubage.scan(f, dom, {"a": [1.0, 3.0]}, rel_tol=1e-8, run_dir=tmp_path)
+    again = cubage.scan(f, dom, {"a": [1.0, 2.0]}, rel_tol=1e-6, run_dir=tmp_path)   # a new goal is allowed
+    assert len(again.points) == 2 and again.converged

@@ -514,6 +514,15 @@ def _write_live(job: _Job, run: Run) -> None:
         pass                                   # a display aid: never end the scan over it
 
 
+def _identity(source, domain, grid: ScanGrid, settings: dict, warm: bool, chains: int) -> str:
+    """What decides a scan's points besides the goal: grid, integrand, domain, method, chains, warm start."""
+    base = source.fingerprint({})
+    method = {k: v for k, v in sorted(settings.items()) if k not in ("rel_tol", "abs_tol", "budget", "time_limit")}
+    blob = json.dumps({"grid": grid.to_json(), "integrand": base, "domain": domain.to_json(), "method": method,
+                       "warm": bool(warm), "chains": int(chains)}, sort_keys=True, default=str)
+    return hashlib.sha256(blob.encode()).hexdigest()
+
+
 def _goal_only(settings: dict) -> dict:
     return {k: settings[k] for k in ("rel_tol", "abs_tol", "budget", "time_limit") if k in settings}
 
@@ -575,6 +584,24 @@ class _ScanFiles:
     def stop_file(self) -> Path:
         from cubage.session.run_directory import HALT_REQUEST
         return self.path / HALT_REQUEST
+
+    def claim(self, identity: str) -> None:
+        """Record which scan this folder holds, or refuse a folder that holds another one."""
+        p = self.path / SCAN_JSON
+        self.path.mkdir(parents=True, exist_ok=True)
+        try:
+            held = json.loads(p.read_text(encoding="utf-8")).get("identity")
+        except FileNotFoundError:
+            held = None
+        except (OSError, ValueError, AttributeError):
+            raise CheckpointError(f"{p}: unreadable; this folder's scan cannot be continued") from None
+        if held is None:
+            if (self.path / POINTS_FILE).exists():
+                raise CheckpointError(f"{self.path}: holds scan points but no {SCAN_JSON}; choose a new folder")
+            write_atomic(p, (json.dumps({"identity": identity}) + "\n").encode("utf-8"))
+        elif held != identity:
+            raise CheckpointError(f"{self.path}: holds another scan (its grid, integrand, domain, method, chains "
+                                  "or warm start differ); choose a new folder")
 
     def read_points(self) -> dict[int, PointResult]:
         out: dict[int, PointResult] = {}
@@ -668,6 +695,8 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
     nchains = default_chains(n) if chains is None else max(1, min(int(chains), n))
     plan = plan_chains(grid.shape, nchains)
     files = _ScanFiles(run_dir) if run_dir is not None else None
+    if files is not None:
+        files.claim(_identity(source, domain, grid, settings, warm, nchains))
     done: dict[int, PointResult] = files.read_points() if files is not None else {}
     done = {k: v for k, v in done.items() if 0 <= k < n}
     pos = [0] * len(plan)
