@@ -298,3 +298,28 @@ def test_a_folder_of_another_scan_is_refused(tmp_path):
         cubage.scan(f, dom, {"a": [1.0, 3.0]}, rel_tol=1e-8, run_dir=tmp_path)
     again = cubage.scan(f, dom, {"a": [1.0, 2.0]}, rel_tol=1e-6, run_dir=tmp_path)   # a new goal is allowed
     assert len(again.points) == 2 and again.converged
+
+
+def test_resume_after_a_crash_at_any_file_write(tmp_path):
+    """issue 14 item 5: a crash after a point's seed was written and in the middle of its line is continued to
+    the same table, bit for bit (the torn line is recomputed; its predecessor's seed is still there)."""
+    f = lambda X, a: np.exp(-a * ((X - 0.3) ** 2).sum(1))
+    dom = cubage.Box([0, 0, 0], [1, 1, 1])
+    grid = {"a": np.linspace(1.0, 6.0, 5)}
+    straight = cubage.scan(f, dom, grid, rel_tol=1e-8)
+    d = tmp_path / "rd"
+    stop = threading.Event()
+    src = cubage.session.scan.CallableSource(f)
+    g = cubage.session.scan.grid_from_mapping(grid)
+    part = run_scan(src, dom, g, {"rel_tol": 1e-8}, run_dir=d, stop_event=stop,
+                    on_point=lambda p, k, n: stop.set() if k == 3 else None)
+    assert len(part.points) == 3 and (d / "scan-seed-2.npz").is_file()
+    # the crash: point 3's seed written (here a stand-in) and half of its line
+    files = cubage.session.scan._ScanFiles(d)
+    files.save_seed(3, None)
+    line = json.dumps(straight.points[3].to_json())
+    with open(d / "scan-points.jsonl", "a") as fh:
+        fh.write(line[: len(line) // 2])
+    resumed = run_scan(src, dom, g, {"rel_tol": 1e-8}, run_dir=d)
+    assert _strip(resumed.points) == _strip(straight.points)
+    assert len((d / "scan-points.jsonl").read_text().splitlines()) == 6     # the torn line, then 3 and 4

@@ -38,7 +38,7 @@ with the same checks as a cold one.  Error estimates are heuristic, not bounds.
 Checkpoints (run directories)
 -----------------------------
 With a run directory every finished point is appended to ``scan-points.jsonl``
-(after the partition its successor starts from, ``scan-chain-<c>.npz``), and
+(after the partition its successor starts from, ``scan-seed-<index>.npz``), and
 the point each chain is working on is checkpointed to
 ``scan-current-<index>.npz`` every ``checkpoint_every`` seconds and when
 stopped.  :func:`run_scan` on the same directory skips finished points and
@@ -466,10 +466,12 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
             now = time.monotonic()
             if observer is not None:
                 observer(job, run, now)
-            if now - last_poll >= 0.2:
+            if stop_event is not None and stop_event.is_set():
+                stopped = True
+                break
+            if job.stop_file is not None and now - last_poll >= 0.2:
                 last_poll = now
-                if (stop_event is not None and stop_event.is_set()) or \
-                        (job.stop_file is not None and os.path.exists(job.stop_file)):
+                if os.path.exists(job.stop_file):
                     stopped = True
                     break
             if job.live and now - last_live >= LIVE_INTERVAL:
@@ -571,8 +573,8 @@ class _ScanFiles:
     def __init__(self, path):
         self.path = Path(path)
 
-    def chain_seed(self, c: int) -> Path:
-        return self.path / f"scan-chain-{c}.npz"
+    def seed_file(self, index: int) -> Path:
+        return self.path / f"scan-seed-{index}.npz"
 
     def current(self, index: int) -> Path:
         return self.path / f"scan-current-{index}.npz"
@@ -622,21 +624,27 @@ class _ScanFiles:
 
     def append_point(self, pr: PointResult) -> None:
         p = self.path / POINTS_FILE
-        fd = os.open(p, os.O_WRONLY | os.O_APPEND | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o644)
+        fd = os.open(p, os.O_RDWR | os.O_APPEND | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o644)
+        size = os.fstat(fd).st_size
+        torn = size > 0 and os.pread(fd, 1, size - 1) != b"\n"      # a line cut short by a crash
         with os.fdopen(fd, "a", encoding="utf-8") as fh:
-            fh.write(json.dumps(pr.to_json(), allow_nan=False) + "\n")
+            fh.write(("\n" if torn else "") + json.dumps(pr.to_json(), allow_nan=False) + "\n")
             fh.flush()
             os.fsync(fh.fileno())
 
-    def save_seed(self, c: int, index: int, seed: dict | None) -> None:
+    def save_seed(self, index: int, seed: dict | None) -> None:
         arrays = {} if seed is None else {k: np.asarray(v) for k, v in seed.items()}
         arrays["point"] = np.array([index], np.int64)
-        write_atomic(self.chain_seed(c), lambda fh: np.savez(fh, **arrays))
+        write_atomic(self.seed_file(index), lambda fh: np.savez(fh, **arrays))
 
-    def load_seed(self, c: int, index: int) -> tuple[bool, dict | None]:
-        """(found, seed): the seed saved by point ``index`` on chain ``c``."""
+    def drop_seed(self, index: int | None) -> None:
+        if index is not None:
+            self.seed_file(index).unlink(missing_ok=True)
+
+    def load_seed(self, index: int) -> tuple[bool, dict | None]:
+        """(found, seed): the partition finished point ``index`` handed to its successor (None: cold)."""
         try:
-            with np.load(self.chain_seed(c), allow_pickle=False) as z:
+            with np.load(self.seed_file(index), allow_pickle=False) as z:
                 arrays = {k: z[k] for k in z.files}
         except (OSError, ValueError, EOFError):
             return False, None
@@ -706,7 +714,7 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
             pos[c] += 1
         if 0 < pos[c] < len(chain):
             prev = chain[pos[c] - 1]
-            found, seed = files.load_seed(c, prev) if files is not None else (False, None)
+            found, seed = files.load_seed(prev) if files is not None else (False, None)
             if not found and done[prev].converged and warm:
                 raise CheckpointError(f"{run_dir}: the partition saved by point {prev} is missing; "
                                       "the scan cannot continue bit for bit")
@@ -742,13 +750,12 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
 
     def finished(c: int, pr: PointResult, seed) -> None:
         if files is not None:
+            # order matters for a crash at any moment: this point's seed, then its line, then the old files
             if pos[c] + 1 < len(plan[c]):
-                files.save_seed(c, pr.index, seed)
+                files.save_seed(pr.index, seed)
             files.append_point(pr)
-            try:
-                files.current(pr.index).unlink()
-            except FileNotFoundError:
-                pass
+            files.drop_seed(plan[c][pos[c] - 1] if pos[c] > 0 else None)
+            files.current(pr.index).unlink(missing_ok=True)
         done[pr.index] = pr
         seeds[c] = (pr.index, seed)
         pos[c] += 1
@@ -759,6 +766,9 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
     if workers <= 1 and cluster is None:
         for c in range(len(plan)):
             while pos[c] < len(plan[c]) and not stopped[0]:
+                if stop_event is not None and stop_event.is_set():
+                    stopped[0] = True
+                    break
                 pr, seed, was_stopped = _solve(job_for(c), stop_event, on_step)
                 if was_stopped:
                     stopped[0] = True
