@@ -192,10 +192,17 @@ class ScanCurve(PlotextPlot):
         super().__init__(**kw)
         self.grid = grid
         self._empty = True
+        self._heat: Text | None = None
+        self._points: dict[int, PointResult] = {}
 
     def render(self):
         if self._empty:
             return Text("no finished point yet", style="dim")
+        if len(self.grid.names) == 2:
+            try:
+                return heat_map(self.grid, self._points, max(20, self.size.width - 2), max(6, self.size.height - 1))
+            except Exception as exc:  # noqa: BLE001 - a drawing hiccup must not end the UI
+                return Text(f"(heat map unavailable: {type(exc).__name__})", style="dim")
         try:
             return super().render()
         except Exception as exc:  # noqa: BLE001 - a plotting hiccup must not end the UI
@@ -210,16 +217,9 @@ class ScanCurve(PlotextPlot):
             self.refresh()
             return
         g = self.grid
+        self._points = points
         if len(g.names) == 2:
-            vals = np.full(g.shape, np.nan)
-            for k, p in points.items():
-                vals[np.unravel_index(k, g.shape)] = _first(p.value)
-            fin = np.isfinite(vals)
-            low = float(np.nanmin(vals)) if fin.any() else 0.0
-            shown = np.where(fin, vals, low)
-            plt.matrix_plot(shown.T[::-1].tolist())       # rows: second constant, top = largest
-            plt.title(f"value over {g.names[0]} (across) and {g.names[1]} (up); "
-                      f"{int(fin.sum())}/{g.size} points")
+            pass                                   # drawn by heat_map() in render()
         else:
             name = g.names[0]
             pts = sorted(points.values(), key=lambda p: p.constants[name])
@@ -234,6 +234,53 @@ class ScanCurve(PlotextPlot):
             more = "" if len(g.names) == 1 else f" (all values of {', '.join(g.names[1:])})"
             plt.title(f"value ± reported error against {name}{more}")
         self.refresh()
+
+
+#: Colours of the heat map, low to high (a perceptually ordered blue-green-yellow ramp).
+HEAT = ("#3b0f70", "#3f3a8c", "#33638d", "#28808e", "#1f9e89", "#35b779", "#6ece58", "#b5de2b", "#fde725")
+
+
+def heat_map(grid: ScanGrid, points: dict[int, PointResult], width: int, height: int) -> Text:
+    """A 2-D scan as coloured cells: the first constant across, the second up; ``·`` where not finished yet,
+    ``x`` where a point stopped short of its goal."""
+    nx, ny = grid.shape
+    vals = np.full((nx, ny), np.nan)
+    short = np.zeros((nx, ny), bool)
+    for k, p in points.items():
+        i, j = np.unravel_index(k, grid.shape)
+        vals[i, j] = _first(p.value)
+        short[i, j] = p.status != "converged"
+    fin = np.isfinite(vals)
+    lo, hi = (float(np.nanmin(vals)), float(np.nanmax(vals))) if fin.any() else (0.0, 1.0)
+    label = max(len(f"{v:.4g}") for v in grid.axes[1])
+    cw = max(1, min(8, (width - label - 1) // max(nx, 1)))
+    rows_avail = max(1, height - 3)
+    ys = np.arange(ny)[::-1]
+    if ny > rows_avail:                         # more rows than lines: show an even subset
+        ys = np.unique(np.linspace(ny - 1, 0, rows_avail).round().astype(int))[::-1]
+    xs = np.arange(nx)
+    if nx * cw > width - label - 1:
+        xs = np.unique(np.linspace(0, nx - 1, max(1, width - label - 1)).round().astype(int))
+    out = Text()
+    for j in ys:
+        out.append(f"{grid.axes[1][j]:>{label}.4g} ", style="#8fa3bf")
+        for i in xs:
+            if not fin[i, j]:
+                out.append("·".center(cw), style="#3b4a5e")
+                continue
+            t = 0.0 if hi == lo else (vals[i, j] - lo) / (hi - lo)
+            colour = HEAT[min(len(HEAT) - 1, int(t * len(HEAT)))]
+            out.append(("x" if short[i, j] else " ").center(cw), style=f"bold red on {colour}")
+        out.append("\n")
+    first, last = f"{grid.axes[0][xs[0]]:.4g}", f"{grid.axes[0][xs[-1]]:.4g}"
+    span = len(xs) * cw
+    out.append(" " * (label + 1) + first + " " * max(1, span - len(first) - len(last)) + last + "\n", style="#8fa3bf")
+    out.append(" " * (label + 1) + f"{grid.names[0]} across, {grid.names[1]} up; value ", style="#8fa3bf")
+    out.append(f"{lo:.4g} ", style="#8fa3bf")
+    for c in HEAT:
+        out.append(" ", style=f"on {c}")
+    out.append(f" {hi:.4g}; {int(fin.sum())}/{grid.size} points", style="#8fa3bf")
+    return out
 
 
 class PointConvergence(PlotextPlot):
