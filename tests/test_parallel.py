@@ -311,7 +311,8 @@ def test_auto_stays_in_process_for_a_cheap_integrand(serial_results):
     with ev:
         res = _run(gauss3(), BOX3, ev)
         assert ev.mode == "serial"
-        assert ev.steps_parallel == 0 and ev.steps_serial == res.steps
+        # every step calls the evaluator at least once (some also probe region vertices in a second call)
+        assert ev.steps_parallel == 0 and ev.steps_serial >= res.steps
         assert ev.dispatch_seconds is None  # the pool was never started
         assert ev.describe().startswith("auto: in-process")
     assert np.array_equal(res.values, serial_results["gauss3"].values)

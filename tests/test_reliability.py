@@ -75,3 +75,116 @@ def test_sharp_needs_fewer_evaluations_than_plain():
 # C0 and discontinuous integrands lie outside the estimate's assumptions (the rules' error
 # expansions need smoothness).  No target is asserted for them; the shares measured by
 # benchmarks/reliability.py are recorded in cubature/estimate.py's docstring.
+
+
+# ---------------------------------------------------------------- issue 12: no silent wrong answers
+
+def _honest(res, exact, tol):
+    """The run either meets its goal with an honest estimate or does not claim convergence."""
+    true = abs(res.value - exact)
+    if res.converged:
+        assert true <= res.error, (res.status, true, res.error)
+        assert true <= 2 * tol * abs(exact), (true, tol * abs(exact))
+    return true
+
+
+@pytest.mark.parametrize("tol", [1e-4, 1e-6])
+def test_threshold_times_smooth_factor_4d(tol):
+    """Issue 12 (first failure): (x < c) exp(y) on [0,1]^4 was 'converged' with the true error 2e-3."""
+    c = 0.7213
+    # product formula: c (e - 1)
+    exact = c * (math.e - 1)
+    res = cubage.integrate(lambda X: (X[:, 0] < c) * np.exp(X[:, 1]), cubage.Box([0] * 4, [1] * 4), rel_tol=tol,
+                           budget=200_000)
+    assert abs(res.value - exact) <= res.error
+    _honest(res, exact, tol)
+
+
+def test_abs_along_an_axis_4d():
+    """Issue 12 (second failure): |x - c| exp(y + z + w) was 'converged' at 1e-6 with 6x the reported error."""
+    c = 0.3377
+    # product formula: (c^2 + (1 - c)^2) / 2 * (e - 1)^3
+    exact = (c * c + (1 - c) ** 2) / 2 * (math.e - 1) ** 3
+    res = cubage.integrate(lambda X: np.abs(X[:, 0] - c) * np.exp(X[:, 1:].sum(axis=1)), cubage.Box([0] * 4, [1] * 4),
+                           rel_tol=1e-6, budget=200_000)
+    assert abs(res.value - exact) <= res.error
+    _honest(res, exact, 1e-6)
+
+
+@pytest.mark.parametrize("tol", [1e-4, 1e-6])
+def test_kink_on_a_generic_plane_3d(tol):
+    """Issue 12 (third failure): |x + y + z - 1.4| was 'converged' with 5x / 500x the reported error."""
+    s = 1.4
+    # Irwin-Hall: E|S - s| = (3/2 - s) + 2 E(s - S)^+, E(s - S)^+ = sum_j (-1)^j C(3,j) (s-j)_+^4 / 4!
+    exact = (1.5 - s) + 2 * sum((-1) ** j * math.comb(3, j) * max(s - j, 0.0) ** 4 for j in range(4)) / 24
+    res = cubage.integrate(lambda X: np.abs(X.sum(axis=1) - s), cubage.Box([0] * 3, [1] * 3), rel_tol=tol,
+                           budget=150_000)
+    _honest(res, exact, tol)
+
+
+def test_distance_between_two_points_of_a_square():
+    """Issue 12 (fourth failure): the mean distance of two random points of a square (4-D) at 1e-4."""
+    # Bailey, Borwein & Crandall, "Box integrals" (2007): Delta_2(1) = (2 + sqrt 2 + 5 ln(1 + sqrt 2)) / 15
+    exact = (2 + math.sqrt(2) + 5 * math.log(1 + math.sqrt(2))) / 15
+    res = cubage.integrate(lambda X: np.hypot(X[:, 0] - X[:, 2], X[:, 1] - X[:, 3]), cubage.Box([0] * 4, [1] * 4),
+                           rel_tol=1e-4, budget=200_000)
+    assert abs(res.value - exact) <= res.error
+    _honest(res, exact, 1e-4)
+
+
+def test_inverse_square_root_on_every_face_of_a_simplex():
+    """Issue 12 (fifth failure): (x y z (1-x-y-z))^(-1/2) over the simplex reported 4-5x below the true error."""
+    # Dirichlet's formula: Gamma(1/2)^4 / Gamma(2) = pi^2
+    exact = math.pi ** 2
+    f = lambda X: 1.0 / np.sqrt(X.prod(axis=1) * np.maximum(1.0 - X.sum(axis=1), 0.0))
+    res = cubage.integrate(f, cubage.Simplex(np.vstack([np.zeros(3), np.eye(3)])), rel_tol=1e-4, budget=200_000)
+    assert not res.converged
+    assert abs(res.value - exact) <= res.error
+    assert res.trust["flagged_error_share"] > 0.5 and res.trust["worst"]
+    assert "not smooth" in res.message
+
+
+def test_audit_finds_a_step_no_node_sees(monkeypatch):
+    """Issue 12 item 4: 1 + 50 [x1 > 0.98] on [0,1]^3 looks constant to every node of the first region.
+
+    The first region's true error is known: 50 * 0.02 = 1 (the rule says 0).  With the vertex probes switched
+    off, only the audit can find it: its split (along the widest axis the rule did not choose) gives children
+    whose nodes reach the step.  The run may then not claim the constant's value.
+    """
+    from cubage.engine import estimate
+    monkeypatch.setattr(estimate, "PROBE_TOLERANCE", np.inf)
+    exact = 1.0 + 50 * 0.02   # the step's volume times its height, plus the constant
+    f = lambda X: 1.0 + 50.0 * (X[:, 1] > 0.98)
+    run = cubage.Run(f, cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6, budget=300_000)
+    run.step()
+    assert run.result().value == pytest.approx(1.0) and run.result().error < 1e-12   # blind to the step
+    res = run.run()
+    assert res.trust["audits"] >= 1 and not res.trust["smooth"]
+    _honest(res, exact, 1e-6)
+    assert res.value == pytest.approx(exact, rel=1e-3) or not res.converged
+    # the same run without the audit claims the constant's value: silently wrong by 1.0
+    blind = cubage.integrate(f, cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6, audit=False)
+    assert blind.converged and blind.value == pytest.approx(1.0) and blind.trust["audit"] == "not run"
+
+
+def test_vertex_probe_sees_a_step_near_a_face():
+    """Issue 12 item 3: the same step along x0 is seen by the first region's vertex probes (s = 0.99)."""
+    f = lambda X: 1.0 + 50.0 * (X[:, 0] > 0.98)
+    run = cubage.Run(f, cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6, budget=300_000)
+    run.step()
+    first = run.result()
+    assert first.value == pytest.approx(1.0)        # no node sees the step...
+    assert first.error >= 1.0                       # ...but the estimate covers its true error 50 * 0.02 = 1
+    assert "values near a vertex disagree" in " ".join(first.trust["worst"][0]["signatures"])
+    _honest(run.run(), 2.0, 1e-6)
+
+
+def test_trust_report_is_json_ready_and_smooth_runs_pass():
+    """Issue 12 item 5: every result carries a JSON-ready trust report; a smooth run passes its audit."""
+    import json
+    res = cubage.integrate(lambda X: np.exp(-(X ** 2).sum(axis=1)), cubage.Box([0] * 3, [1] * 3), rel_tol=1e-8)
+    assert res.converged and res.trust["audit"] == "passed" and res.trust["audit_evaluations"] > 0
+    back = json.loads(json.dumps(res.to_json()))
+    assert back["trust"]["audit"] == "passed"
+    # closed form (sqrt(pi)/2 erf(1))^3 (Abramowitz & Stegun 7.1.1)
+    assert abs(res.value - (math.sqrt(math.pi) / 2 * math.erf(1.0)) ** 3) <= res.error

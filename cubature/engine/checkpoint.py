@@ -94,7 +94,7 @@ def save_run(run, path) -> None:
         "settings": dict(run.settings.__dict__), "components": run.m,
         "step": run.step_count, "evaluations": run.evaluations, "elapsed": run.elapsed(),
         "queue_thr": run.queue.thr, "status": run.status if run.done else "running",
-        "message": run.message, "digest": _digest(arrays),
+        "message": run.message, "checks": run.checks, "audit_ok": run._audit_ok, "digest": _digest(arrays),
     }
     meta_arr = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
     write_atomic(Path(path), lambda fh: np.savez(fh, meta=meta_arr, **arrays))
@@ -146,13 +146,13 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
         what = "domain" if mine != theirs else "integrand or method"
         raise CheckpointError(f"{path}: checkpoint belongs to another problem (its {what} differs)")
     run.m = int(meta["components"])
-    cols = dict(run.geometry.columns)
-    cols.update({"value": ((run.m,), np.float64), "error": ((run.m,), np.float64),
-                 "key": ((), np.float64), "depth": ((), np.int16)})
-    if run.settings.queue == "local":
-        cols["tol"] = ((), np.float64)
+    cols = run.region_columns()
+    regions = {k[2:]: v for k, v in arrays.items() if k.startswith("r_")}
+    if "raw" not in regions and "error" in regions:   # written before the split check existed
+        regions.update(raw=regions["error"], low=regions.get("value"),
+                       flags=np.zeros(len(regions["error"]), np.uint8))
     try:
-        run.store = RegionStore.from_arrays(cols, {k[2:]: v for k, v in arrays.items() if k.startswith("r_")})
+        run.store = RegionStore.from_arrays(cols, regions)
     except (KeyError, ValueError) as exc:
         raise CheckpointError(f"{path}: checkpoint region data does not fit this problem ({exc})") from None
     run.queue.idx = arrays["q_idx"].astype(np.int64)
@@ -167,6 +167,8 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     run.evaluations = int(meta["evaluations"])
     run.elapsed_before = float(meta["elapsed"])
     run.message = meta.get("message", "")
+    run.checks.update(meta.get("checks", {}))
+    run._audit_ok = bool(meta.get("audit_ok", False))
     status = meta.get("status", "running")
     run.status = "running" if status in ("stopped", "time-limit", "budget-spent", "paused", "region-limit") else status
     return run

@@ -77,6 +77,24 @@ SAFETY = 4.0
 FLOOR = 1.0
 #: floor relative to |q7| that accounts for rounding in the sums
 ROUNDING = 64 * np.finfo(float).eps
+#: a split "disagrees" when |parent - sum of children| exceeds this many times the parent's rule estimate
+DISAGREE = 1.0
+#: largest factor by which a measured disagreement scales the children's rule estimates (lineage calibration)
+CALIBRATION_LIMIT = 1e3
+#: corner probes sit at this fraction of the way from a box's centre to each vertex (inside, never on the boundary)
+PROBE_POSITION = 0.99
+#: a probe deviates when |f - quadratic extrapolation| > PROBE_TOLERANCE * (|quadratic| + PROBE_SLOPE * |linear|)
+PROBE_TOLERANCE = 1.0
+PROBE_SLOPE = 0.05
+#: splits of the wary class needed before its factor is learnt
+WARY_MIN_SPLITS = 16
+#: the convergence trend is "slow" when the value's change per doubling of evaluations shrinks by less than this
+TREND_SLOW = 0.5
+#: largest ratio of successive changes used to extrapolate the remaining error (a ratio of 0.95 gives 19x)
+TREND_CAP = 0.95
+#: a region "looks resolved" (and its vertices are probed when its parent showed a non-smooth signature, or
+#: when an audit made it) when its rule estimate is below this fraction of the rule applied to |f|
+PROBE_GATE = 1e-3
 
 
 def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: np.ndarray,
@@ -108,3 +126,206 @@ def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: n
     else:
         raise ValueError(f"error estimate must be 'sharp' or 'plain', got {method!r}")
     return np.maximum(err, ROUNDING * absq)
+
+
+def non_asymptotic(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: np.ndarray) -> np.ndarray:
+    """Regions whose rule differences do not shrink with degree (per region, any component).
+
+    The signature is ``|q7 - q5| > RATIO_LIMIT * |q5 - q3|`` with ``|q7 - q5|``
+    above rounding: the sharp estimate then already falls back to the plain
+    ``|q7 - q5|`` (it never scales such a region's estimate down); the flag
+    is recorded for the trust report.  Without a third member no region is
+    flagged here.
+
+    Returns
+    -------
+    ndarray of bool, shape (k,)
+    """
+    if q3 is None:
+        return np.zeros(q7.shape[0], dtype=bool)
+    n1 = np.abs(q7 - q5)
+    n2 = np.abs(q5 - q3)
+    return ((n1 > RATIO_LIMIT * n2) & (n1 > 16 * ROUNDING * absq)).any(axis=1)
+
+
+def split_check(parent_value: np.ndarray, parent_low: np.ndarray, parent_raw: np.ndarray, child_sum: np.ndarray,
+                noise: np.ndarray, child_raw: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Compare each split parent's value with the sum of its children's values.
+
+    ``D = |Q(parent) - sum Q(children)|`` is a direct measurement: the
+    children are more accurate than their parent, so ``D`` is (up to the
+    children's own error) the parent's actual error — the one measurement of
+    a region's error that adaptive subdivision gets for free.
+
+    Parameters
+    ----------
+    parent_value, parent_low : ndarray, shape (k, m)
+        The parents' values by the rule and by its embedded lower-degree rule.
+    parent_raw : ndarray, shape (k, m)
+        The parents' rule estimates (:func:`region_errors`, before corrections).
+    child_sum : ndarray, shape (k, m)
+        Sum of the children's values per parent.
+    noise : ndarray, shape (k, m)
+        Rounding allowance (a multiple of the rule applied to ``|f|``).
+    child_raw : ndarray, shape (k, m), optional
+        Sum of the children's rule estimates: ``D`` can be as large as the
+        parent's error plus the children's, so only the excess over both is
+        a disagreement.
+
+    Returns
+    -------
+    D : ndarray, shape (k, m)
+        The measured discrepancy.
+    disagree : ndarray of bool, shape (k, m)
+        ``D > DISAGREE * (parent_raw + child_raw) + noise``: the parent's
+        estimate was too small.
+    lower_closer : ndarray of bool, shape (k, m)
+        The lower-degree rule was closer to the children's sum than the rule
+        proper (by more than rounding): the rule hierarchy is not in its
+        asymptotic regime there.
+    """
+    D = np.abs(parent_value - child_sum)
+    allowed = parent_raw if child_raw is None else parent_raw + child_raw
+    disagree = D > DISAGREE * allowed + noise
+    lower_closer = (np.abs(parent_low - child_sum) < D) & (D > noise)
+    return D, disagree, lower_closer
+
+
+def corrected_errors(raw: np.ndarray, parent_raw: np.ndarray, D: np.ndarray, disagree: np.ndarray,
+                     lower_closer: np.ndarray) -> np.ndarray:
+    """Children's error estimates after their parent's split was measured.
+
+    Where the parent's split disagreed (``disagree``), the rule's estimates
+    in that lineage proved too small; each child's estimate becomes the larger
+    of
+
+    * its rule estimate scaled by the measured factor ``D / parent_raw``
+      (at most :data:`CALIBRATION_LIMIT`), a calibration learnt on this
+      lineage: near a singularity the rule underestimates by a similar factor
+      at every depth;
+    * the measured discrepancy ``D`` itself: the jump, kink or singularity
+      that made the parent wrong lies in one of the children, and the rules
+      may not see it there either.
+
+    Where the lower-degree rule was closer (``lower_closer``), each child's
+    estimate is at least ``D``.  Such children stay in play until a split of
+    theirs agrees with its estimate.
+
+    Parameters
+    ----------
+    raw : ndarray, shape (c, k, m)
+        Rule estimates of the ``c`` children of each of ``k`` parents.
+    parent_raw, D, disagree, lower_closer : ndarray, shape (k, m)
+        As from :func:`split_check`.
+
+    Returns
+    -------
+    ndarray, shape (c, k, m)
+    """
+    with np.errstate(divide="ignore", invalid="ignore"):
+        factor = np.where(disagree, np.minimum(D / np.where(parent_raw > 0, parent_raw, np.inf),
+                                               CALIBRATION_LIMIT), 1.0)
+    factor = np.where(np.isfinite(factor) & (factor > 1.0), factor, np.where(disagree, CALIBRATION_LIMIT, 1.0))
+    floor = np.where(disagree | lower_closer, D, 0.0)
+    return np.maximum(raw * factor[None], floor[None])
+
+
+def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray, a: float,
+                 volume: np.ndarray, scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Error floors of boxes from values near their vertices, where the rule has no nodes.
+
+    Along the diagonal from a box's centre towards vertex ``v`` (``t`` in
+    units of the half-diagonal), the rule has nodes at ``t = 0`` and ``±a``
+    (Genz–Malik's ``λ5`` corner nodes), and the probes sit at ``t = ±T``
+    (``T = PROBE_POSITION``, towards ``v`` and towards the opposite vertex).
+    The cubic through ``-T, -a, 0, a`` predicts the value at ``+T``.  A
+    smooth integrand agrees with the prediction up to a fourth-order
+    remainder, small against the cubic's own quadratic and cubic terms; a
+    kink or jump between the corner node and the vertex does not.  The
+    excess of the deviation over :data:`PROBE_TOLERANCE` times (quadratic +
+    cubic terms + :data:`PROBE_SLOPE` times the linear term), averaged over
+    the vertices and times the volume, becomes a floor for the box's error
+    estimate: a feature crossing a region where no node lies shows up in the
+    estimate.
+
+    Parameters
+    ----------
+    f0 : ndarray, shape (k, m)
+        Centre values.
+    f_plus, f_minus : ndarray, shape (k, v, m)
+        Values at ``+a`` and ``-a`` along the diagonal of each of the ``v``
+        vertices (``f_minus`` is ``f_plus`` in reversed vertex order).
+    f_probe : ndarray, shape (k, v, m)
+        Values at the probes (NaN where the integrand gave no finite value);
+        the probe opposite vertex ``j`` is ``f_probe[:, v - 1 - j]``.
+    a : float
+        Position of the corner nodes on the diagonal.
+    volume : ndarray, shape (k,)
+    scale : ndarray, shape (k, m)
+        Magnitude of the region's values (rounding allowance).
+
+    Returns
+    -------
+    floor : ndarray, shape (k, m)
+    deviates : ndarray of bool, shape (k,)
+        Boxes where some probe deviated (or was not finite).
+    """
+    t = PROBE_POSITION
+    xs = np.array([-t, -a, 0.0, a])
+    coef = np.linalg.inv(np.vander(xs, 4, increasing=True))     # values at xs -> monomial coefficients
+    pts = np.stack([f_probe[:, ::-1, :], f_minus, np.broadcast_to(f0[:, None, :], f_plus.shape), f_plus])
+    c = np.einsum("ij,j...->i...", coef, pts)                     # (4, k, v, m)
+    pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
+    with np.errstate(invalid="ignore"):
+        dev = np.abs(f_probe - pred)
+    allow = (PROBE_TOLERANCE * (np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3 + PROBE_SLOPE * np.abs(c[1]) * t)
+             + 1e3 * ROUNDING * scale[:, None, :])
+    bad = ~np.isfinite(dev)
+    excess = np.where(bad, 0.0, np.maximum(dev - allow, 0.0))
+    floor = volume[:, None] * excess.mean(axis=1)
+    deviates = (bad | (excess > 0)).any(axis=(1, 2))
+    return floor, deviates
+
+
+def trend_floor(evals: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """The remaining error extrapolated from how the run's value has converged.
+
+    With ``V(N)`` the total value after ``N`` evaluations, the changes over
+    the last three doublings ``Δ0 = |V(N/4) - V(N/8)|``, ``Δ1 = |V(N/2) -
+    V(N/4)|`` and ``Δ2 = |V(N) - V(N/2)|`` measure the convergence directly.
+    Where both ratios ``Δ1/Δ0`` and ``Δ2/Δ1`` exceed :data:`TREND_SLOW` (the
+    value converges slowly, as next to singularities and kinks where
+    splitting a region barely reduces its error, so each split's
+    parent/children discrepancy understates the error), the remaining error
+    of a geometric tail ``Δ2 ρ / (1 - ρ)`` with ``ρ = min(Δ2/Δ1, TREND_CAP)``
+    is a floor for the total error estimate.  Fast (smooth) convergence
+    gives no floor.
+
+    Parameters
+    ----------
+    evals : ndarray, shape (h,)
+        Evaluations at each history point (increasing).
+    values : ndarray, shape (h, m)
+        Total value at each history point.
+
+    Returns
+    -------
+    ndarray, shape (m,)
+        The floor (zeros where the trend is fast or too short to judge).
+    """
+    m = values.shape[1]
+    out = np.zeros(m)
+    if evals.size < 4:
+        return out
+    n = float(evals[-1])
+    pos = [int(np.searchsorted(evals, n / f, side="right")) - 1 for f in (8.0, 4.0, 2.0)]
+    if pos[0] < 0 or len({*pos, evals.size - 1}) < 4:
+        return out
+    v = values[pos + [evals.size - 1]]
+    d = np.abs(np.diff(v, axis=0))                    # Δ0, Δ1, Δ2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r1 = np.where(d[0] > 0, d[1] / d[0], 0.0)
+        r2 = np.where(d[1] > 0, d[2] / d[1], 0.0)
+    slow = (r1 > TREND_SLOW) & (r2 > TREND_SLOW)
+    rho = np.minimum(r2, TREND_CAP)
+    return np.where(slow, d[2] * rho / (1.0 - rho), 0.0)

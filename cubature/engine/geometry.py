@@ -67,6 +67,18 @@ class BoxGeometry:
     def volume(self, g: dict) -> np.ndarray:
         return np.prod(2.0 * g["halfw"], axis=1)
 
+    def probe_points(self, g: dict, position: float) -> np.ndarray | None:
+        """Points near the vertices of the boxes ``g``: ``c + position * h * s`` for every sign
+        vector ``s`` in ``itertools.product((1, -1), repeat=d)`` order (the order of the
+        Genz–Malik corner nodes); shape (k * 2^d, d).  None when the rule has no corner nodes
+        to compare them with."""
+        if "groups" not in self.rule.extra:
+            return None
+        signs = self.rule.nodes[slice(*self.rule.extra["groups"]["corner5"])]
+        signs = np.sign(signs)
+        pts = g["centre"][:, None, :] + position * g["halfw"][:, None, :] * signs[None]
+        return pts.reshape(-1, self.dim)
+
     def splittable(self, g: dict) -> np.ndarray:
         """Regions whose split would still produce distinct floating-point children."""
         c, h = g["centre"], g["halfw"]
@@ -145,6 +157,10 @@ class SimplexGeometry:
 
     def volume(self, g: dict) -> np.ndarray:
         return g["vol"]
+
+    def probe_points(self, g: dict, position: float) -> None:
+        """No vertex probes on simplices (their rules have no corner nodes to compare with)."""
+        return None
 
     def splittable(self, g: dict) -> np.ndarray:
         v = g["verts"]

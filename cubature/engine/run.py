@@ -50,6 +50,29 @@ STATUSES = {
 }
 
 
+#: Region flags (a uint8 column): the signatures the trust report counts and locates.
+FLAG_NON_ASYMPTOTIC = 1   # the rule differences do not shrink with degree
+FLAG_DISAGREED = 2        # made by a split whose children disagreed with the parent beyond its estimate
+FLAG_LOWER_CLOSER = 4     # made by a split where the parent's lower-degree rule was closer than the rule
+FLAG_AUDITED = 8          # made by an audit split
+FLAG_PROBE = 16           # values near a vertex disagreed with the rule's nodes (a feature where no node lies)
+FLAG_WARY = 32            # child of a region with a non-smooth signature (its estimate gets the learnt factor)
+_SIGNATURES = ((FLAG_DISAGREED, "parent and children disagreed beyond the estimate"),
+               (FLAG_PROBE, "values near a vertex disagree with the nodes (jump or kink between them)"),
+               (FLAG_LOWER_CLOSER, "lower-degree rule closer than the rule"),
+               (FLAG_NON_ASYMPTOTIC, "rule differences not shrinking with degree"))
+
+_NON_SMOOTH = FLAG_DISAGREED | FLAG_LOWER_CLOSER | FLAG_NON_ASYMPTOTIC | FLAG_PROBE
+
+#: Audit before claiming convergence: split the regions holding this share of sum |value| ...
+AUDIT_VALUE_SHARE = 0.5
+#: ... but at most this fraction of the evaluations so far (and at least AUDIT_MIN regions).
+AUDIT_COST = 0.05
+AUDIT_MIN = 2
+#: hidden error (extrapolated from the audit's sample) below this fraction of the goal passes the audit
+AUDIT_SMALL = 0.25
+
+
 class IntegrandError(RuntimeError):
     """The integrand raised, returned the wrong shape, or returned NaN/inf."""
 
@@ -93,6 +116,9 @@ class Settings:
         ``breaks``: one list of values per axis (or ``{axis: [values]}``);
         ``cuts``: planes ``[normal, offset]``; ``singular``: tables
         ``{"point": [...], "power": a}`` or ``{"normal": [...], "offset": b, "power": a}``.
+    audit : bool
+        Audit the partition before claiming convergence (see
+        :meth:`Run._audit`); False only for studies of the estimate itself.
     """
 
     rel_tol: float = 1e-6
@@ -110,6 +136,7 @@ class Settings:
     breaks: list | dict | None = None
     cuts: list | None = None
     singular: list | None = None
+    audit: bool = True
 
     def validate(self) -> None:
         if not (self.rel_tol >= 0 and self.abs_tol >= 0) or math.isnan(self.rel_tol) or math.isnan(self.abs_tol):
@@ -131,6 +158,8 @@ class Settings:
                "batch": self.batch, "estimate": self.estimate, "batch_points": self.batch_points}
         key.update({k: v for k, v in (("breaks", self.breaks), ("cuts", self.cuts), ("singular", self.singular))
                     if v is not None})
+        if not self.audit:   # only when switched off, so fingerprints of default runs are unchanged
+            key["audit"] = False
         return key
 
 
@@ -191,6 +220,12 @@ class Result:
     ``value``/``error`` are floats for a scalar integrand and arrays of shape
     (m,) for an m-component one; ``values``/``errors`` are always arrays.
     The error is a heuristic estimate, not a guaranteed bound.
+
+    ``trust`` says how far to trust it (a JSON-ready dict, see
+    :meth:`Run.trust`): whether the partition passed its audit, how often a
+    split's children disagreed with their parent beyond its estimate, how
+    much of the error sits in regions with a non-smooth or non-asymptotic
+    signature, and the bounds of the worst such regions.
     """
 
     value: float | np.ndarray
@@ -204,6 +239,7 @@ class Result:
     message: str = ""
     values: np.ndarray = field(default_factory=lambda: np.zeros(0))
     errors: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    trust: dict = field(default_factory=dict)
 
     @property
     def converged(self) -> bool:
@@ -217,7 +253,7 @@ class Result:
             return float(v)
         return {"value": num(self.value), "error": num(self.error), "evaluations": int(self.evaluations),
                 "regions": int(self.regions), "status": self.status, "seconds": round(float(self.seconds), 6),
-                "steps": int(self.steps), "rule": self.rule, "message": self.message}
+                "steps": int(self.steps), "rule": self.rule, "message": self.message, "trust": self.trust}
 
 
 class _Queue:
@@ -373,6 +409,12 @@ class Run:
         self._depth_err = np.zeros(64)
         self._t_start = None
         self._last_snap = -math.inf
+        # the honesty checks (counters for the trust report; part of a checkpoint)
+        self._hidden = np.zeros(1)
+        self.checks = {"splits": 0, "disagreed": 0, "lower_closer": 0, "audits": 0, "audit_regions": 0,
+                       "audit_evaluations": 0, "audit_disagreed": 0, "audit": "not run",
+                       "wary_splits": 0, "wary_measured": 0.0, "wary_estimated": 0.0}
+        self._audit_ok = False
 
     # -- fingerprint ---------------------------------------------------------
     def fingerprint(self) -> str:
@@ -429,6 +471,7 @@ class Run:
             if self.status in ("converged", "budget-spent", "time-limit", "stopped") and self.store is not None:
                 self.status = "running"
                 self._stop.clear()
+                self._audit_ok = False
 
     # -- the loop ------------------------------------------------------------
     def elapsed(self) -> float:
@@ -442,7 +485,7 @@ class Run:
             return np.array([np.inf])
         return np.maximum(s.abs_tol, s.rel_tol * np.abs(self.total_value))
 
-    def _evaluate(self, g: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _evaluate(self, g: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Rule values (k, r, m), |f|-rule (k, m), node values (k, p, m) of regions ``g``."""
         t = self.geometry.points(g)
         if hasattr(self.geometry, "to_user"):                    # per-piece maps (cubage.engine.partition)
@@ -502,9 +545,71 @@ class Run:
         absq *= vol[:, None]
         return q, np.abs(absq), fr
 
+    def _probe_values(self, g: dict, probe: np.ndarray) -> np.ndarray | None:
+        """Integrand values (kp, v, m) at the vertex probes of the regions ``probe`` (a boolean mask)
+        of ``g``, in a second call; a non-finite value there is a signature (NaN), not a failure.
+        None when the rule has no corner nodes or no region is selected."""
+        if not probe.any():
+            return None
+        t = self.geometry.probe_points({name: a[probe] for name, a in g.items()}, _estimate.PROBE_POSITION)
+        if t is None:
+            return None
+        x, jac = (self.geometry.map.to_user(t) if self.geometry.map is not None else (t, None))
+        try:
+            fx = self.evaluator(self.f, x) if self.evaluator is not None else self.f(x)
+            fx = np.asarray(fx, dtype=np.float64)
+        except IntegrandError:
+            raise
+        except Exception as exc:  # the user's code: report, never crash the engine
+            raise IntegrandError(f"integrand raised {type(exc).__name__}: {exc}") from exc
+        n = x.shape[0]
+        if fx.ndim == 0:
+            fx = np.full(n, float(fx))
+        fx = fx.reshape(n, -1)
+        if fx.shape[1] != (self.m or fx.shape[1]):
+            raise IntegrandError(f"integrand returned {fx.shape[1]} components, earlier {self.m}")
+        with np.errstate(invalid="ignore", over="ignore"):
+            if jac is not None:
+                fx = fx * jac[:, None]
+        fx = np.where(np.isfinite(fx), fx, np.nan)
+        return fx.reshape(int(probe.sum()), -1, fx.shape[1])
+
     def _errors(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
         return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
+
+    def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
+                     probe: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Error floors (k, m) and deviation flags (k,) from the vertex probes of the regions ``probe``."""
+        k, m = fr.shape[0], fr.shape[2]
+        floor = np.zeros((k, m))
+        deviates = np.zeros(k, dtype=bool)
+        if pv is None:
+            return floor, deviates
+        grp = self.rule.extra["groups"]["corner5"]
+        fp = fr[probe]
+        fc = fp[:, grp[0]:grp[1], :]
+        a = float(np.abs(self.rule.nodes[grp[0]]).max())
+        vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
+        fl, dv = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv, a, vol, np.abs(fp).max(axis=1))
+        floor[probe] = fl
+        deviates[probe] = dv
+        return floor, deviates
+
+    def _wary_factor(self) -> float:
+        """The learnt factor by which the rule estimates of the wary class fell short (>= 1)."""
+        c = self.checks
+        if c["wary_splits"] < _estimate.WARY_MIN_SPLITS or not c["wary_estimated"] > 0:
+            return 1.0
+        return float(min(max(1.0, c["wary_measured"] / c["wary_estimated"]), _estimate.CALIBRATION_LIMIT))
+
+    def _looks_resolved(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
+        """Regions whose rule estimate is tiny against their size (candidates for a vertex probe)."""
+        return (self._errors(q, absq) <= _estimate.PROBE_GATE * absq).all(axis=1)
+
+    def _non_asymptotic(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
+        q3 = q[:, 2, :] if q.shape[1] > 2 else None
+        return _estimate.non_asymptotic(q[:, 0, :], q[:, 1, :], q3, absq)
 
     def _keys(self, err: np.ndarray, tol: np.ndarray | None = None) -> np.ndarray:
         key = err[:, 0] if self.m == 1 else (err * self.key_weight).max(axis=1)
@@ -542,21 +647,36 @@ class Run:
         q, absq, fr = (np.concatenate([o[j] for o in outs]) for j in range(3))
         return g, q, absq, fr, np.asarray(part.get("depth", np.zeros(n)), np.int16)
 
+    def region_columns(self) -> dict:
+        """Columns of the region store: geometry, value, error, priority key, depth, the rule's
+        own estimate ``raw`` and lower-degree value ``low`` (for the split check) and ``flags``."""
+        m = self.m
+        cols = dict(self.geometry.columns)
+        cols.update({"value": ((m,), np.float64), "error": ((m,), np.float64),
+                     "key": ((), np.float64), "depth": ((), np.int16),
+                     "raw": ((m,), np.float64), "low": ((m,), np.float64), "flags": ((), np.uint8)})
+        if self.settings.queue == "local":
+            cols["tol"] = ((), np.float64)
+        return cols
+
     def _start(self) -> None:
         g, q, absq, fr, depth = self._evaluate_start()
+        probe = np.ones(len(q), dtype=bool) if len(q) == 1 else self._looks_resolved(q, absq)
         self.m = q.shape[2]
-        err = self._errors(q, absq)
+        pv = self._probe_values(g, probe)
+        raw = self._errors(q, absq)
+        floor, deviates = self._probe_floor(g, fr, pv, probe)
+        err = np.maximum(raw, floor)
         val = q[:, 0, :]
         scale = np.maximum(np.abs(val.sum(axis=0)), np.maximum(err.sum(axis=0), 1e-300))
         self.key_weight = (1.0 / scale) if self.m > 1 else np.ones(1)
         self.geometry.set_split_axes(g, self._axis_values(fr, err))
-        cols = dict(self.geometry.columns)
-        cols.update({"value": ((self.m,), np.float64), "error": ((self.m,), np.float64),
-                     "key": ((), np.float64), "depth": ((), np.int16)})
-        if self.settings.queue == "local":
-            cols["tol"] = ((), np.float64)
-        self.store = RegionStore(cols, capacity=1024)
-        self.evaluations = fr.shape[0] * fr.shape[1]
+        self.store = RegionStore(self.region_columns(), capacity=1024)
+        g["raw"] = raw
+        g["low"] = q[:, 1, :]
+        g["flags"] = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
+                      | np.where(deviates, FLAG_PROBE, 0)).astype(np.uint8)
+        self.evaluations = fr.shape[0] * fr.shape[1] + (pv.size // self.m if pv is not None else 0)
         self.total_value = val.sum(axis=0)
         self.total_error = err.sum(axis=0)
         tol = None
@@ -579,6 +699,11 @@ class Run:
         if len(self._hist) > 8192:  # thin deterministically: keep every other point and the newest
             self._hist = self._hist[:-1:2] + [self._hist[-1]]
 
+    def _per_split(self) -> int:
+        """Most evaluations one split can cost (children's nodes and vertex probes)."""
+        v = 2 ** self.domain.dim if "groups" in self.rule.extra else 0
+        return self.geometry.children_per_split * (self.rule.size + v)
+
     def _choose(self) -> int:
         """How many of the queue's top regions to split this step.
 
@@ -595,7 +720,7 @@ class Run:
         """
         s = self.settings
         per = self.geometry.children_per_split * self.rule.size
-        budget = (s.budget - self.evaluations) // per
+        budget = (s.budget - self.evaluations) // self._per_split()
         kmax = max(1, s.batch_points // per)
         if s.batch != "auto":
             kmax = int(s.batch)
@@ -627,21 +752,32 @@ class Run:
         if s.queue == "local":
             if self.queue.idx.size == 0:
                 self._exact_totals()
-                return "converged"
+                return "converged" if (self._audit_ok or not s.audit) else "audit"
         elif np.all(self.total_error <= self.goal()):
             self._exact_totals()
             if np.all(self.total_error <= self.goal()):
-                return "converged"
+                if np.any(self._trend() > self.goal()):
+                    self.checks["trend_held_back"] = int(self.checks.get("trend_held_back", 0)) + 1
+                else:
+                    return "converged" if (self._audit_ok or not s.audit) else "audit"
         if self.queue.idx.size == 0:
             return "stalled"
-        per = self.geometry.children_per_split * self.rule.size
-        if self.evaluations + per > s.budget:
+        if self.evaluations + self._per_split() > s.budget:
             return "budget-spent"
         if s.time_limit is not None and self.elapsed() >= s.time_limit:
             return "time-limit"
         if s.max_regions is not None and self.store.n + self.geometry.children_per_split - 1 > s.max_regions:
             return "region-limit"
         return None
+
+    def _trend(self) -> np.ndarray:
+        """Floor (m,) on the total error from the convergence history (see
+        :func:`cubage.engine.estimate.trend_floor`); a pure function of the history."""
+        if len(self._hist) < 4:
+            return np.zeros(self.m or 1)
+        h = np.array(self._hist)
+        m = self.m or 1
+        return _estimate.trend_floor(h[:, 0], h[:, 2:2 + m])
 
     def _exact_totals(self) -> None:
         self.total_value = self.store["value"].sum(axis=0)
@@ -660,6 +796,12 @@ class Run:
                     self.step_count = 1
                     return True
                 why = self._check_stop()
+                if why == "audit":   # the goal is met by the estimate: this step audits the partition
+                    why = self._audit()
+                    if why is None:
+                        self.step_count += 1
+                        self._record()
+                        return True
                 if why is not None:
                     return self._finish(why)
                 self._advance()
@@ -672,6 +814,8 @@ class Run:
     def _finish(self, status: str) -> bool:
         if self.store is not None:  # a failure in the very first evaluation leaves no regions
             self._exact_totals()
+            if status in ("budget-spent", "time-limit", "region-limit", "stalled") and not self.message:
+                self.message = self._why_short()
         self.status = status
         self.elapsed_before = self.elapsed()
         self._t_start = None
@@ -691,10 +835,71 @@ class Run:
             return
         kids = self.geometry.split(parents)
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
-        self.queue.pop(k)
-        val = q[:, 0, :]
+        # children that look resolved although their parent showed a non-smooth signature: probe their vertices
         nch = self.geometry.children_per_split
-        err = self._errors(q, absq)
+        suspect = np.tile((parents["flags"] & _NON_SMOOTH) != 0, nch)
+        if suspect.any():
+            suspect &= self._looks_resolved(q, absq)
+        pv = self._probe_values(kids, suspect)    # may raise: nothing changed yet
+        self.queue.pop(k)
+        key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0)
+        if disagreed and np.any(self._hidden > 0.1 * self.goal()):
+            self._audit_ok = False                   # a large new discrepancy: the next convergence needs an audit
+        self.queue.push(np.concatenate([idx, new]), key)
+        self.step_count += 1
+        if self.step_count % 256 == 0:
+            self._exact_totals()
+        self._record()
+
+    def _replace(self, idx: np.ndarray, parents: dict, kids: dict, q: np.ndarray, absq: np.ndarray,
+                 fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
+                 extra_flag: int) -> tuple[np.ndarray, np.ndarray, int]:
+        """Write the children of the split parents ``idx`` into the store (the parent's row is reused,
+        the other children appended) after the split check; returns (children's keys, appended rows,
+        number of surprises: parents whose children disagreed with them beyond their estimate, plus
+        children whose vertex probes raised their estimate)."""
+        st = self.store
+        k = len(idx)
+        nch = self.geometry.children_per_split
+        m = q.shape[2]
+        val, low = q[:, 0, :], q[:, 1, :]
+        raw = self._errors(q, absq)
+        # measure, not assume: each parent's value against the sum of its children's
+        child_sum = val.reshape(nch, k, m).sum(axis=0)
+        noise = _estimate.ROUNDING * absq.reshape(nch, k, m).sum(axis=0)
+        child_raw = raw.reshape(nch, k, m).sum(axis=0)
+        D, disagree, lower = _estimate.split_check(parents["value"], parents["low"], parents["raw"], child_sum,
+                                                   noise)
+        err = _estimate.corrected_errors(raw.reshape(nch, k, m), parents["raw"], D, disagree,
+                                         lower).reshape(nch * k, m)
+        # children of a region with a non-smooth signature form the "wary" class; how far their rule
+        # estimates fall short is measured whenever one of them is split, and learnt as a factor (issue 12
+        # item 1: a calibration per lineage class; smooth runs keep a factor of 1)
+        pw = (parents["flags"] & FLAG_WARY) != 0
+        if pw.any():
+            kw = self.key_weight[None, :]
+            self.checks["wary_measured"] += float((D[pw] * kw).max(axis=1).sum())
+            self.checks["wary_estimated"] += float((parents["raw"][pw] * kw).max(axis=1).sum())
+            self.checks["wary_splits"] += int(pw.sum())
+        wary = np.tile((parents["flags"] & _NON_SMOOTH) != 0, nch)
+        factor = self._wary_factor()
+        if factor > 1.0 and wary.any():
+            err = np.where(wary[:, None], np.maximum(err, raw * factor), err)
+        floor, deviates = self._probe_floor(kids, fr, pv, probe)
+        raised = (floor > err).any(axis=1)
+        # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
+        # what the vertex probes added on top of the children's corrected estimates
+        self._hidden = (np.maximum(D.sum(axis=0) - parents["error"].sum(axis=0) - child_raw.sum(axis=0), 0.0)
+                        + np.maximum(floor - err, 0.0).sum(axis=0))
+        err = np.maximum(err, floor)
+        pd, pl = disagree.any(axis=1), lower.any(axis=1)
+        flags = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
+                 | np.where(deviates, FLAG_PROBE, 0) | np.where(wary, FLAG_WARY, 0)
+                 | np.tile(np.where(pd, FLAG_DISAGREED, 0) | np.where(pl, FLAG_LOWER_CLOSER, 0), nch)
+                 | extra_flag).astype(np.uint8)
+        self.checks["splits"] += k
+        self.checks["disagreed"] += int(pd.sum())
+        self.checks["lower_closer"] += int(pl.sum())
         self.geometry.set_split_axes(kids, self._axis_values(fr, err))
         tol = None
         if self.settings.queue == "local":
@@ -707,17 +912,84 @@ class Run:
         self.total_error = self.total_error - parents["error"].sum(axis=0) + err.sum(axis=0)
         self._depth_add(parents["depth"], -parents["key"])
         self._depth_add(depth, key)
-        cols = dict(kids, value=val, error=err, key=key, depth=depth)
+        cols = dict(kids, value=val, error=err, key=key, depth=depth, raw=raw, low=low, flags=flags)
         first = {name: a[:k] for name, a in cols.items()}
         rest = {name: a[k:] for name, a in cols.items()}
         st.put(idx, **first)
         new = st.append(**rest) if nch > 1 else np.zeros(0, np.int64)
-        self.queue.push(np.concatenate([idx, new]), key)
-        self.evaluations += fr.shape[0] * fr.shape[1]
-        self.step_count += 1
-        if self.step_count % 256 == 0:
-            self._exact_totals()
-        self._record()
+        self.evaluations += fr.shape[0] * fr.shape[1] + (pv.shape[0] * pv.shape[1] if pv is not None else 0)
+        return key, new, int(pd.sum()) + int(raised.sum())
+
+    def _audit(self) -> str | None:
+        """Audit the partition before claiming convergence (issue 12 item 4).
+
+        Splits the regions holding most of the value (largest ``|value|``,
+        up to :data:`AUDIT_VALUE_SHARE` of the sum, at most :data:`AUDIT_COST`
+        times the evaluations so far and at least :data:`AUDIT_MIN` regions) —
+        not only those holding most of the estimated error.  Boxes are
+        bisected along their widest axis (ties: not the axis the rule would
+        choose), so the children's nodes form a second node set that also
+        reaches where the parent's rule had none.  The children replace their
+        parents like any split, with the same split check.  The audit passes
+        when every audited parent agrees with its children within its
+        estimate; otherwise the corrected estimates keep the run refining and
+        the next convergence is audited again.
+
+        Returns None after an audit step, or a final status when no audit is
+        possible (budget left for none: ``"budget-spent"``; nothing
+        splittable: ``"converged"`` with the audit recorded as impossible).
+        """
+        st, s = self.store, self.settings
+        per = self._per_split()
+        afford = (s.budget - self.evaluations) // per
+        if afford <= 0:
+            self.message = ("the error estimate met the goal, but no budget was left to audit the partition "
+                            "before claiming convergence; raise the budget to complete the check")
+            return "budget-spent"
+        w = np.abs(st["value"])
+        w = w[:, 0] if self.m == 1 else (w * self.key_weight).max(axis=1)
+        w_total = float(w.sum())
+        order = np.argsort(-w, kind="stable")
+        can = self.geometry.splittable({name: st[name][order] for name in self.geometry.columns})
+        order = order[can]
+        if order.size == 0:
+            self.checks["audit"] = "impossible (no region can be split further)"
+            self._audit_ok = True
+            return "converged"
+        cum = np.cumsum(w[order])
+        want = int(np.searchsorted(cum, AUDIT_VALUE_SHARE * cum[-1], side="left")) + 1 if cum[-1] > 0 else 1
+        cap = max(AUDIT_MIN, int(AUDIT_COST * self.evaluations) // per)
+        k = max(1, min(want, cap, int(afford), order.size))
+        idx = np.sort(order[:k])
+        parents = {name: st[name][idx] for name in st.columns}
+        if self.geometry.kind == "box" and self.geometry.split_policy == "bisect":
+            h = parents["halfw"]
+            rule_axis = parents["axis"].astype(np.intp)
+            pref = h * (1.0 + 1e-9 * (np.arange(h.shape[1])[None, :] != rule_axis[:, None]))
+            parents["axis"] = np.argmax(pref, axis=1).astype(np.int8)
+        kids = self.geometry.split(parents)
+        before = self.evaluations
+        q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
+        probe = self._looks_resolved(q, absq)
+        pv = self._probe_values(kids, probe)
+        w_sample = float(w[idx].sum())
+        _, _, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED)
+        self.queue.rebuild(st["key"], 1)
+        self._exact_totals()
+        # the sample's hidden error, extrapolated to the whole partition by value share, must fit in the goal
+        scale = w_total / w_sample if w_sample > 0 else float(st.n) / max(1, len(idx))
+        hidden = self._hidden * scale
+        c = self.checks
+        c["audits"] += 1
+        c["audit_regions"] += int(k)
+        c["audit_evaluations"] += int(self.evaluations - before)
+        c["audit_disagreed"] += disagreed
+        # passed: the extrapolated hidden error fits beside the corrected total, or is small against the goal
+        # (then the corrected estimates steer the rest of the run and no new audit is needed)
+        goal = self.goal()
+        self._audit_ok = bool(np.all(hidden <= np.maximum(goal - self.total_error, AUDIT_SMALL * goal)))
+        c["audit"] = "passed" if self._audit_ok else "failed, refining"
+        return None
 
     def _depth_add(self, depth: np.ndarray, key: np.ndarray) -> None:
         key = np.where(np.isfinite(key), key, 0.0)
@@ -725,6 +997,85 @@ class Run:
         if top > self._depth_err.size:
             self._depth_err = np.concatenate([self._depth_err, np.zeros(max(top, 2 * self._depth_err.size))])
         self._depth_err += np.bincount(depth, weights=key, minlength=self._depth_err.size)
+
+    def _flagged(self) -> tuple[np.ndarray, np.ndarray]:
+        """Live regions with a non-smooth / non-asymptotic signature, and their error share."""
+        st = self.store
+        fl = st["flags"] & _NON_SMOOTH
+        err = st["error"]
+        e = err[:, 0] if self.m == 1 else (err * self.key_weight).max(axis=1)
+        return fl, e
+
+    def _why_short(self) -> str:
+        """Why a run that stopped short of its goal did, when non-smooth regions hold most of its error."""
+        fl, e = self._flagged()
+        total = float(e.sum())
+        bad = fl != 0
+        share = float(e[bad].sum()) / total if total > 0 else 0.0
+        if share < 0.5:
+            return ""
+        i = int(np.argmax(np.where(bad, e, -1.0)))
+        lo, hi = self.geometry.user_bounds({name: self.store[name][i:i + 1] for name in self.geometry.columns})
+        where = " x ".join(f"[{a:.6g}, {b:.6g}]" for a, b in zip(lo[0], hi[0]))
+        return (f"{100 * share:.0f} % of the error estimate sits in {int(bad.sum())} regions where the integrand "
+                f"is not smooth at their scale (a jump, kink or singularity; the worst at {where}); bisection "
+                "reduces such an error slowly, so this goal may be out of reach: put region boundaries on the "
+                "feature, transform it away, or loosen the goal")
+
+    def trust(self, worst: int = 3) -> dict:
+        """How far to trust the current result (JSON-ready; issue 12 item 5).
+
+        Keys
+        ----
+        audit : str
+            ``"passed"``, ``"failed, refining"``, ``"not run"`` or why impossible.
+        audits, audit_regions, audit_evaluations : int
+            Audits done, regions they split, evaluations they cost.
+        splits : int
+            Splits done (each one compares the parent with its children).
+        disagreed : int
+            Splits whose children disagreed with the parent beyond its estimate
+            (the estimates of that lineage were then corrected).
+        lower_closer : int
+            Splits where the parent's lower-degree rule was closer to its
+            children than the rule itself (non-asymptotic regime).
+        flagged_regions : int
+            Live regions carrying such a signature (or rule differences that
+            do not shrink with degree).
+        flagged_error_share : float
+            Their share of the total error estimate.
+        smooth : bool
+            True when no split disagreed and no live region is flagged.
+        worst : list of dict
+            Up to ``worst`` flagged regions with the largest error:
+            ``lower``, ``upper`` (user coordinates), ``error``, ``signatures``.
+        note : str
+            Error estimates are heuristics, not bounds.
+        """
+        c = {k: v for k, v in self.checks.items()}
+        out = {"audit": c["audit"], "audits": int(c["audits"]), "audit_regions": int(c["audit_regions"]),
+               "audit_evaluations": int(c["audit_evaluations"]), "splits": int(c["splits"]),
+               "disagreed": int(c["disagreed"]), "lower_closer": int(c["lower_closer"]),
+               "flagged_regions": 0, "flagged_error_share": 0.0, "smooth": True, "worst": [],
+               "note": "error estimates are heuristic, not guaranteed bounds"}
+        if self.store is None:
+            return out
+        fl, e = self._flagged()
+        bad = np.nonzero(fl)[0]
+        total = float(e.sum())
+        out["flagged_regions"] = int(bad.size)
+        out["flagged_error_share"] = float(e[bad].sum() / total) if total > 0 and bad.size else 0.0
+        out["smooth"] = bool(bad.size == 0 and c["disagreed"] == 0 and c["lower_closer"] == 0)
+        if bad.size:
+            top = bad[np.argsort(-e[bad], kind="stable")[:worst]]
+            g = {name: self.store[name][top] for name in self.geometry.columns}
+            lo, hi = self.geometry.user_bounds(g)
+            for j, i in enumerate(top):
+                out["worst"].append({
+                    "lower": [float(v) for v in lo[j]], "upper": [float(v) for v in hi[j]],
+                    "error": float(self.store["error"][i].max()),
+                    "signatures": [text for bit, text in _SIGNATURES if fl[i] & bit]})
+        return out
 
     # -- observation -----------------------------------------------------------
     def snapshot(self, top: int = 10, map_points: int = 2000) -> Snapshot:
@@ -765,14 +1116,14 @@ class Run:
                 m = self.m or 1
                 v = np.full(m, np.nan)
                 return Result(float(v[0]) if m == 1 else v, float(v[0]) if m == 1 else v, 0, 0, self.status,
-                              self.elapsed(), 0, self.rule_name, self.message, v, v)
+                              self.elapsed(), 0, self.rule_name, self.message, v, v, self.trust())
             vals = self.store["value"].sum(axis=0)
-            errs = self.store["error"].sum(axis=0)
+            errs = np.maximum(self.store["error"].sum(axis=0), self._trend())
             status = self.status if self.done else ("paused" if self.paused else "running")
             scalar = self.m == 1
             return Result(float(vals[0]) if scalar else vals.copy(), float(errs[0]) if scalar else errs.copy(),
                           self.evaluations, self.store.n, status, self.elapsed(), self.step_count,
-                          self.rule_name, self.message, vals.copy(), errs.copy())
+                          self.rule_name, self.message, vals.copy(), errs.copy(), self.trust())
 
     def __iter__(self) -> Iterator[Snapshot]:
         """Step until done, yielding a snapshot at most every ``snapshot_interval``

@@ -1,0 +1,83 @@
+"""Unit tests of the honesty checks in cubage.engine.estimate on constructed cases (issue 12 items 1-3).
+
+Every expected value is computed by hand from the constructed numbers (named beside each check).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from cubage.engine import estimate as E
+
+
+def test_split_check_measures_the_parent_error():
+    """Issue 12 item 1: the parent said 0.01 but its children sum to 0.1 less: a disagreement of 0.1."""
+    parent = np.array([[1.0]])
+    D, disagree, lower = E.split_check(parent, np.array([[0.95]]), np.array([[0.01]]), np.array([[0.9]]),
+                                       np.array([[1e-15]]))
+    assert D[0, 0] == pytest.approx(0.1)          # |1.0 - 0.9| by hand
+    assert disagree[0, 0]
+    assert lower[0, 0]                            # |0.95 - 0.9| = 0.05 < 0.1: the lower rule was closer
+
+
+def test_split_check_agreement_within_the_estimate():
+    """Issue 12 item 1: a parent whose children agree within its estimate is not flagged."""
+    D, disagree, lower = E.split_check(np.array([[1.0]]), np.array([[1.3]]), np.array([[0.01]]),
+                                       np.array([[1.005]]), np.array([[1e-15]]))
+    assert D[0, 0] == pytest.approx(0.005) and not disagree[0, 0] and not lower[0, 0]
+
+
+def test_corrected_errors_replace_and_calibrate():
+    """Issue 12 item 1: children of a parent that was 10x too optimistic get >= D and 10x their own estimate."""
+    raw = np.array([[[1e-4]], [[3e-2]]])              # (children, parents, components)
+    D = np.array([[0.1]])
+    out = E.corrected_errors(raw, np.array([[0.01]]), D, np.array([[True]]), np.array([[False]]))
+    assert out[0, 0, 0] == pytest.approx(0.1)          # max(1e-4 * 10, 0.1)
+    assert out[1, 0, 0] == pytest.approx(0.3)          # max(3e-2 * 10, 0.1)
+    same = E.corrected_errors(raw, np.array([[1.0]]), np.array([[0.1]]), np.array([[False]]), np.array([[False]]))
+    assert np.array_equal(same, raw)                   # agreement: estimates untouched
+
+
+def _diagonal(fun, a=0.6882472016116852, t=E.PROBE_POSITION, v=2):
+    """Values of fun(s) along one diagonal: centre, +-a corner nodes, probes at +-t (v = 2 vertices, one axis)."""
+    f0 = np.array([[fun(0.0)]])
+    f_plus = np.array([[[fun(a)], [fun(-a)]]])
+    f_minus = f_plus[:, ::-1, :]
+    probe = np.array([[[fun(t)], [fun(-t)]]])
+    return f0, f_plus, f_minus, probe, a
+
+
+def test_probe_sees_a_kink_between_the_corner_node_and_the_vertex():
+    """Issue 12 item 3: |s - 0.85| is linear on every node (s <= 0.69) but not at the probe s = 0.99."""
+    f0, fp, fm, probe, a = _diagonal(lambda s: abs(s - 0.85))
+    floor, dev = E.probe_errors(f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
+    assert dev[0]
+    # linear prediction 0.85 - 0.99 = -0.14 against |0.99 - 0.85| = 0.14: deviation 0.28, allowance 0.05 * 0.99
+    # at the +t end; the -t end is predicted from a contaminated point and deviates too
+    assert floor[0, 0] > 2.0 * (0.28 - 0.05 * 0.99) / 2 * 0.9
+
+
+@pytest.mark.parametrize("fun", [np.exp, np.cos, lambda s: s ** 3 - s, lambda s: 1.0 / (2.0 + s)])
+def test_probe_quiet_on_smooth_functions(fun):
+    """Issue 12 item 3: a smooth function agrees with the cubic through the nodes (fourth-order remainder)."""
+    f0, fp, fm, probe, a = _diagonal(fun)
+    floor, dev = E.probe_errors(f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
+    assert not dev[0] and floor[0, 0] == 0.0
+
+
+def test_trend_floor_on_a_geometric_tail():
+    """Issue 12 item 1: a value converging geometrically (ratio 0.8 per doubling) has remaining error
+    0.8^j; the trend's extrapolation Delta2 * rho / (1 - rho) recovers it exactly (geometric series)."""
+    j = np.arange(12)
+    evals = 100.0 * 2.0 ** j
+    values = (1.0 + 0.8 ** j)[:, None]
+    floor = E.trend_floor(evals, values)
+    assert floor[0] == pytest.approx(0.8 ** 11, rel=1e-9)
+
+
+def test_trend_floor_silent_on_fast_convergence():
+    """Issue 12 item 6: an eighth-order convergence (ratio 2^-8 per doubling) sets no floor."""
+    j = np.arange(12)
+    values = (1.0 + 256.0 ** -j)[:, None]
+    assert E.trend_floor(100.0 * 2.0 ** j, values)[0] == 0.0
