@@ -192,3 +192,16 @@ def test_scan_view_follows_a_run_directory_heat_map(tmp_path, capsys):
             assert not np.isnan([p.value for p in view.state.points.values()]).any()
             await pilot.press("q")
     asyncio.run(go())
+
+
+def test_watch_plain_and_second_run_into_the_same_folder(scanfile, tmp_path, capsys):
+    """issue 14 item 5: cubage watch --plain lists a scan's points; a second run into its folder points to resume."""
+    rd = tmp_path / "rd"
+    assert main(["run", str(scanfile), "--run-dir", str(rd), "--json"]) == 0
+    capsys.readouterr()
+    assert main(["watch", str(rd), "--plain"]) == 0
+    out = capsys.readouterr().out
+    assert len([ln for ln in out.splitlines() if "converged" in ln]) == 5 and "every point met its goal" in out
+    assert main(["run", str(scanfile), "--run-dir", str(rd)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and f"cubage resume {rd}" in err[0]
