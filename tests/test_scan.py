@@ -323,3 +323,21 @@ def test_resume_after_a_crash_at_any_file_write(tmp_path):
     resumed = run_scan(src, dom, g, {"rel_tol": 1e-8}, run_dir=d)
     assert _strip(resumed.points) == _strip(straight.points)
     assert len((d / "scan-points.jsonl").read_text().splitlines()) == 6     # the torn line, then 3 and 4
+
+
+def test_a_points_own_evaluation_in_parallel_gives_the_same_table():
+    """issue 14 item 4: each point's batches on a parallel evaluator (chains run here), the same table bit for bit."""
+    from cubage.engine.parallel import make_evaluator
+    f = lambda X, a: np.cos(a * X.sum(1))
+    dom = cubage.Box([0, 0, 0], [1, 1, 1])
+    grid = {"a": np.linspace(0.5, 4.0, 6)}
+    ev = make_evaluator(workers=2, backend="threads")
+    try:
+        par = cubage.scan(f, dom, grid, rel_tol=1e-8, evaluator=ev)
+    finally:
+        if hasattr(ev, "close"):
+            ev.close()
+    here = cubage.scan(f, dom, grid, rel_tol=1e-8)
+    assert _strip(par.points) == _strip(here.points) and here.converged
+    with pytest.raises(ValueError, match="workers=1"):
+        cubage.scan(f, dom, grid, evaluator=lambda g, X: g(X), workers=2)

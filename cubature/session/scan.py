@@ -443,18 +443,20 @@ def _trust(res) -> dict | None:
         return None
 
 
-def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Callable | None = None):
+def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Callable | None = None,
+           evaluator=None):
     """Integrate one point; returns (PointResult, seed partition or None, stopped flag)."""
     f = job.source.build(job.constants)
     fp = job.source.fingerprint(job.constants)
     run = None
     if job.checkpoint and os.path.exists(job.checkpoint):
         try:
-            run = Run.from_checkpoint(job.checkpoint, f, job.domain, fingerprint=fp, **_goal_only(job.settings))
+            run = Run.from_checkpoint(job.checkpoint, f, job.domain, evaluator=evaluator, fingerprint=fp,
+                                      **_goal_only(job.settings))
         except CheckpointError:
             run = None                    # another point's or a damaged file: start this point afresh
     if run is None:
-        run = Run(f, job.domain, fingerprint=fp, start=job.start, **job.settings)
+        run = Run(f, job.domain, evaluator=evaluator, fingerprint=fp, start=job.start, **job.settings)
     last_ck = time.monotonic()
     last_poll = 0.0
     last_live = -math.inf
@@ -667,7 +669,8 @@ def _executor(workers, cluster=None):
 def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = True, chains: int | None = None,
              workers: int = 1, cluster=None, run_dir=None, checkpoint_every: float = 60.0,
              on_point: Callable[[PointResult, int, int], None] | None = None,
-             on_step: Callable | None = None, stop_event: threading.Event | None = None) -> ScanResult:
+             on_step: Callable | None = None, stop_event: threading.Event | None = None,
+             evaluator=None) -> ScanResult:
     """Integrate every grid point; see the module docstring for the order rule.
 
     Parameters
@@ -696,7 +699,14 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
         ``on_step(job, run, now)`` after each engine step of the current point (``workers=1`` only).
     stop_event : threading.Event, optional
         Set it to stop: current points are checkpointed, ``ScanResult.stopped`` is True.
+    evaluator : callable, optional
+        With ``workers=1``: how each point evaluates its batches (for example
+        ``cubage.engine.parallel.make_evaluator(workers=2)``), so that a point's own evaluation is
+        parallel while the chains run one after another.  Results are the same as without it.
     """
+    if evaluator is not None and (workers > 1 or cluster is not None):
+        raise ValueError("evaluator= parallelises each point's evaluation and needs workers=1 (the chains run "
+                         "here); workers > 1 or a cluster run the chains in parallel instead")
     global _DRIVER_PID
     _DRIVER_PID = os.getpid()
     n = grid.size
@@ -769,7 +779,7 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
                 if stop_event is not None and stop_event.is_set():
                     stopped[0] = True
                     break
-                pr, seed, was_stopped = _solve(job_for(c), stop_event, on_step)
+                pr, seed, was_stopped = _solve(job_for(c), stop_event, on_step, evaluator)
                 if was_stopped:
                     stopped[0] = True
                     break
@@ -809,7 +819,7 @@ def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = Tru
 def scan(f: Callable, domain, grid, *, factory: bool = False, rel_tol: float = 1e-6, abs_tol: float = 0.0,
          budget: int | None = None, time_limit: float | None = None, rule: str | None = None, warm: bool = True,
          chains: int | None = None, workers: int = 1, cluster=None, run_dir=None,
-         on_point: Callable | None = None, **options) -> ScanResult:
+         on_point: Callable | None = None, evaluator=None, **options) -> ScanResult:
     """Integrate ``f`` over ``domain`` at every point of a grid of constants.
 
     Parameters
@@ -827,7 +837,7 @@ def scan(f: Callable, domain, grid, *, factory: bool = False, rel_tol: float = 1
     warm : bool
         Start each point from its neighbour's final partition (the order rule of
         :mod:`cubage.session.scan`); False starts every point cold.
-    chains, workers, cluster, run_dir, on_point
+    chains, workers, cluster, run_dir, on_point, evaluator
         See :func:`run_scan`.
 
     Returns
@@ -850,5 +860,6 @@ def scan(f: Callable, domain, grid, *, factory: bool = False, rel_tol: float = 1
     settings = dict(rel_tol=rel_tol, abs_tol=abs_tol, budget=budget or DEFAULT_BUDGET, time_limit=time_limit,
                     rule=rule, **options)
     return run_scan(CallableSource(f, factory), domain, g, settings, warm=warm, chains=chains, workers=workers,
+                    evaluator=evaluator,
                     cluster=cluster, run_dir=run_dir, on_point=on_point)
 
