@@ -26,11 +26,11 @@ import pytest
 from textual.widgets import Input
 
 from cubage import Box, Run
+from cubage.session.follower import RunFollower
 from cubage.session.progress_records import map_record, new_rows, trail_line
 from cubage.tui.app import CubageApp, collect_files, main
 from cubage.tui.confirm import AskModal
-from cubage.tui.follow import RunDirFollower
-from cubage.tui.forecast import density_grid, forecast_evaluations
+from cubage.tui.drawing import density_grid
 from cubage.tui.goal_editor import GoalEditor, parse_goal
 from cubage.tui.key_help import KeyHelp
 from cubage.tui.meta import meta_from_file
@@ -334,7 +334,7 @@ def test_follower_accumulates_history_and_waits_for_whole_lines(tmp_path):
     r = Run(f, Box([0, 0], [1, 1]), rel_tol=1e-15, budget=10**9, snapshot_interval=0.0, batch=1)
     prog = tmp_path / "trail.jsonl"
     rows = _write_records(r, prog, 6)
-    fol = RunDirFollower(tmp_path)
+    fol = RunFollower(tmp_path)
     # round trip: the follower's rebuilt state must equal the live run's own counters
     assert fol.poll() == 6
     assert fol.snapshot.evaluations == r.evaluations
@@ -370,7 +370,7 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
         assert (rd / "trail.jsonl").exists(), proc.stderr.read().decode() if proc.poll() is not None else ""
 
         async def go():
-            app = CubageApp(follow=(RunDirFollower(rd), meta_from_file(rd / "source.toml")))
+            app = CubageApp(follow=(RunFollower(rd), meta_from_file(rd / "source.toml")))
             async with app.run_test(size=(80, 24)) as pilot:
                 view = app.screen
                 assert isinstance(view, RunView)
@@ -399,19 +399,6 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
 # --------------------------------------------------------------------------
 # helpers and bad input
 # --------------------------------------------------------------------------
-
-def test_forecast_on_a_power_law():
-    # err = C n^-2 exactly, so the goal g is reached at n = sqrt(C/g) (closed form of the power law)
-    n = np.geomspace(1e3, 1e6, 30)
-    C = 1e4
-    err = C * n**-2.0
-    hist = np.column_stack([n, n / 10, np.ones_like(n), err])
-    got = forecast_evaluations(hist, np.array([1e-12]))
-    assert got == pytest.approx(math.sqrt(C / 1e-12), rel=1e-6)
-    # a flat error gives no forecast
-    flat = np.column_stack([n, n / 10, np.ones_like(n), np.full_like(n, 1e-3)])
-    assert forecast_evaluations(flat, np.array([1e-12])) is None
-
 
 def test_density_grid_counts_points():
     # four points, one in each quadrant of the unit square plus one extra top-right (counted by hand)
@@ -762,4 +749,36 @@ def test_hostile_files_never_end_the_picker(tmp_path):
             await pilot.press("enter")                 # an invalid file does not open, and nothing crashes
             await pilot.pause(0.3)
             assert isinstance(app.screen, PickerScreen)
+    run(go())
+
+
+def test_watch_shows_the_runner_is_gone_and_how_to_continue(probs, tmp_path):
+    """issue 10 item 16: after the runner dies without a result, the watch view says RUNNER-GONE and
+    how to continue (cubage resume DIR), instead of RUNNING and a forecast."""
+    rd = tmp_path / "rd"
+    proc = subprocess.Popen([sys.executable, "-m", "cubage", "run", str(probs / "b_kink.toml"), "--run-dir", str(rd),
+                             "--checkpoint-every", "1"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, stdin=subprocess.DEVNULL)
+    try:
+        end = time.monotonic() + 30
+        while time.monotonic() < end and not ((rd / "trail.jsonl").exists()
+                                               and (rd / "trail.jsonl").stat().st_size > 0):
+            time.sleep(0.1)
+        assert (rd / "trail.jsonl").exists()
+    finally:
+        proc.kill()                                   # SIGKILL: no handler runs, no verdict is written
+        proc.wait()
+    assert not (rd / "verdict.json").exists()
+
+    async def go():
+        app = CubageApp(follow=(RunFollower(rd), meta_from_file(rd / "source.toml")))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = app.screen
+            assert await wait_until(pilot, lambda: view.state == "runner-gone")
+            await pilot.pause(0.3)
+            text = screen_text(app)
+            assert "RUNNER-GONE" in text and "RUNNING" not in text
+            assert f"cubage resume {rd}" in "\n".join(view.notes.lines_text)
+            assert "cubage resume" in text
+            assert view.check_action("halt", ()) is None          # nobody to ask to stop
     run(go())

@@ -12,8 +12,9 @@ from textual.app import App
 from textual.binding import Binding
 
 from cubage.problem.problem_file import ProblemError, list_problems, problem_dirs
+from cubage.session.follower import RunFollower
+from cubage.session.run_directory import SOURCE
 
-from .follow import PROBLEM, RunDirFollower
 from .meta import ProblemMeta, meta_from_file
 from .picker import PickerScreen
 from .run_view import RunView
@@ -26,7 +27,7 @@ class CubageApp(App):
     ----------
     files : list of Path
         Problem files for the picker.
-    follow : (RunDirFollower, ProblemMeta), optional
+    follow : (RunFollower, ProblemMeta), optional
         Follow this run directory instead of offering the picker.
     allow_python : bool
         Import Python integrands without asking.
@@ -37,7 +38,7 @@ class CubageApp(App):
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False)]
 
-    def __init__(self, files: list[Path] | None = None, follow: tuple[RunDirFollower, ProblemMeta] | None = None,
+    def __init__(self, files: list[Path] | None = None, follow: tuple[RunFollower, ProblemMeta] | None = None,
                  allow_python: bool = False):
         super().__init__()
         self.files = list(files or [])
@@ -115,15 +116,15 @@ def main(paths: list[str] | None = None, watch: str | None = None, allow_python:
         from .scan_view import is_scan_dir, watch_scan
         if is_scan_dir(d):
             return watch_scan(d)
-        if not (d / PROBLEM).is_file():
-            print(f"cubage watch: {watch}: not a run directory (no {PROBLEM})", file=sys.stderr)
+        if not (d / SOURCE).is_file():
+            print(f"cubage watch: {watch}: not a run directory (no {SOURCE})", file=sys.stderr)
             return 2
         try:
-            meta = meta_from_file(d / PROBLEM)
+            meta = meta_from_file(d / SOURCE)
         except ProblemError as exc:
             print(f"cubage watch: {str(exc).splitlines()[0]}", file=sys.stderr)
             return 2
-        follow = (RunDirFollower(d), meta)
+        follow = (RunFollower(d), meta)
     else:
         try:
             files = collect_files(paths)

@@ -8,7 +8,6 @@ from its current partition when the new goal asks for more.
 from __future__ import annotations
 
 import math
-import re
 
 from rich.text import Text
 from textual.app import ComposeResult
@@ -17,71 +16,50 @@ from textual.containers import Grid, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Input, Label, Static
 
-_SUFFIX = {"k": 1e3, "m": 1e6, "g": 1e9}
-_DURATION = {"s": 1.0, "min": 60.0, "h": 3600.0, "d": 86400.0}
+from cubage.session.prepare import (
+    InputError,
+    check_budget,
+    check_time_limit,
+    check_tolerance,
+    parse_number,
+)
+from cubage.session.prepare import parse_count as parse_count_text
 
 
-def parse_count(text: str, name: str = "budget") -> int | None:
-    """An evaluation count: ``20000000``, ``20_000_000``, ``2e7``, ``20M``, ``500k`` (blank: None).
-
-    Raises
-    ------
-    ValueError
-        With a one-line message naming ``name``.
-    """
-    t = text.strip().replace("_", "").replace(",", "")
-    if not t:
-        return None
-    mult = 1.0
-    if t[-1].lower() in _SUFFIX:
-        mult, t = _SUFFIX[t[-1].lower()], t[:-1]
-    try:
-        v = float(t) * mult
-    except ValueError:
-        raise ValueError(f"{name}: {text.strip()!r} is not a count (e.g. 20000000, 2e7 or 20M)") from None
-    if not math.isfinite(v) or v < 1 or v > 1e18:
-        raise ValueError(f"{name}: must be a count from 1 to 1e18, got {text.strip()}")
-    return int(round(v))
-
-
-def parse_duration(text: str, name: str = "time limit") -> float | None:
-    """Seconds from ``90``, ``90s``, ``15min``, ``2h``, ``1.5d`` (blank or ``none``: None).
-
-    Raises
-    ------
-    ValueError
-        With a one-line message naming ``name``.
-    """
-    t = text.strip().lower().replace(" ", "")
-    if not t or t in ("none", "-"):
-        return None
-    m = re.fullmatch(r"([0-9]*\.?[0-9]+(?:e[+-]?[0-9]+)?)(s|min|h|d)?", t)
-    if m is None:
-        raise ValueError(f"{name}: {text.strip()!r} is not a duration (e.g. 90, 15min, 2h)")
-    v = float(m.group(1)) * _DURATION[m.group(2) or "s"]
-    if not (v > 0 and math.isfinite(v)):
-        raise ValueError(f"{name}: must be positive, got {text.strip()}")
-    return v
-
-
-def parse_tolerance(text: str, name: str) -> float | None:
-    """A tolerance >= 0 (blank: None)."""
+def _field(text: str, name: str, parse, check):
+    """``check(parse(text))`` with messages that name the field; blank gives None."""
     t = text.strip()
     if not t:
         return None
     try:
-        v = float(t)
-    except ValueError:
-        raise ValueError(f"{name}: {t!r} is not a number") from None
-    if not (v >= 0) or math.isinf(v):
-        raise ValueError(f"{name}: must be a finite number >= 0, got {t}")
-    return v
+        return check(parse(t), name)
+    except InputError:
+        raise
+    except ValueError as exc:
+        raise InputError(f"{name}: {exc}") from None
+
+
+def parse_tolerance(text: str, name: str) -> float | None:
+    """A tolerance >= 0 from a field (blank: None); checked by the session layer."""
+    return _field(text, name, lambda t: parse_number(t, "must be a number like 1e-8"), check_tolerance)
+
+
+def parse_count(text: str, name: str = "budget") -> int | None:
+    """An evaluation count from a field (``20_000_000``, ``2e7``; blank: None); checked by the session layer."""
+    return _field(text, name, parse_count_text, check_budget)
 
 
 def parse_goal(rel: str, abs_: str, budget: str, time_limit: str) -> dict:
-    """The goal editor's fields as keyword arguments of ``Run.set_goal`` (blank fields left out).
+    """The goal editor's fields as keyword arguments of ``RunDriver.set_goal`` (blank fields left out).
 
-    A blank time limit means "keep"; ``none`` removes it (given as ``inf``).
+    Every value is checked by :mod:`cubage.session.prepare`, the one place
+    where goals are validated.  The time limit is in seconds; ``none`` (or
+    blank) keeps it as it is.
+
+    Raises
+    ------
+    cubage.session.prepare.InputError
+        A one-line message naming the field.
     """
     out: dict = {}
     r = parse_tolerance(rel, "rel tol")
@@ -91,14 +69,13 @@ def parse_goal(rel: str, abs_: str, budget: str, time_limit: str) -> dict:
     if a is not None:
         out["abs_tol"] = a
     if out.get("rel_tol") == 0 and out.get("abs_tol") == 0:
-        raise ValueError("rel tol and abs tol cannot both be 0")
+        raise InputError("rel tol and abs tol cannot both be 0")
     b = parse_count(budget)
     if b is not None:
         out["budget"] = b
-    if time_limit.strip().lower() in ("none", "-"):
-        out["time_limit"] = math.inf
-    else:
-        t = parse_duration(time_limit)
+    if time_limit.strip().lower() not in ("none", "-"):
+        t = _field(time_limit, "time limit", lambda t: parse_number(t, "must be a number of seconds"),
+                   check_time_limit)
         if t is not None:
             out["time_limit"] = t
     return out
@@ -152,8 +129,8 @@ class GoalEditor(ModalScreen[dict | None]):
                 yield Input(f"{budget:,}".replace(",", "_"), id="goal-budget")
                 yield Label("time limit")
                 yield Input(_fmt_limit(tl), id="goal-time")
-            yield Static(Text(f"{self.evaluations:,} evaluations spent so far. Budget: a count (2e7, 20M); "
-                              "time limit: 90, 15min, 2h or none.", style="dim"), id="goal-hint")
+            yield Static(Text(f"{self.evaluations:,} evaluations spent so far. Budget: a count (2e7 or "
+                              "20_000_000); time limit: seconds (none: no limit).", style="dim"), id="goal-hint")
             yield Static(Text(""), id="goal-error")
             yield Static(Text.from_markup("[b]enter[/b] apply    [b]tab[/b] next field    [b]esc[/b] cancel"),
                          id="goal-keys")
@@ -170,7 +147,7 @@ class GoalEditor(ModalScreen[dict | None]):
             goal = parse_goal(*vals)
             if goal.get("budget") is not None and goal["budget"] <= self.evaluations:
                 raise ValueError(f"budget: {self.evaluations:,} evaluations are already spent; give more")
-        except ValueError as exc:
+        except ValueError as exc:      # InputError included
             self.query_one("#goal-error", Static).update(Text(str(exc), style="bold #ff5f6d"))
             return
         self.dismiss(goal)

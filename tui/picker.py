@@ -17,6 +17,7 @@ from textual.widgets.option_list import Option
 
 from cubage import DEFAULT_BUDGET
 from cubage.problem.problem_file import Problem, ProblemError, list_problems, load_problem
+from cubage.session.prepare import InputError, check_workers
 
 from .confirm import AskModal
 from .goal_editor import parse_count, parse_tolerance
@@ -25,35 +26,25 @@ from .meta import ProblemMeta, uses_python
 
 
 def parse_overrides(rel: str, abs_: str, workers: str, budget: str = "") -> dict:
-    """The picker's inputs as run overrides (blank = the problem's own).
+    """The picker's inputs as run overrides (blank = the problem's own), checked by the session layer.
 
     Raises
     ------
     ValueError
-        With a one-line message naming the input.
+        With a one-line message naming the input (:class:`cubage.session.prepare.InputError`).
     """
     out: dict = {}
     for name, key, text in (("rel tol", "rel_tol", rel), ("abs tol", "abs_tol", abs_)):
         v = parse_tolerance(text, name)
         if v is not None:
             out[key] = v
-    w = workers.strip()
-    if w:
-        if w == "auto":
-            out["workers"] = "auto"
-        else:
-            try:
-                n = int(w)
-            except ValueError:
-                raise ValueError(f"workers: {w!r} is not a whole number or 'auto'") from None
-            if n < 1:
-                raise ValueError(f"workers: must be at least 1, got {n}")
-            out["workers"] = n
+    if workers.strip():
+        out["workers"] = check_workers(workers.strip(), "workers")
     b = parse_count(budget, "budget")
     if b is not None:
         out["budget"] = b
     if out.get("rel_tol") == 0 and out.get("abs_tol", 1.0) == 0:
-        raise ValueError("rel tol and abs tol cannot both be 0")
+        raise InputError("rel tol and abs tol cannot both be 0")
     return out
 
 

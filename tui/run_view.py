@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import dataclasses
 import functools
-import inspect
-import time
 from pathlib import Path
 
 import numpy as np
@@ -19,66 +17,39 @@ from textual.reactive import reactive
 from textual.screen import Screen
 from textual.widgets import Footer, Header, Static, TabbedContent, TabPane
 
-from cubage import DEFAULT_BUDGET, IntegrandError, Run
 from cubage.engine.run import Snapshot
+from cubage.session.driver import Outcome, RunDriver
+from cubage.session.follower import RunFollower
+from cubage.session.jsonio import write_json
+from cubage.session.prepare import InputError, Overrides, PreparedRun, prepare_run
+from cubage.session.result_record import result_record
+from cubage.session.status import is_final
 
 from .confirm import AskModal
-from .follow import RunDirFollower
 from .goal_editor import GoalEditor
 from .key_help import KeyHelp
 from .meta import ProblemMeta
-from .results import result_path, result_record, write_result
+from .results import result_path
 from .widgets.convergence import ConvergenceChart
 from .widgets.density import RefinementMap
 from .widgets.guard import PanelFailed
 from .widgets.notes import NotesLog
 from .widgets.queue import QueueTrend, WorstRegions
-from .widgets.readout import FINAL, Readout
+from .widgets.readout import Readout
 
 #: Refresh period of the screen (seconds): at most ~4 redraws a second.
 REFRESH = 0.25
 #: Poll period of a followed run directory (seconds).
 FOLLOW_POLL = 0.5
 SLOW_RATE = 1e4
-#: Seconds between snapshots taken by the engine thread.
+#: Seconds between the run's snapshots handed to the screen.
 SNAPSHOT_EVERY = 0.2
-#: Seconds the engine thread sleeps after each step (0: just hand the interpreter lock over).
-ENGINE_YIELD = 0.0
+#: How the picker's fields are named in messages.
+FIELD_LABELS = {"rel_tol": "rel tol", "abs_tol": "abs tol", "budget": "budget", "workers": "workers",
+                "time_limit": "time limit"}
 PANELS = ("queue-tab", "map-tab", "notes-tab")
 #: Endings after which a new goal (goal editor) lets the run go on from its current partition.
 REOPENABLE = ("converged", "budget-spent", "time-limit", "stopped")
-
-
-def make_evaluator(problem, workers) -> tuple[object | None, str]:
-    """An evaluator for ``workers`` through ``cubage.engine.parallel.make_evaluator`` when it exists.
-
-    Returns
-    -------
-    evaluator or None, str
-        None means serial, in-process; the string says what was chosen.
-    """
-    method = problem.method
-    try:
-        from cubage.engine import parallel
-        factory = parallel.make_evaluator
-    except (ImportError, AttributeError):
-        if workers in (None, 1, "1") and not getattr(method, "cluster", None):
-            return None, "in-process"
-        return None, "in-process (the parallel evaluators are not available in this install)"
-    try:
-        params = inspect.signature(factory).parameters
-    except (TypeError, ValueError):
-        params = {}
-    offer = {"workers": workers, "backend": getattr(method, "backend", "auto"),
-             "cluster": getattr(method, "cluster", None), "spec": problem.integrand_spec}
-    kw = {k: v for k, v in offer.items() if k in params}
-    try:
-        ev = factory(**kw)
-    except Exception as exc:  # noqa: BLE001 - fall back to serial, say why
-        return None, f"in-process (parallel evaluator not started: {exc})"
-    describe = getattr(parallel, "describe_evaluator", None)
-    how = describe(ev) if callable(describe) else ("in-process" if ev is None else f"{workers} workers")
-    return ev, how
 
 
 def _while_shown(method):
@@ -107,8 +78,8 @@ class RunView(Screen):
     problem : Problem, optional
         For a run driven here: the parsed problem (with its integrand).
     overrides : dict, optional
-        ``rel_tol``, ``abs_tol``, ``workers`` chosen in the picker.
-    follower : RunDirFollower, optional
+        ``rel_tol``, ``abs_tol``, ``workers``, ``budget`` chosen in the picker.
+    follower : RunFollower, optional
         For a run followed from its run directory instead.
     can_go_back : bool
         Whether a problem list lies below this screen.
@@ -150,15 +121,16 @@ class RunView(Screen):
     state: reactive[str] = reactive("ready")
 
     def __init__(self, meta: ProblemMeta, problem=None, overrides: dict | None = None,
-                 follower: RunDirFollower | None = None, can_go_back: bool = True):
+                 follower: RunFollower | None = None, can_go_back: bool = True):
         super().__init__()
         self.meta = meta
         self.problem = problem
         self.overrides = dict(overrides or {})
         self.follower = follower
         self.can_go_back = can_go_back
-        self.run: Run | None = None
-        self.evaluator = None
+        self.run = None
+        self.prepared: PreparedRun | None = None
+        self.driver: RunDriver | None = None
         self.result_file: Path | None = None
         self._pending: Snapshot | None = None
         self._shown: Snapshot | None = None
@@ -222,7 +194,7 @@ class RunView(Screen):
         self._update_map_title()
         if self.follower is not None:
             self.state = "waiting"
-            self.say(f"following {self.follower.dir} (reading {self.follower.progress_path.name} every "
+            self.say(f"following {self.follower.dir} (reading {self.follower.trail_path.name} every "
                      f"{FOLLOW_POLL:g} s); h asks the runner to stop")
             self._poll_follower()
             self.set_interval(FOLLOW_POLL, self._poll_follower)
@@ -241,27 +213,33 @@ class RunView(Screen):
 
     # -- the engine, driven here -------------------------------------------------
     def _make_run(self) -> None:
-        p = self.problem
-        g = p.goal
-        rel = self.overrides.get("rel_tol", g.rel_tol)
-        abs_ = self.overrides.get("abs_tol", g.abs_tol)
-        workers = self.overrides.get("workers", p.method.workers)
-        kw = dict(rel_tol=rel, abs_tol=abs_, budget=self.overrides.get("budget", g.budget or DEFAULT_BUDGET),
-                  time_limit=g.time_limit, rule=p.method.rule)
-        if p.method.degree is not None:
-            kw["degree"] = p.method.degree
-        self.evaluator, how = make_evaluator(p, workers)
+        """Prepare the run through the session layer (every check of the goal and method there)."""
+        o = Overrides(**{k: v for k, v in self.overrides.items() if k in FIELD_LABELS}, labels=FIELD_LABELS)
         try:
-            self.run = Run(p.integrand, p.domain, evaluator=self.evaluator, fingerprint=p.fingerprint(),
-                           snapshot_interval=0.1, **kw)
-        except (ValueError, TypeError) as exc:
-            self.run = None
+            self.prepared = prepare_run(self.problem, o, snapshot_interval=SNAPSHOT_EVERY, start_evaluator=True)
+        except InputError as exc:
             self.state = "failed"
             self.say(f"cannot set up the run: {exc}", "error")
             return
+        pr = self.prepared
+        self.run = pr.run
+        self.driver = RunDriver(self.run, on_snapshot=self._receive)
+        for note in pr.notes:
+            self.say(note, "warn")
         self._pending = self.run.snapshot()
         self._tick()
-        self.say(f"ready: rel_tol {rel:g}, abs_tol {abs_:g}, rule {self.run.rule_name}, {how}; press g to go")
+        s = self.run.settings
+        self.say(f"ready: rel_tol {s.rel_tol:g}, abs_tol {s.abs_tol:g}, budget {s.budget:,}, "
+                 f"{pr.method_text}; press g to go")
+
+    @property
+    def evaluator(self):
+        """The run's evaluator (None: in-process)."""
+        return self.prepared.evaluator if self.prepared is not None else None
+
+    def _receive(self, snap: Snapshot) -> None:
+        """The driver's display hook (engine thread): keep only the newest snapshot for the next redraw."""
+        self._pending = snap
 
     def _derive_state(self) -> str:
         run = self.run
@@ -277,37 +255,15 @@ class RunView(Screen):
 
     @work(thread=True, exclusive=True, group="engine")
     def _drive(self) -> None:
-        """Worker thread: step the run, keep only the newest snapshot for the UI.
-
-        After every step the thread calls ``time.sleep(ENGINE_YIELD)``, a
-        cheap hand-over of the interpreter lock to the UI thread between steps
-        (measured: longer sleeps cost throughput without making keys faster).
-        """
-        run = self.run
-        err = None
-        last = 0.0
+        """Worker thread: the session's driver steps the run and hands its snapshots to :meth:`_receive`."""
         try:
-            while True:
-                if run.paused:
-                    self._pending = run.snapshot()
-                    while run.paused:
-                        time.sleep(0.05)
-                    continue
-                more = run.step()
-                if not more:
-                    break
-                now = time.perf_counter()
-                if now - last >= SNAPSHOT_EVERY:
-                    last = now
-                    self._pending = run.snapshot()
-                time.sleep(ENGINE_YIELD)
-        except IntegrandError as exc:
-            err = str(exc)
+            out = self.driver.drive()
         except Exception as exc:  # noqa: BLE001 - report anything, never kill the UI
-            err = f"{type(exc).__name__}: {exc}"
-        self._pending = run.snapshot()
+            out = Outcome(result=self.run.result(), snapshot=self.run.snapshot(),
+                          failure=f"{type(exc).__name__}: {exc}")
+        self._pending = out.snapshot
         try:
-            self.app.call_from_thread(self._engine_done, err)
+            self.app.call_from_thread(self._engine_done, out)
         except RuntimeError:  # the app is gone
             pass
 
@@ -319,14 +275,17 @@ class RunView(Screen):
         self.refresh_bindings()
 
     @_while_shown
-    def _engine_done(self, err: str | None) -> None:
+    def _engine_done(self, out: Outcome) -> None:
         self._engine_live = False
         self._tick()
         run = self.run
         st = run.status
         self.state = st
-        if err is not None:
-            self.say(f"integrand failure: {err}", "error")
+        if out.display_errors:
+            self.say(f"{out.display_errors} snapshot(s) could not be shown ({out.display_error}); "
+                     "the run went on", "warn")
+        if out.failure is not None:
+            self.say(f"integrand failure: {out.failure}", "error")
         elif st == "converged":
             self.say("converged: the error estimate met the goal (an estimate, not a bound)", "ok")
         else:
@@ -360,7 +319,7 @@ class RunView(Screen):
         try:
             n = f.poll()
         except OSError as exc:
-            self.say(f"cannot read {f.progress_path}: {exc}", "error")
+            self.say(f"cannot read {f.trail_path}: {exc}", "error")
             return
         if f.last_error and f.last_error not in self._warned:
             self._warned.add(f.last_error)
@@ -373,12 +332,16 @@ class RunView(Screen):
                 self._final_reported = True
                 self._show_result(res)
             self.state = str(res.get("status", "stopped"))
+        elif f.runner_gone:
+            # the runner died without a verdict (killed, crashed, rebooted): say so and how to go on (item 16)
+            self.state = "runner-gone"
+            self.query_one("#readout", Readout).hint = f"continue: cubage resume {f.dir}"
+            if "gone" not in self._warned:
+                self._warned.add("gone")
+                self.say(f.gone_message, "error")
         elif f.snapshot is not None:
             st = f.snapshot.status
-            self.state = "stopping" if (self._stop_asked and st not in FINAL) else st
-            if f.runner_alive() is False and "gone" not in self._warned:
-                self._warned.add("gone")
-                self.say("the runner process is no longer alive and wrote no result", "warn")
+            self.state = "stopping" if (self._stop_asked and not is_final(st)) else st
         self.refresh_bindings()
 
     def _show_result(self, res: dict) -> None:
@@ -427,7 +390,7 @@ class RunView(Screen):
             self._warned.add("budget")
             self.say(f"budget nearly spent: {snap.evaluations:,} of {snap.budget:,} evaluations "
                      f"({snap.evaluations / snap.budget:.0%})", "warn")
-        if (snap.elapsed > 1.0 and 0 < snap.rate < SLOW_RATE and snap.status not in FINAL
+        if (snap.elapsed > 1.0 and 0 < snap.rate < SLOW_RATE and not is_final(snap.status)
                 and "slow" not in self._warned):
             self._warned.add("slow")
             self.say(f"slow integrand: {snap.rate:,.0f} evaluations/s (under {SLOW_RATE:,.0f}/s); "
@@ -451,7 +414,7 @@ class RunView(Screen):
             return True
         if action == "halt":
             if follow:
-                done = self.follower.result is not None or self._stop_asked
+                done = self.follower.result is not None or self._stop_asked or self.state == "runner-gone"
                 return None if done else True
             return True if self._engine_live else None
         return True
@@ -471,7 +434,7 @@ class RunView(Screen):
             self._start_engine()
         elif self._engine_live:
             if run.paused:
-                run.resume()
+                self.driver.resume()
                 self.say("going on")
                 self.state = self._derive_state()
         elif run.status in REOPENABLE:
@@ -493,7 +456,7 @@ class RunView(Screen):
         run = self.run
         if run is None or not self._engine_live or run.paused:
             return
-        run.pause()
+        self.driver.pause()
         self.say("on hold after the current step (g goes on)")
         self.state = self._derive_state()
         self.refresh_bindings()
@@ -511,7 +474,7 @@ class RunView(Screen):
         if self.run is None or not self._engine_live:
             return
         self._halting = True
-        self.run.stop()
+        self.driver.stop("h key")
         self.say("stopping now: the current estimate is kept (NOT converged) and will be written", "warn")
         self.state = self._derive_state()
 
@@ -538,8 +501,8 @@ class RunView(Screen):
             return
         try:
             if goal:
-                run.set_goal(**goal)
-        except ValueError as exc:
+                self.driver.set_goal(**goal)       # checked by the session layer
+        except InputError as exc:
             self.say(f"cannot change the goal: {exc}", "error")
             return
         s = run.settings
@@ -558,39 +521,30 @@ class RunView(Screen):
         self.refresh_bindings()
 
     def _save(self, why: str = "") -> Path | None:
+        """Write the result record (the session layer's one schema) as JSON; returns its path."""
         if self.follower is not None:
-            res = self.follower.result
+            f = self.follower
+            res = f.result if f.result is not None else f.snapshot
             if res is None:
-                snap = self.follower.snapshot
-                if snap is None:
-                    self.say("nothing to write yet", "warn")
-                    return None
-                scalar = snap.components == 1
-                res = {"value": float(snap.value[0]) if scalar else snap.value.tolist(),
-                       "error": float(snap.error[0]) if scalar else snap.error.tolist(),
-                       "evaluations": snap.evaluations, "regions": snap.regions,
-                       "status": snap.status, "seconds": snap.elapsed, "steps": snap.step,
-                       "message": snap.message}
-            settings = self.follower.settings()
+                self.say("nothing to write yet", "warn")
+                return None
+            rec = result_record(res, problem=self.meta, written_by="cubage watch (tui)", settings=f.settings(),
+                                run_dir=f.dir)
+            # the run directory belongs to its runner: write beside us instead
+            path = Path.cwd() / f"{f.dir.resolve().name}.result.json"
         else:
             if self.run is None:
                 return None
-            res = self.run.result().to_json()
-            s = self.run.settings
-            settings = {"rel_tol": s.rel_tol, "abs_tol": s.abs_tol, "budget": s.budget,
-                        "time_limit": s.time_limit, "rule": s.rule,
-                        "workers": self.overrides.get("workers", self.problem.method.workers)}
-        if self.follower is not None:   # the run directory belongs to its runner: write beside us instead
-            path = Path.cwd() / f"{self.follower.dir.resolve().name}.result.json"
-        else:
+            rec = result_record(self.run.result(), problem=self.problem, written_by="cubage tui",
+                                settings=self.prepared.settings_record())
             path = result_path(self.meta)
         try:
-            write_result(path, result_record(res, self.meta, settings))
+            write_json(path, rec)
         except OSError as exc:
             self.say(f"cannot write {path}: {exc}", "error")
             return None
         self.result_file = path
-        st = res.get("status")
+        st = rec.get("status")
         label = "" if st == "converged" else " (NOT converged)"
         self.say(f"result written to {path}: status {st}{label}" + (f"; {why}" if why else ""), "ok")
         return path
@@ -620,7 +574,7 @@ class RunView(Screen):
         if self.live:
             def answer(yes: bool | None) -> None:
                 if yes:
-                    self.run.stop()
+                    self.driver.stop("left the run view")
                     then()
             self.app.push_screen(AskModal("A run is still going. Stop it (its estimate is dropped "
                                           "unless you wrote it with w) and leave?"), answer)
@@ -636,14 +590,7 @@ class RunView(Screen):
         self._after_confirm(lambda: self.app.exit(0))
 
     def on_unmount(self) -> None:
-        if self.run is not None:
-            self.run.stop()
-        ev = self.evaluator
-        for name in ("close", "shutdown"):
-            fn = getattr(ev, name, None)
-            if callable(fn):
-                try:
-                    fn()
-                except Exception:  # noqa: BLE001 - best effort at exit
-                    pass
-                break
+        if self.driver is not None:
+            self.driver.stop("left the run view")
+        if self.prepared is not None:
+            self.prepared.close()

@@ -9,7 +9,7 @@ from textual_plotext import PlotextPlot
 
 from cubage.engine.run import Snapshot
 
-from ..forecast import thin_log
+from ..drawing import thin_log
 from ..meta import ProblemMeta
 from .guard import guarded
 

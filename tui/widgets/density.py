@@ -9,7 +9,7 @@ from textual.widgets import Static
 
 from cubage.engine.run import Snapshot
 
-from ..forecast import density_grid
+from ..drawing import density_grid
 from ..meta import ProblemMeta
 from .guard import guarded
 

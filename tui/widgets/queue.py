@@ -13,7 +13,7 @@ from textual.widgets import DataTable, Sparkline, Static
 
 from cubage.engine.run import Snapshot
 
-from ..forecast import fmt_count
+from ..drawing import fmt_count
 from ..meta import ProblemMeta
 from .guard import guarded
 

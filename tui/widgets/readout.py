@@ -9,11 +9,11 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widgets import Static
 
-from cubage import STATUSES
 from cubage.engine.run import Snapshot
-from cubage.session.status import FINAL as _FINAL
+from cubage.session.forecast import duration_text, forecast
+from cubage.session.status import is_final, meaning
 
-from ..forecast import fmt_count, fmt_seconds, forecast_seconds
+from ..drawing import fmt_count
 from ..meta import ProblemMeta
 from .guard import guarded
 
@@ -22,10 +22,8 @@ STATUS_STYLE = {
     "ready": "bold #8fa3bf", "running": "bold #e8c547", "paused": "bold #6cb6d9", "converged": "bold #5fd38a",
     "budget-spent": "bold #f08a5d", "time-limit": "bold #f08a5d", "stopped": "bold #f08a5d",
     "region-limit": "bold #f08a5d", "stalled": "bold #f08a5d", "failed": "bold #ff5f6d",
-    "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d",
+    "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d", "runner-gone": "bold #ff5f6d",
 }
-
-FINAL = _FINAL          # the session's one set of final status words (cubage.session.status)
 
 ESTIMATE_NOTE = "± is an error estimate, not a bound"
 
@@ -48,6 +46,8 @@ class Readout(Static):
 
     snap: reactive[Snapshot | None] = reactive(None, always_update=True, layout=False)
     state: reactive[str] = reactive("ready")
+    #: A line shown under a final status instead of its meaning (e.g. how to continue a run).
+    hint: reactive[str] = reactive("")
 
     def __init__(self, meta: ProblemMeta, **kw):
         super().__init__(**kw)
@@ -60,7 +60,7 @@ class Readout(Static):
         word = self.state
         t.append("status ", "dim")
         t.append(word.upper(), STATUS_STYLE.get(word, "bold"))
-        if word in FINAL and word != "converged":
+        if is_final(word) and word != "converged":
             t.append("  NOT CONVERGED", "bold reverse #f08a5d")
         t.append("\n")
         if s is None or s.evaluations == 0:
@@ -112,20 +112,32 @@ class Readout(Static):
         t.append("rate ", "dim")
         t.append(f"{fmt_count(s.rate)}/s")
         t.append("  elapsed ", "dim")
-        t.append(fmt_seconds(s.elapsed) + "\n")
+        t.append(duration_text(s.elapsed) + "\n")
         t.append("to goal ", "dim")
         if word == "converged":
             t.append("reached\n", "#5fd38a")
-        elif word in FINAL:
+        elif is_final(word):
             t.append("-\n", "dim")
         else:
-            eta = forecast_seconds(s.history, s.goal, s.evaluations, s.rate)
-            if eta is None:
-                t.append("? (no clear slope yet)\n", "dim")
-            else:
-                t.append("~" + fmt_seconds(eta))
-                t.append(" (forecast)\n", "dim")
+            self._forecast_text(t, s)
         t.append(ESTIMATE_NOTE, "italic dim")
-        if word in STATUSES and word in FINAL and t.plain.count("\n") + 2 <= (self.size.height or 99):
-            t.append(f"\n{word}: {STATUSES[word]}", "dim")
+        if is_final(word) and t.plain.count("\n") + 2 <= (self.size.height or 99):
+            if self.hint:
+                t.append(f"\n{self.hint}", "bold #e8c547")
+            else:
+                t.append(f"\n{word}: {meaning(word)}", "dim")
         return t
+
+    @staticmethod
+    def _forecast_text(t: Text, s: Snapshot) -> None:
+        """The session layer's forecast, with the budget taken into account (issue 10 item 17)."""
+        fc = forecast(s.history, s.goal, s.rate, budget=s.budget)
+        if fc.evaluations is None:
+            t.append("? (no clear slope yet)\n", "dim")
+        elif fc.beyond_budget:
+            need = "out of reach" if not math.isfinite(fc.evaluations) else f"needs ~{fmt_count(fc.evaluations)} evals"
+            t.append("beyond budget", "bold #f08a5d")
+            t.append(f" ({need}; e raises it)\n", "dim")
+        else:
+            t.append("~" + duration_text(fc.seconds))
+            t.append(" (forecast)\n", "dim")

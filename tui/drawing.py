@@ -1,0 +1,52 @@
+"""Small drawing helpers of the run view: density grids, thinning of long histories, short counts.
+
+The time-to-goal forecast and the duration format are the session layer's
+(:mod:`cubage.session.forecast`), shared with the command line."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def density_grid(points: np.ndarray, lower, upper, cols: int, rows: int) -> np.ndarray:
+    """Counts of ``points`` (k, 2) in a ``rows`` x ``cols`` grid over [lower, upper].
+
+    Row 0 is the top of the picture (the largest second coordinate).
+    """
+    cols, rows = max(1, int(cols)), max(1, int(rows))
+    pts = np.asarray(points, dtype=float).reshape(-1, 2)
+    lo = np.asarray(lower, dtype=float)
+    hi = np.asarray(upper, dtype=float)
+    span = np.where(hi > lo, hi - lo, 1.0)
+    if pts.shape[0] == 0:
+        return np.zeros((rows, cols), dtype=np.int64)
+    u = (pts - lo) / span
+    ix = np.clip((u[:, 0] * cols).astype(np.int64), 0, cols - 1)
+    iy = np.clip((u[:, 1] * rows).astype(np.int64), 0, rows - 1)
+    grid = np.zeros((rows, cols), dtype=np.int64)
+    np.add.at(grid, (rows - 1 - iy, ix), 1)
+    return grid
+
+
+def thin_log(x: np.ndarray, n: int = 160) -> np.ndarray:
+    """Indices of at most ``n`` rows of increasing ``x`` spread evenly in log(x) (always the last)."""
+    x = np.asarray(x, dtype=float)
+    if x.size <= n:
+        return np.arange(x.size)
+    pos = x > 0
+    if not pos.any():
+        return np.unique(np.linspace(0, x.size - 1, n).astype(np.int64))
+    lx = np.log(np.where(pos, x, x[pos].min()))
+    targets = np.linspace(lx[0], lx[-1], n)
+    idx = np.searchsorted(lx, targets, side="left")
+    idx = np.clip(idx, 0, x.size - 1)
+    return np.unique(np.concatenate([idx, [x.size - 1]]))
+
+
+def fmt_count(n: float) -> str:
+    """A count with an SI suffix: ``950``, ``12.3k``, ``4.56M``, ``1.2G``."""
+    n = float(n)
+    for unit, div in (("G", 1e9), ("M", 1e6), ("k", 1e3)):
+        if abs(n) >= div:
+            return f"{n / div:.3g}{unit}"
+    return f"{n:.0f}"
