@@ -33,8 +33,8 @@ from cubage.tui.confirm import AskModal
 from cubage.tui.drawing import density_grid
 from cubage.tui.goal_editor import GoalEditor, parse_goal
 from cubage.tui.key_help import KeyHelp
-from cubage.tui.meta import meta_from_file
 from cubage.tui.picker import PickerScreen, parse_overrides
+from cubage.tui.problem_facts import ProblemFacts
 from cubage.tui.run_view import RunView
 from cubage.tui.widgets.readout import Readout
 
@@ -370,7 +370,7 @@ def test_attach_to_headless_run_and_stop_it(probs, tmp_path):
         assert (rd / "trail.jsonl").exists(), proc.stderr.read().decode() if proc.poll() is not None else ""
 
         async def go():
-            app = CubageApp(follow=(RunFollower(rd), meta_from_file(rd / "source.toml")))
+            app = CubageApp(follow=(RunFollower(rd), ProblemFacts.from_file(rd / "source.toml")))
             async with app.run_test(size=(80, 24)) as pilot:
                 view = app.screen
                 assert isinstance(view, RunView)
@@ -463,7 +463,7 @@ def test_meta_of_a_python_problem_without_importing_it(tmp_path):
     (tmp_path / "own.toml").write_text(PY.replace('box = [[0, 1], [0, 1]]', 'box = [[0, 1], [2, inf]]')
                                        .replace("tuicode.py", "metacode.py")
                                        + '[reference]\nvalue = 0.5\nsource = "by hand"\n')
-    meta = meta_from_file(tmp_path / "own.toml")
+    meta = ProblemFacts.from_file(tmp_path / "own.toml")
     assert meta.title == "own code" and meta.variables == ["x", "y"]
     assert meta.reference == [0.5] and meta.reference_source == "by hand"
     assert meta.axis_note(0) == "" and "t/(1-t)" in meta.axis_note(1)   # [2, inf) is drawn mapped
@@ -771,7 +771,7 @@ def test_watch_shows_the_runner_is_gone_and_how_to_continue(probs, tmp_path):
     assert not (rd / "verdict.json").exists()
 
     async def go():
-        app = CubageApp(follow=(RunFollower(rd), meta_from_file(rd / "source.toml")))
+        app = CubageApp(follow=(RunFollower(rd), ProblemFacts.from_file(rd / "source.toml")))
         async with app.run_test(size=(80, 24)) as pilot:
             view = app.screen
             assert await wait_until(pilot, lambda: view.state == "runner-gone")
@@ -781,4 +781,29 @@ def test_watch_shows_the_runner_is_gone_and_how_to_continue(probs, tmp_path):
             assert f"cubage resume {rd}" in "\n".join(view.notes.lines_text)
             assert "cubage resume" in text
             assert view.check_action("halt", ()) is None          # nobody to ask to stop
+    run(go())
+
+
+def test_picker_reads_each_file_once(probs):
+    """issue 11 item 4: the picker reads a problem file once (as data) per modification: highlighting it
+    again and opening it do not read it again; an edited file is read again."""
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.2)
+            picker = app.screen
+            assert picker.reads == 1                      # the first file, previewed
+            await pilot.press("down", "up", "down", "up")
+            await pilot.pause(0.2)
+            assert picker.reads == 2                      # a_exp2 and b_kink, once each
+            await pilot.press("enter")
+            assert await wait_until(pilot, lambda: isinstance(app.screen, RunView))
+            assert picker.reads == 2                      # opening binds the data already read
+            await pilot.press("b")
+            await pilot.pause(0.2)
+            time.sleep(0.01)
+            (probs / "a_exp2.toml").write_text(EXP2.replace("exp(x + y)", "exp(x + y) + 0"))
+            await pilot.press("down", "up")
+            await pilot.pause(0.2)
+            assert picker.reads == 3 and "exp(x + y) + 0" in screen_text(app)
     run(go())

@@ -15,8 +15,8 @@ from cubage.problem.problem_file import ProblemError, list_problems, problem_dir
 from cubage.session.follower import RunFollower
 from cubage.session.run_directory import SOURCE
 
-from .meta import ProblemMeta, meta_from_file
 from .picker import PickerScreen
+from .problem_facts import ProblemFacts
 from .run_view import RunView
 
 
@@ -27,7 +27,7 @@ class CubageApp(App):
     ----------
     files : list of Path
         Problem files for the picker.
-    follow : (RunFollower, ProblemMeta), optional
+    follow : (RunFollower, ProblemFacts), optional
         Follow this run directory instead of offering the picker.
     allow_python : bool
         Import Python integrands without asking.
@@ -38,7 +38,7 @@ class CubageApp(App):
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = [Binding("ctrl+q", "quit", "Quit", show=False)]
 
-    def __init__(self, files: list[Path] | None = None, follow: tuple[RunFollower, ProblemMeta] | None = None,
+    def __init__(self, files: list[Path] | None = None, follow: tuple[RunFollower, ProblemFacts] | None = None,
                  allow_python: bool = False):
         super().__init__()
         self.files = list(files or [])
@@ -120,7 +120,7 @@ def main(paths: list[str] | None = None, watch: str | None = None, allow_python:
             print(f"cubage watch: {watch}: not a run directory (no {SOURCE})", file=sys.stderr)
             return 2
         try:
-            meta = meta_from_file(d / SOURCE)
+            meta = ProblemFacts.from_file(d / SOURCE)
         except ProblemError as exc:
             print(f"cubage watch: {str(exc).splitlines()[0]}", file=sys.stderr)
             return 2

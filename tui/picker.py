@@ -16,13 +16,13 @@ from textual.widgets import Footer, Header, Input, Label, OptionList, Static
 from textual.widgets.option_list import Option
 
 from cubage import DEFAULT_BUDGET
-from cubage.problem.problem_file import Problem, ProblemError, list_problems, load_problem
+from cubage.problem.problem_file import ProblemError, ProblemSpec, bind_problem, list_problems, load_problem_spec
 from cubage.session.prepare import InputError, check_workers
 
 from .confirm import AskModal
 from .goal_editor import parse_count, parse_tolerance
 from .key_help import KeyHelp
-from .meta import ProblemMeta, uses_python
+from .problem_facts import ProblemFacts
 
 
 def parse_overrides(rel: str, abs_: str, workers: str, budget: str = "") -> dict:
@@ -111,7 +111,10 @@ class PickerScreen(Screen):
         super().__init__()
         self.files = [Path(f) for f in files]
         self.allow_python = allow_python
-        self._cache: dict[Path, tuple[Problem | None, str | None]] = {}
+        #: path -> ((mtime_ns, size), spec or None, error or None)
+        self._cache: dict[Path, tuple] = {}
+        #: Files read so far (each file once per modification).
+        self.reads = 0
 
     def compose(self) -> ComposeResult:
         yield Header()
@@ -153,15 +156,29 @@ class PickerScreen(Screen):
         ol.focus()
 
     # -- preview --------------------------------------------------------------------
-    def _load(self, path: Path) -> tuple[Problem | None, str | None]:
-        if path not in self._cache:
-            try:
-                self._cache[path] = (load_problem(path, allow_python=False), None)
-            except ProblemError as exc:
-                self._cache[path] = (None, str(exc))
-            except (RecursionError, ArithmeticError, MemoryError) as exc:   # bad input, whatever the parser
-                self._cache[path] = (None, f"{path}: cannot be read ({type(exc).__name__})")
-        return self._cache[path]
+    def _load(self, path: Path) -> tuple[ProblemSpec | None, str | None]:
+        """The file read once as data (no user code imported), cached per path, modification time and size.
+
+        An edited file is read again the next time it is highlighted; an
+        unchanged one never is (issue 11: the UI parsed a file up to five times).
+        """
+        try:
+            st = path.stat()
+            stamp = (st.st_mtime_ns, st.st_size)
+        except OSError:
+            stamp = None
+        hit = self._cache.get(path)
+        if hit is not None and hit[0] == stamp:
+            return hit[1], hit[2]
+        try:
+            spec, err = load_problem_spec(path), None
+        except ProblemError as exc:
+            spec, err = None, str(exc)
+        except (RecursionError, ArithmeticError, MemoryError) as exc:   # bad input, whatever the parser
+            spec, err = None, f"{path}: cannot be read ({type(exc).__name__})"
+        self._cache[path] = (stamp, spec, err)
+        self.reads += 1
+        return spec, err
 
     @property
     def current(self) -> Path | None:
@@ -185,49 +202,34 @@ class PickerScreen(Screen):
             self._preview_file(idx)
         except Exception as exc:  # noqa: BLE001 - one bad file must not end the picker (issue 10 item 11)
             path = self.files[idx]
-            self._cache[path] = (None, f"{path}: cannot be read ({type(exc).__name__}: {exc})"[:500])
+            msg = f"{path}: cannot be read ({type(exc).__name__}: {exc})"[:500]
+            self._cache[path] = (None, None, msg)
             self.query_one("#preview", Static).update(Group(
-                Text(path.stem, style="bold #e6e6e6"),
-                Text("invalid", style="bold #ff5f6d"), Text(self._cache[path][1], style="#ff5f6d")))
+                Text(path.stem, style="bold #e6e6e6"), Text("invalid", style="bold #ff5f6d"),
+                Text(msg, style="#ff5f6d")))
 
     def _preview_file(self, idx: int) -> None:
         path = self.files[idx]
-        prob, err = self._load(path)
-        target = uses_python(path)
-        head = Text(path.stem, style="bold #e6e6e6")
+        spec, err = self._load(path)
         out = Table.grid(padding=(0, 1))
         out.add_column(style="#8fa3bf", no_wrap=True)
         out.add_column(overflow="fold")
-        if prob is not None:
-            head = Text(prob.title or path.stem, style="bold #e6e6e6")
-            out.add_row("file", Text(short_path(path)))
-            if prob.notes:
-                out.add_row("notes", Text(reflow(prob.notes)))
-            for label, text in prob.describe():
+        out.add_row("file", Text(short_path(path)))
+        if spec is not None:
+            head = Text(spec.title or path.stem, style="bold #e6e6e6")
+            if spec.notes:
+                out.add_row("notes", Text(reflow(spec.notes)))
+            for label, text in spec.describe():
                 out.add_row(label, Text(text))
-            g = prob.goal
-            self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(prob.method.workers),
+            if spec.needs_python:
+                out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
+                                     "first" + (" (trusted for this session)." if self.allow_python else "."),
+                                     style="italic #e8c547"))
+            g = spec.goal
+            self._placeholders(f"{g.rel_tol:g}", f"{g.abs_tol:g}", str(spec.method.workers),
                                count_text(g.budget or DEFAULT_BUDGET))
-        elif target is not None and err is not None and "your own Python code" in err:
-            try:
-                from .meta import meta_from_file
-                meta = meta_from_file(path)
-                head = Text(meta.title, style="bold #e6e6e6")
-                out.add_row("file", Text(short_path(path)))
-                out.add_row("dimension", Text(f"{meta.dim} ({', '.join(meta.variables)})"))
-                if meta.reference is not None:
-                    out.add_row("reference", Text(f"{meta.reference}  ({meta.reference_source})"))
-            except ProblemError as exc:
-                out.add_row("file", Text(short_path(path)))
-                out.add_row(Text("error", style="bold #ff5f6d"), Text(str(exc), style="#ff5f6d"))
-            out.add_row("integrand", Text(f"python {target}", style="#e8c547"))
-            out.add_row("", Text("This problem imports and runs your own Python code. Opening it asks "
-                                 "first" + (" (trusted for this session)." if self.allow_python else "."),
-                                 style="italic"))
-            self._placeholders("problem's", "problem's", "problem's", "problem's")
         else:
             head = Text(path.stem, style="bold #e6e6e6")
-            out.add_row("file", Text(short_path(path)))
             out.add_row(Text("invalid", style="bold #ff5f6d"), "")
             out.add_row("", Text(err or "", style="#ff5f6d"))
             self._placeholders("problem's", "problem's", "problem's", "problem's")
@@ -307,26 +309,27 @@ class PickerScreen(Screen):
         except ValueError as exc:
             self.notify(str(exc), title="Cannot open", severity="error", markup=False)
             return
-        target = uses_python(path)
-        if target is not None and not self.allow_python:
+        spec, err = self._load(path)
+        if spec is None:
+            self.notify((err or "invalid problem file").splitlines()[0], title="Cannot open", severity="error",
+                        markup=False)
+            return
+        if spec.needs_python and not self.allow_python:
             def answer(yes: bool | None) -> None:
                 if yes:
-                    self._open(path, overrides, trust=True)
+                    self._open(spec, overrides, trust=True)
             self.app.push_screen(AskModal(f"{escape(path.name)} runs your own Python code "
-                                          f"([b]{escape(target)}[/b]).\nImport and run it?",
+                                          f"([b]{escape(spec.python)}[/b]).\nImport and run it?",
                                           title="Python integrand"), answer)
             return
-        self._open(path, overrides, trust=target is not None)
+        self._open(spec, overrides, trust=spec.needs_python)
 
-    def _open(self, path: Path, overrides: dict, trust: bool) -> None:
+    def _open(self, spec: ProblemSpec, overrides: dict, trust: bool) -> None:
+        """Bind the spec read for the preview (the file is not read again) and open its run view."""
         from .run_view import RunView
         try:
-            prob = load_problem(path, allow_python=trust)
+            prob = bind_problem(spec, allow_python=trust)
         except (ProblemError, RecursionError, ArithmeticError, MemoryError) as exc:
-            self._cache[path] = (None, str(exc))
-            idx = self.query_one("#problem-list", OptionList).highlighted
-            if idx is not None:
-                self._preview(idx)
             self.notify(exc.headline if hasattr(exc, "headline") else str(exc), title="Cannot open",
                         severity="error", markup=False)
             return
@@ -334,7 +337,7 @@ class PickerScreen(Screen):
             from .scan_view import open_scan
             open_scan(self.app, prob, overrides)
             return
-        self.app.push_screen(RunView(ProblemMeta.from_problem(prob), problem=prob, overrides=overrides,
+        self.app.push_screen(RunView(ProblemFacts.from_spec(spec), problem=prob, overrides=overrides,
                                      can_go_back=True))
 
     def on_screen_resume(self) -> None:

@@ -10,12 +10,12 @@ from pathlib import Path
 
 from cubage.problem.problem_file import bundled_problem_dir
 
-from .meta import ProblemMeta
+from .problem_facts import ProblemFacts
 
 NOTE = "the error is a heuristic estimate, not a guaranteed bound"
 
 
-def result_path(meta: ProblemMeta, cwd: Path | None = None) -> Path:
+def result_path(meta: ProblemFacts, cwd: Path | None = None) -> Path:
     """``<problem stem>.result.json`` next to the problem file when that folder
     is writable and is not the bundled examples' folder; else in ``cwd``."""
     cwd = Path.cwd() if cwd is None else Path(cwd)
@@ -41,7 +41,7 @@ def _clean(x):
     return x
 
 
-def result_record(result_json: dict, meta: ProblemMeta, settings: dict | None = None) -> dict:
+def result_record(result_json: dict, meta: ProblemFacts, settings: dict | None = None) -> dict:
     """The saved document: the engine's ``Result.to_json()`` fields plus problem,
     settings, reference (with the true error) and the converged flag."""
     rec = {"saved_by": "cubage tui", "saved_at": time.strftime("%Y-%m-%dT%H:%M:%S%z"),

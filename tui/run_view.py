@@ -28,7 +28,7 @@ from cubage.session.status import is_final
 from .confirm import AskModal
 from .goal_editor import GoalEditor
 from .key_help import KeyHelp
-from .meta import ProblemMeta
+from .problem_facts import ProblemFacts
 from .results import result_path
 from .widgets.convergence import ConvergenceChart
 from .widgets.density import RefinementMap
@@ -73,7 +73,7 @@ class RunView(Screen):
 
     Parameters
     ----------
-    meta : ProblemMeta
+    meta : ProblemFacts
         Title, variable names, reference, axis kinds.
     problem : Problem, optional
         For a run driven here: the parsed problem (with its integrand).
@@ -120,7 +120,7 @@ class RunView(Screen):
     #: What the run is doing: ready, running, paused, stopping, waiting or a final status word.
     state: reactive[str] = reactive("ready")
 
-    def __init__(self, meta: ProblemMeta, problem=None, overrides: dict | None = None,
+    def __init__(self, meta: ProblemFacts, problem=None, overrides: dict | None = None,
                  follower: RunFollower | None = None, can_go_back: bool = True):
         super().__init__()
         self.meta = meta

@@ -10,7 +10,7 @@ from textual_plotext import PlotextPlot
 from cubage.engine.run import Snapshot
 
 from ..drawing import thin_log
-from ..meta import ProblemMeta
+from ..problem_facts import ProblemFacts
 from .guard import guarded
 
 
@@ -23,7 +23,7 @@ class ConvergenceChart(PlotextPlot):
 
     snap: reactive[Snapshot | None] = reactive(None, always_update=True, layout=False)
 
-    def __init__(self, meta: ProblemMeta, **kw):
+    def __init__(self, meta: ProblemFacts, **kw):
         super().__init__(**kw)
         self.meta = meta
         self._empty = True

@@ -10,7 +10,7 @@ from textual.widgets import Static
 from cubage.engine.run import Snapshot
 
 from ..drawing import density_grid
-from ..meta import ProblemMeta
+from ..problem_facts import ProblemFacts
 from .guard import guarded
 
 #: Cell glyphs from empty to densest, and their colours (our own ramp).
@@ -52,7 +52,7 @@ class RefinementMap(Static):
     snap: reactive[Snapshot | None] = reactive(None, always_update=True, layout=False)
     pair: reactive[int] = reactive(0)
 
-    def __init__(self, meta: ProblemMeta, **kw):
+    def __init__(self, meta: ProblemFacts, **kw):
         super().__init__(**kw)
         self.meta = meta
 

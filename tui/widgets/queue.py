@@ -14,7 +14,7 @@ from textual.widgets import DataTable, Sparkline, Static
 from cubage.engine.run import Snapshot
 
 from ..drawing import fmt_count
-from ..meta import ProblemMeta
+from ..problem_facts import ProblemFacts
 from .guard import guarded
 
 
@@ -65,7 +65,7 @@ class WorstRegions(DataTable):
 
     snap: reactive[Snapshot | None] = reactive(None, always_update=True, layout=False)
 
-    def __init__(self, meta: ProblemMeta, **kw):
+    def __init__(self, meta: ProblemFacts, **kw):
         super().__init__(zebra_stripes=True, cursor_type="row", **kw)
         self.meta = meta
 

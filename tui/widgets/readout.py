@@ -14,7 +14,7 @@ from cubage.session.forecast import duration_text, forecast
 from cubage.session.status import is_final, meaning
 
 from ..drawing import fmt_count
-from ..meta import ProblemMeta
+from ..problem_facts import ProblemFacts
 from .guard import guarded
 
 #: Colour of each status word (our own palette).
@@ -49,7 +49,7 @@ class Readout(Static):
     #: A line shown under a final status instead of its meaning (e.g. how to continue a run).
     hint: reactive[str] = reactive("")
 
-    def __init__(self, meta: ProblemMeta, **kw):
+    def __init__(self, meta: ProblemFacts, **kw):
         super().__init__(**kw)
         self.meta = meta
 
