@@ -807,3 +807,29 @@ def test_picker_reads_each_file_once(probs):
             await pilot.pause(0.2)
             assert picker.reads == 3 and "exp(x + y) + 0" in screen_text(app)
     run(go())
+
+
+def test_forecast_shows_when_the_goal_lies_beyond_the_budget(probs):
+    """issue 10 item 17: the run view's forecast takes the budget into account and says so."""
+    import dataclasses
+
+    async def go():
+        app = CubageApp(collect_files([str(probs)]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 0)
+            readout = view.query_one("#readout", Readout)
+            base = view.run.snapshot()
+            # error = 1e-2 (n / 1e3)^-1 exactly: the goal 1e-9 is met at n = 1e10 (closed form of the power law)
+            n = np.geomspace(1e3, 1e6, 30)
+            hist = np.column_stack([n, n / 10, np.ones_like(n), 1e-2 * (n / 1e3) ** -1.0])
+            snap = dataclasses.replace(base, history=hist, evaluations=int(n[-1]), regions=int(n[-1] / 10),
+                                       value=np.ones(1), error=hist[-1:, 3], goal=np.array([1e-9]), rate=1e5,
+                                       elapsed=10.0, status="running")
+            readout.state = "running"
+            readout.snap = dataclasses.replace(snap, budget=10**12)
+            await pilot.pause(0.2)
+            assert "(forecast)" in screen_text(app) and "beyond budget" not in screen_text(app)
+            readout.snap = dataclasses.replace(snap, budget=10**8)
+            await pilot.pause(0.2)
+            assert "beyond budget (~10G evals)" in screen_text(app)
+    run(go())

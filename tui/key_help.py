@@ -26,21 +26,26 @@ def key_label(key: str) -> str:
 
 
 def key_rows(screen: Screen) -> list[tuple[str, str]]:
-    """(key, what it does) for each binding of ``screen``, in the order the screen declares them."""
+    """(keys, what they do) per action of ``screen``'s bindings, in the order the screen declares them.
+
+    Keys bound to the same action share a row (``?, F1``).
+    """
     helps = getattr(screen, "KEY_HELP", {})
-    rows: list[tuple[str, str]] = []
-    seen: set[str] = set()
+    order: list[str] = []
+    keys: dict[str, list[str]] = {}
+    text: dict[str, str] = {}
     for b in getattr(screen, "BINDINGS", []):
         if not isinstance(b, Binding):
             continue
         action = b.action.split("(")[0].removeprefix("app.").removeprefix("screen.")
-        text = helps.get(action) or b.description or action
+        if action not in keys:
+            order.append(action)
+            keys[action] = []
+            text[action] = helps.get(action) or b.description or action
         label = key_label(b.key)
-        if (label, text) in seen:
-            continue
-        seen.add((label, text))
-        rows.append((label, text))
-    return rows
+        if label not in keys[action]:
+            keys[action].append(label)
+    return [(", ".join(keys[a]), text[a]) for a in order]
 
 
 class KeyHelp(ModalScreen[None]):

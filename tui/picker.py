@@ -102,7 +102,7 @@ class PickerScreen(Screen):
         "focus_next": "next field: the list, rel tol, abs tol, workers, budget (blank = the problem's own)",
         "open_path": "open a problem file (or a folder of them) that is not in the list, by its path",
         "reload": "read the highlighted file again (after editing it)",
-        "keys": "this help (also F1)",
+        "keys": "this help",
         "focus_list": "back to the list from a field",
         "quit": "quit cubage",
     }

@@ -113,7 +113,7 @@ class RunView(Screen):
         "axes": "next pair of axes on the refinement map",
         "panel": "next tab below: queue, map, notes",
         "back": "back to the problem list (asks first while a run is live)",
-        "keys": "this help (also F1)",
+        "keys": "this help",
         "leave": "quit cubage (asks first while a run is live)",
     }
 

@@ -135,9 +135,9 @@ class Readout(Static):
         if fc.evaluations is None:
             t.append("? (no clear slope yet)\n", "dim")
         elif fc.beyond_budget:
-            need = "out of reach" if not math.isfinite(fc.evaluations) else f"needs ~{fmt_count(fc.evaluations)} evals"
+            need = "out of reach" if not math.isfinite(fc.evaluations) else f"~{fmt_count(fc.evaluations)} evals"
             t.append("beyond budget", "bold #f08a5d")
-            t.append(f" ({need}; e raises it)\n", "dim")
+            t.append(f" ({need})\n", "dim")
         else:
             t.append("~" + duration_text(fc.seconds))
             t.append(" (forecast)\n", "dim")
