@@ -331,8 +331,19 @@ class ScanView(Screen):
     BINDINGS = [
         Binding("h", "halt", "Halt"),
         Binding("b", "back", "Back"),
+        Binding("question_mark", "keys", "Keys"),
+        Binding("f1", "keys", "Keys", show=False),
         Binding("q", "leave", "Quit"),
     ]
+
+    #: What each key does, for the key-help screen.
+    KEY_HELP = {
+        "halt": "halt: finished points are kept; current points are checkpointed when the scan keeps a run "
+                "directory",
+        "back": "back to the problem list",
+        "keys": "this help",
+        "leave": "quit cubage",
+    }
 
     DEFAULT_CSS = """
     ScanView #scan-top { height: 1fr; min-height: 12; }
@@ -427,6 +438,11 @@ class ScanView(Screen):
         if action == "halt":
             return not self.state.over
         return True
+
+    def action_keys(self) -> None:
+        from .key_help import KeyHelp
+        self.app.push_screen(KeyHelp(self, "Keys: the scan", extra="Each point's error is a heuristic estimate, "
+                                     "not a guaranteed bound."))
 
     def action_halt(self) -> None:
         if self.state.over:
