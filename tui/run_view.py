@@ -30,6 +30,7 @@ from .goal_editor import GoalEditor
 from .key_help import KeyHelp
 from .problem_facts import ProblemFacts
 from .results import result_path
+from .trust_text import trust_details, trust_line, trust_of
 from .widgets.convergence import ConvergenceChart
 from .widgets.density import RefinementMap
 from .widgets.guard import PanelFailed
@@ -268,6 +269,7 @@ class RunView(Screen):
             pass
 
     def _start_engine(self) -> None:
+        self.query_one("#readout", Readout).trust = ""      # checks of an earlier ending no longer apply
         self._started = True
         self._engine_live = True
         self._drive()
@@ -290,9 +292,20 @@ class RunView(Screen):
             self.say("converged: the error estimate met the goal (an estimate, not a bound)", "ok")
         else:
             self.say(f"finished with status {st}: NOT converged", "warn")
+        self._show_trust(self.run.result())
         if st == "stopped":
             self._save("stopped early, current estimate kept")
         self.refresh_bindings()
+
+    def _show_trust(self, result) -> None:
+        """The engine's trust checks: a short line in the read-out, the details in the notes (issue 12)."""
+        trust = trust_of(result)
+        self.query_one("#readout", Readout).trust = trust_line(trust)
+        if trust is None:
+            return
+        level = "ok" if trust.get("smooth") and str(trust.get("audit", "")).startswith("passed") else "warn"
+        for k, line in enumerate(trust_details(trust, self.meta.variables)):
+            self.notes.say(line, level if k == 0 else "info")
 
     @_while_shown
     def _tick(self) -> None:
@@ -361,6 +374,7 @@ class RunView(Screen):
         level = "ok" if st == "converged" else "warn"
         tail = "" if st == "converged" else " — NOT converged"
         self.say(f"verdict.json: status {st}, value {vt} ± {et} (estimate){tail}", level)
+        self._show_trust(res)
 
     # -- showing a snapshot -----------------------------------------------------------
     def _show(self, snap: Snapshot) -> None:

@@ -48,6 +48,8 @@ class Readout(Static):
     state: reactive[str] = reactive("ready")
     #: A line shown under a final status instead of its meaning (e.g. how to continue a run).
     hint: reactive[str] = reactive("")
+    #: The engine's trust checks in a few words (empty: none reported).
+    trust: reactive[str] = reactive("")
 
     def __init__(self, meta: ProblemFacts, **kw):
         super().__init__(**kw)
@@ -120,6 +122,10 @@ class Readout(Static):
             t.append("-\n", "dim")
         else:
             self._forecast_text(t, s)
+        if self.trust and is_final(word):
+            t.append("trust ", "dim")
+            t.append(self.trust + "\n", "#5fd38a" if "smooth" in self.trust.split(" · ")
+                     and "passed" in self.trust else "#f08a5d")
         t.append(ESTIMATE_NOTE, "italic dim")
         if is_final(word) and t.plain.count("\n") + 2 <= (self.size.height or 99):
             if self.hint:
