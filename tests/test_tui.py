@@ -833,3 +833,49 @@ def test_forecast_shows_when_the_goal_lies_beyond_the_budget(probs):
             await pilot.pause(0.2)
             assert "beyond budget (~10G evals)" in screen_text(app)
     run(go())
+
+
+@pytest.mark.parametrize("sig", ["SIGHUP", "SIGTERM"])
+def test_ui_ends_on_hangup_and_keeps_the_estimate(probs, cubage, sig):
+    """The UI on a terminal that goes away (SIGHUP) or is asked to end (SIGTERM) exits within seconds and
+    writes the live run's current estimate; before, the command's handlers swallowed the signal and the UI
+    lived on without its terminal (found while trying the UI in tmux; issue 10, 'nothing lost')."""
+    import os
+    import pty
+    import signal
+    import threading
+    master, slave = pty.openpty()
+    proc = cubage.start("tui", str(probs / "b_kink.toml"), stdin=slave, stdout=slave, stderr=slave,
+                        env={"TERM": "xterm-256color", "COLUMNS": "80", "LINES": "24"}, start_new_session=True)
+    os.close(slave)
+    seen = bytearray()
+
+    def drain():
+        while True:
+            try:
+                data = os.read(master, 65536)
+            except OSError:
+                return
+            if not data:
+                return
+            seen.extend(data)
+    reader = threading.Thread(target=drain, daemon=True)
+    reader.start()
+    result = probs / "b_kink.result.json"
+    try:
+        cubage.wait_for(lambda: b"Open & run" in seen, proc, 60, "the picker")
+        os.write(master, b"\r")
+        cubage.wait_for(lambda: b"READY" in seen, proc, 60, "the run view")
+        os.write(master, b"g")
+        cubage.wait_for(lambda: b"RUNNING" in seen, proc, 60, "the run")
+        time.sleep(0.5)
+        proc.send_signal(getattr(signal, sig))
+        assert proc.wait(timeout=20) == 130
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+        os.close(master)
+    rec = json.loads(result.read_text())
+    assert rec["status"] == "stopped" and rec["evaluations"] > 0
+    assert abs(rec["value"] - THIRD) < 1e-3                  # 1/3, closed form (elementary)

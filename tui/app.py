@@ -14,6 +14,7 @@ from textual.binding import Binding
 from cubage.problem.problem_file import ProblemError, list_problems, problem_dirs
 from cubage.session.follower import RunFollower
 from cubage.session.run_directory import SOURCE
+from cubage.session.status import EXIT_INTERRUPTED
 
 from .picker import PickerScreen
 from .problem_facts import ProblemFacts
@@ -45,12 +46,54 @@ class CubageApp(App):
         self.follow = follow
         self.allow_python = allow_python
 
+    #: Signals that end the UI cleanly: a closed terminal or SSH session (SIGHUP) and a polite kill (SIGTERM).
+    END_SIGNALS = ("SIGHUP", "SIGTERM")
+
     def on_mount(self) -> None:
+        self.ended_by: str | None = None
+        self._watch_signals()
         if self.follow is not None:
             follower, meta = self.follow
             self.push_screen(RunView(meta, follower=follower, can_go_back=False))
         else:
             self.push_screen(PickerScreen(self.files, allow_python=self.allow_python))
+
+    def _watch_signals(self) -> None:
+        """End the UI on SIGHUP/SIGTERM instead of living on without a terminal.
+
+        Without this, the command's own handlers (which stop a headless run)
+        swallowed the signal and a UI whose SSH session dropped kept running
+        and drawing into a dead terminal.  The handlers live on the event
+        loop, so they act between two of its callbacks.
+        """
+        import asyncio
+        import signal
+        try:
+            loop = asyncio.get_running_loop()
+        except RuntimeError:
+            return
+        for name in self.END_SIGNALS:
+            sig = getattr(signal, name, None)
+            if sig is None:
+                continue
+            try:
+                loop.add_signal_handler(sig, self.end_for_signal, name)
+            except (NotImplementedError, RuntimeError, ValueError):   # not the main thread, or no such support
+                pass
+
+    def end_for_signal(self, name: str) -> None:
+        """Stop what runs (each screen keeps its estimate: a live run writes its result record), then exit."""
+        if self.ended_by is not None:
+            return
+        self.ended_by = name
+        for screen in list(self.screen_stack):
+            fn = getattr(screen, "end_for_signal", None)
+            if callable(fn):
+                try:
+                    fn(name)
+                except Exception:  # noqa: BLE001 - ending must go on whatever a screen does
+                    pass
+        self.exit(EXIT_INTERRUPTED)
 
     async def action_quit(self) -> None:
         screen = self.screen

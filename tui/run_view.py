@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import functools
+import time
 from pathlib import Path
 
 import numpy as np
@@ -602,6 +603,18 @@ class RunView(Screen):
 
     def action_leave(self) -> None:
         self._after_confirm(lambda: self.app.exit(0))
+
+    def end_for_signal(self, name: str) -> None:
+        """The UI ends on ``name`` (SIGHUP, SIGTERM): a live run stops and its current estimate is written."""
+        if self.driver is None or not self._started:
+            return
+        live = self._engine_live
+        self.driver.stop(name)
+        end = time.monotonic() + 5.0          # the current step finishes, then the run is "stopped"
+        while live and not self.run.done and time.monotonic() < end:
+            time.sleep(0.02)
+        if live or self.run.status == "stopped":
+            self._save(f"the UI ended on {name}; current estimate kept")
 
     def on_unmount(self) -> None:
         if self.driver is not None:
