@@ -33,6 +33,8 @@ from cubage.problem.scan_table import ScanGrid
 from cubage.session.run_directory import HALT_REQUEST, LEDGER, OCCUPANT, SOURCE, VERDICT
 from cubage.session.scan import POINTS_FILE, PointResult, _ScanFiles
 
+from .widgets.guard import guarded
+
 POLL_SECONDS = 0.5
 
 
@@ -195,6 +197,7 @@ class ScanCurve(PlotextPlot):
         self._heat: Text | None = None
         self._points: dict[int, PointResult] = {}
 
+    @guarded("draw")
     def render(self):
         if self._empty:
             return Text("no finished point yet", style="dim")
@@ -208,6 +211,7 @@ class ScanCurve(PlotextPlot):
         except Exception as exc:  # noqa: BLE001 - a plotting hiccup must not end the UI
             return Text(f"(chart unavailable: {type(exc).__name__})", style="dim")
 
+    @guarded("update")
     def show(self, points: dict[int, PointResult]) -> None:
         plt = self.plt
         plt.clear_data()
@@ -290,6 +294,7 @@ class PointConvergence(PlotextPlot):
         super().__init__(**kw)
         self._empty = True
 
+    @guarded("draw")
     def render(self):
         if self._empty:
             return Text("no point running", style="dim")
@@ -298,6 +303,7 @@ class PointConvergence(PlotextPlot):
         except Exception as exc:  # noqa: BLE001
             return Text(f"(chart unavailable: {type(exc).__name__})", style="dim")
 
+    @guarded("update")
     def show(self, live: list[dict]) -> None:
         plt = self.plt
         plt.clear_data()
