@@ -24,7 +24,7 @@ from cubage.session.follower import RunFollower
 from cubage.session.jsonio import write_json
 from cubage.session.prepare import InputError, Overrides, PreparedRun, prepare_run
 from cubage.session.result_record import result_record
-from cubage.session.status import is_final
+from cubage.session.status import REOPENABLE, is_final
 
 from .confirm import AskModal
 from .goal_editor import GoalEditor
@@ -50,8 +50,6 @@ SNAPSHOT_EVERY = 0.2
 FIELD_LABELS = {"rel_tol": "rel tol", "abs_tol": "abs tol", "budget": "budget", "workers": "workers",
                 "time_limit": "time limit"}
 PANELS = ("queue-tab", "map-tab", "notes-tab")
-#: Endings after which a new goal (goal editor) lets the run go on from its current partition.
-REOPENABLE = ("converged", "budget-spent", "time-limit", "stopped")
 
 
 def _while_shown(method):
