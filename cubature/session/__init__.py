@@ -20,9 +20,25 @@ Module map::
                         engine's trust checks when its Result has them
     jsonio.py           the one JSON rule for non-finite numbers; write_json over the one atomic write
     forecast.py         the one time-to-goal forecast, and the one duration format (duration_text)
-    status.py           the status words (engine + session), which are final, exit codes
+    status.py           the status words (engine + session), which are final or reopenable, exit codes
+    scan.py             scans: one integral over a grid of constants, warm-started, resumable
+                        (cubage.scan; its run-directory files sit beside the ones above)
 
 Dependencies point down only: this package imports the engine and the problem
-format, never a front end.  Nothing here is imported by ``import cubage``;
-import the module you need (``from cubage.session.prepare import prepare_run``).
+format, never a front end.  ``import cubage`` loads none of it (``cubage.scan``
+loads scan.py on first use); import the module you need
+(``from cubage.session.prepare import prepare_run``).
+
+The API in ten lines (what a front end calls)::
+
+    prep = prepare_run(problem, Overrides(rel_tol=..., budget=..., workers=..., labels={...}))
+    prep.start_evaluator()                  # after StopSignals is installed (it may start a pool)
+    driver = RunDriver(prep.run, rundir=rd, on_snapshot=show)   # any thread
+    driver.pause() / resume() / stop(reason) / set_goal(rel_tol=, budget=)   # any thread
+    out = driver.drive()                    # Outcome: result, snapshot, failure, stop_reason, storage_error
+    rec = result_record(out.result, problem=problem, settings=prep.settings_record(), written_by=...)
+    write_json(path, rec)                   # the JSON rule + atomic write with fsync
+    f = RunFollower(dir); f.poll(); f.snapshot, f.status, f.gone_message, f.request_stop()
+    forecast(history, goal, rate, budget=...) -> Forecast; duration_text(seconds)
+    is_final(status), REOPENABLE, meaning(status); check_tolerance/check_budget/check_workers(x, where)
 """
