@@ -483,3 +483,21 @@ def test_trail_lines_stay_small_whatever_the_history(tmp_path):
     assert max(sizes) < 1500, sizes                      # bounded, whatever the number of new rows
     assert len(json.loads(json.dumps(trail_line(snap, new_rows(snap.history, -1.0))))["rows"]) == ROWS_PER_LINE
     assert len(json.dumps(map_record(snap))) > 10 * max(sizes)   # the large part lives in trail-map.json
+
+
+def test_ctrl_c_leaves_watch_and_not_the_run(tmp_path, cli):
+    """Ctrl-C in `cubage watch` leaves the viewer quietly (exit 0); the followed run is not touched."""
+    import signal
+    import threading
+    d = tmp_path / "rd"
+    d.mkdir()
+    (d / "ledger.json").write_text(json.dumps({"layout": "cubage-run-dir 2", "problem": "p"}))
+    (d / "occupant.json").write_text(json.dumps({"pid": os.getpid(), "host": socket.gethostname(), "started": "t"}))
+    timer = threading.Timer(0.8, os.kill, (os.getpid(), signal.SIGINT))
+    timer.start()
+    try:
+        code, out, err = cli("watch", d, "--plain")
+    finally:
+        timer.cancel()
+    assert code == 0 and "left; the run goes on" in out and "Traceback" not in err
+    assert not (d / "halt-request").exists()

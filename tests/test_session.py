@@ -199,6 +199,9 @@ def test_stop_signals_stop_what_is_attached_and_restore_handlers():
         assert late._stop.is_set()
         with pytest.raises(KeyboardInterrupt):
             os.kill(os.getpid(), signal.SIGTERM)   # a second signal is the way out of a hanging step
+    with StopSignals():
+        with pytest.raises(KeyboardInterrupt):    # nothing attached (start-up, a viewer): end the command
+            os.kill(os.getpid(), signal.SIGHUP)
     assert signal.getsignal(signal.SIGTERM) is before
 
 

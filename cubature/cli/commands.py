@@ -470,7 +470,6 @@ def cmd_run(args, guard) -> int:
             for n in rd.notes:
                 _err(f"cubage: note: {n}")
         every = args.checkpoint_every if args.checkpoint_every is not None else 60.0
-        guard.detach(prep.run)
         return _execute(prep, args, name=name, guard=guard, rundir=rd, checkpoint_every=every,
                         written_by="cubage run")
     finally:
@@ -527,7 +526,6 @@ def cmd_resume(args, guard) -> int:
             _err(f"cubage: note: {n}")
         rd.add_session(ledger, _session_entry(prep, "resume"))
         rd.clear_verdict()                     # a follower must not take the old ending for this session's
-        guard.detach(prep.run)
         return _execute(prep, args, name=name, guard=guard, rundir=rd, log_after=rd.last_logged_evaluations(),
                         checkpoint_every=float(every), written_by="cubage resume")
     finally:
@@ -671,34 +669,38 @@ def cmd_watch(args) -> int:
     ticker = PlainTicker(None, every=args.every, stream=sys.stdout, prefix="watch")
     said: set[str] = set()
     first = True
-    while True:
-        f.poll()
-        if f.last_error and f.last_error not in said:
-            said.add(f.last_error)
-            _err(f"cubage: note: {f.last_error}")
-        status = f.status
-        if f.snapshot is not None:
-            ticker(f.snapshot, final=first or args.once)
-            first = False
-        if f.result is not None:
-            res = f.result
-            try:
-                v = ", ".join(f"{number_from_json(x):.12e}" for x in
-                              (res["value"] if isinstance(res.get("value"), list) else [res.get("value")]))
-                e = ", ".join(f"{number_from_json(x):.2e}" for x in
-                              (res["error"] if isinstance(res.get("error"), list) else [res.get("error")]))
-                print(f"cubage watch: ended: {status}: {v} ± {e} (estimate)", flush=True)
-            except (TypeError, ValueError, KeyError):
-                print(f"cubage watch: ended: {status}", flush=True)
-            return exit_code(status)
-        if status == "runner-gone":
-            print(f"cubage watch: {f.gone_message}", flush=True)
-            return SHORT
-        if args.once:
-            if f.snapshot is None:
-                print(f"cubage watch: {status}: no progress line yet", flush=True)
-            return EXIT_OK
-        time.sleep(0.5)
+    try:                                  # Ctrl-C leaves the viewer; the run it follows goes on
+        while True:
+            f.poll()
+            if f.last_error and f.last_error not in said:
+                said.add(f.last_error)
+                _err(f"cubage: note: {f.last_error}")
+            status = f.status
+            if f.snapshot is not None:
+                ticker(f.snapshot, final=first or args.once)
+                first = False
+            if f.result is not None:
+                res = f.result
+                try:
+                    v = ", ".join(f"{number_from_json(x):.12e}" for x in
+                                  (res["value"] if isinstance(res.get("value"), list) else [res.get("value")]))
+                    e = ", ".join(f"{number_from_json(x):.2e}" for x in
+                                  (res["error"] if isinstance(res.get("error"), list) else [res.get("error")]))
+                    print(f"cubage watch: ended: {status}: {v} ± {e} (estimate)", flush=True)
+                except (TypeError, ValueError, KeyError):
+                    print(f"cubage watch: ended: {status}", flush=True)
+                return exit_code(status)
+            if status == "runner-gone":
+                print(f"cubage watch: {f.gone_message}", flush=True)
+                return SHORT
+            if args.once:
+                if f.snapshot is None:
+                    print(f"cubage watch: {status}: no progress line yet", flush=True)
+                return EXIT_OK
+            time.sleep(0.5)
+    except KeyboardInterrupt:
+        print("cubage watch: left; the run goes on", flush=True)
+        return EXIT_OK
 
 
 def _ui(paths=None, watch=None, allow_python=False) -> int:

@@ -13,8 +13,8 @@ when :meth:`RunDriver.drive` is called again).
 :class:`StopSignals` is installed at the very start of a command, before any
 worker pool can start, and covers every phase: the first SIGINT, SIGTERM or
 SIGHUP asks whatever is attached (the main run, then the second-opinion run)
-to stop after its step; a second one raises :class:`KeyboardInterrupt`, the
-way out of a step that hangs.
+to stop after its step; a second one (or one while nothing is attached)
+raises :class:`KeyboardInterrupt`, the way out of a step that hangs.
 """
 
 from __future__ import annotations
@@ -240,11 +240,13 @@ class RunDriver:
 class StopSignals:
     """SIGINT/SIGTERM/SIGHUP handling for a whole command (use as a context manager, in the main thread).
 
-    Install it before anything that may start a worker pool.  The first
-    signal is remembered in :attr:`received` and passed to every attached
-    target's ``stop(reason)``; a target attached later is stopped at once.
-    A second signal raises :class:`KeyboardInterrupt`.  Outside the main
-    thread nothing is installed.
+    Install it before anything that may start a worker pool, and attach the
+    run before starting the pool.  The first signal is remembered in
+    :attr:`received` and passed to every attached target's ``stop(reason)``;
+    a target attached later is stopped at once.  A signal while nothing is
+    attached, or a second signal, raises :class:`KeyboardInterrupt` (the
+    command ends quietly, exit 130).  Outside the main thread nothing is
+    installed.
     """
 
     SIGNALS = ("SIGINT", "SIGTERM", "SIGHUP")
@@ -256,8 +258,9 @@ class StopSignals:
 
     def _handler(self, signum, frame):
         name = signal.Signals(signum).name
-        if self.received is not None:
-            raise KeyboardInterrupt
+        if self.received is not None or not self._targets:
+            self.received = self.received or name
+            raise KeyboardInterrupt     # nothing to stop cleanly (or asked twice): end the command now
         self.received = name
         for t in list(self._targets):
             try:
