@@ -879,3 +879,48 @@ def test_ui_ends_on_hangup_and_keeps_the_estimate(probs, cubage, sig):
     rec = json.loads(result.read_text())
     assert rec["status"] == "stopped" and rec["evaluations"] > 0
     assert abs(rec["value"] - THIRD) < 1e-3                  # 1/3, closed form (elementary)
+
+
+PLANE_KINK = """title = "kink along a plane"
+[domain]
+variables = ["x", "y", "z"]
+box = [[0, 1], [0, 1], [0, 1]]
+[integrand]
+expr = "abs(x + y + z - 1.4)"
+[goal]
+rel_tol = 1e-9
+budget = 60000
+"""
+
+
+def test_trust_checks_are_shown(probs, tmp_path):
+    """issue 12 item 5 (display): the run view shows the engine's trust checks of the result: a short line
+    in the read-out, the audit and the non-smooth regions (with their bounds) in the notes, and says that
+    error estimates are heuristic."""
+    (tmp_path / "plane.toml").write_text(PLANE_KINK)
+
+    async def go():
+        app = CubageApp(collect_files([str(probs / "a_exp2.toml"), str(tmp_path / "plane.toml")]))
+        async with app.run_test(size=(80, 24)) as pilot:
+            view = await open_problem(pilot, app, 0)
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "converged")
+            await pilot.pause(0.3)
+            text = screen_text(app)
+            assert "trust audit ok · smooth" in text and "not a bound" in text
+            notes = "\n".join(view.notes.lines_text)
+            assert "trust checks: audit passed" in notes and "heuristic" in notes
+            await pilot.press("b")
+            view = await open_problem(pilot, app, 1)
+            await pilot.press("g")
+            assert await wait_until(pilot, lambda: view.state == "budget-spent", 30)
+            await pilot.pause(0.3)
+            assert "non-smooth" in screen_text(app)
+            notes = "\n".join(view.notes.lines_text)
+            # the kink x + y + z = 1.4 crosses the flagged regions: their bounds name the variables
+            assert re.search(r"non-smooth region \(.*\), error .*: x∈\[.*\] y∈\[.*\] z∈\[", notes)
+            worst = view.run.result().trust["worst"]
+            assert worst
+            for w in worst:          # each flagged region is cut by the plane x + y + z = 1.4 (the kink)
+                assert sum(w["lower"]) <= 1.4 <= sum(w["upper"])
+    run(go())

@@ -302,7 +302,7 @@ class RunView(Screen):
         self.query_one("#readout", Readout).trust = trust_line(trust)
         if trust is None:
             return
-        level = "ok" if trust.get("smooth") and str(trust.get("audit", "")).startswith("passed") else "warn"
+        level = "ok" if trust_line(trust) == "audit ok · smooth" else "warn"
         for k, line in enumerate(trust_details(trust, self.meta.variables)):
             self.notes.say(line, level if k == 0 else "info")
 

@@ -25,21 +25,29 @@ def trust_of(result) -> dict | None:
     return t if isinstance(t, dict) and t else None
 
 
+def _audit_word(audit: str) -> str:
+    a = str(audit)
+    if a.startswith("passed"):
+        return "audit ok"
+    if a.startswith("failed"):
+        return "audit failed"
+    if a.startswith("not run"):
+        return "no audit"
+    return "audit: " + a[:20]
+
+
 def trust_line(trust: dict | None) -> str:
-    """One short line: ``audit passed · smooth`` or ``audit failed · non-smooth: 35% of the error``."""
+    """A few words for the read-out: ``audit ok · smooth`` or ``no audit · non-smooth 85%`` (of the error)."""
     if not trust:
         return ""
     try:
-        parts = [f"audit {trust.get('audit', 'not run')}"]
+        parts = [_audit_word(trust.get("audit", "not run"))]
         if trust.get("smooth", False):
             parts.append("smooth")
+        elif int(trust.get("flagged_regions") or 0):
+            parts.append(f"non-smooth {float(trust.get('flagged_error_share') or 0.0):.0%}")
         else:
-            share = float(trust.get("flagged_error_share") or 0.0)
-            n = int(trust.get("flagged_regions") or 0)
-            if n:
-                parts.append(f"non-smooth: {share:.0%} of the error in {n} regions")
-            else:
-                parts.append(f"{int(trust.get('disagreed') or 0)} splits corrected")
+            parts.append(f"{int(trust.get('disagreed') or 0)} splits corrected")
         return " · ".join(parts)
     except (TypeError, ValueError, AttributeError):
         return ""

@@ -124,8 +124,8 @@ class Readout(Static):
             self._forecast_text(t, s)
         if self.trust and is_final(word):
             t.append("trust ", "dim")
-            t.append(self.trust + "\n", "#5fd38a" if "smooth" in self.trust.split(" · ")
-                     and "passed" in self.trust else "#f08a5d")
+            good = self.trust == "audit ok · smooth"
+            t.append(self.trust + "\n", "#5fd38a" if good else "#f08a5d")
         t.append(ESTIMATE_NOTE, "italic dim")
         if is_final(word) and t.plain.count("\n") + 2 <= (self.size.height or 99):
             if self.hint:
