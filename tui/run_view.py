@@ -18,7 +18,7 @@ from textual.reactive import reactive
 from textual.screen import Screen
 from textual.widgets import Footer, Header, Static, TabbedContent, TabPane
 
-from cubage.engine.run import Snapshot
+from cubage import Snapshot
 from cubage.session.driver import Outcome, RunDriver
 from cubage.session.follower import RunFollower
 from cubage.session.jsonio import write_json

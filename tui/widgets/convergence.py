@@ -7,7 +7,7 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual_plotext import PlotextPlot
 
-from cubage.engine.run import Snapshot
+from cubage import Snapshot
 
 from ..drawing import thin_log
 from ..problem_facts import ProblemFacts

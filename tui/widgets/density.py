@@ -7,7 +7,7 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widgets import Static
 
-from cubage.engine.run import Snapshot
+from cubage import Snapshot
 
 from ..drawing import density_grid
 from ..problem_facts import ProblemFacts

@@ -11,7 +11,7 @@ from textual.containers import Vertical
 from textual.reactive import reactive
 from textual.widgets import DataTable, Sparkline, Static
 
-from cubage.engine.run import Snapshot
+from cubage import Snapshot
 
 from ..drawing import fmt_count
 from ..problem_facts import ProblemFacts

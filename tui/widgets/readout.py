@@ -9,7 +9,7 @@ from rich.text import Text
 from textual.reactive import reactive
 from textual.widgets import Static
 
-from cubage.engine.run import Snapshot
+from cubage import Snapshot
 from cubage.session.forecast import duration_text, forecast
 from cubage.session.status import is_final, meaning
 
