@@ -561,7 +561,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", default="bench-out", metavar="DIR",
                    help="folder for results.md, results.csv and runs.csv (default bench-out/)")
     p.add_argument("--quick", action="store_true",
-                   help="a small suite (about 20 s on a shared 2-core machine, measured): d = 2..4, 3 draws, "
+                   help="a small suite (20-35 s on a shared 2-core machine, measured): d = 2..4, 3 draws, "
                         "strategies gm and gm/plain, peer scipy-gm, tol 1e-6, budget 200000 "
                         "(explicit options still win)")
     p.add_argument("--no-chart", action="store_true", help="skip the error-vs-evaluations chart")
