@@ -507,11 +507,24 @@ def cmd_resume(args, guard) -> int:
         try:                                  # the ledger's values pass the same checks as the options
             if o.workers is None and saved.get("workers") is not None:
                 o.workers = check_workers(saved["workers"], f"{where}.workers")
+                cores = os.cpu_count() or 1
+                if isinstance(o.workers, int) and o.workers > cores:     # issue 10 item 15d
+                    _err(f"cubage: note: {where}.workers = {o.workers} capped at this machine's {cores} cores "
+                         "(--workers N sets any number)")
+                    o.workers = cores
             for k in ("backend", "cluster"):
                 if getattr(o, k) is None and saved.get(k) is not None:
                     if not isinstance(saved[k], str):
                         raise RunDirError(f"{where}.{k}: must be a string, not {type(saved[k]).__name__}")
                     setattr(o, k, saved[k])
+            if args.cluster is None and o.cluster is not None and not args.allow_python:
+                # a saved cluster is never reconnected without being named again (issue 10 item 0)
+                _err(f"cubage: note: {where}.cluster names the dask cluster {o.cluster}, not reconnected: a dask "
+                     "scheduler can run code in this process; name it again with --cluster (or pass "
+                     "--allow-python); evaluating on this machine")
+                o.cluster = None
+                if args.backend is None and o.backend == "dask":
+                    o.backend = None
             every = args.checkpoint_every
             if every is None:
                 every = saved.get("checkpoint_every", 60.0)

@@ -321,26 +321,120 @@ def _need_distributed():
     return distributed
 
 
+#: Seconds a dask scheduler has to send its handshake (and the client to finish connecting, x3).
+CONNECT_SECONDS = 5.0
+#: Address schemes of dask schedulers accepted by :func:`make_evaluator`.
+CLUSTER_SCHEMES = ("tcp", "tls")
+
+
+def _read_exactly(sock, n: int, deadline: float) -> bytes:
+    buf = b""
+    while len(buf) < n:
+        left = deadline - time.monotonic()
+        if left <= 0:
+            raise TimeoutError(f"no dask handshake within {CONNECT_SECONDS:g} s")
+        sock.settimeout(left)
+        try:
+            part = sock.recv(n - len(buf))
+        except TimeoutError:
+            raise TimeoutError(f"no dask handshake within {CONNECT_SECONDS:g} s") from None
+        if not part:
+            raise ConnectionError("the server closed the connection without a dask handshake")
+        buf += part
+    return buf
+
+
+def _probe_scheduler(address: str) -> None:
+    """Check, within :data:`CONNECT_SECONDS`, that a dask scheduler answers at a ``tcp://`` address.
+
+    A dask server sends its handshake first, as one message framed by an
+    8-byte little-endian length (``distributed.comm.tcp``); anything else (an
+    HTTP server, a silent port, a closed one) is refused here, before the
+    cluster client would block on it for minutes (issue 10 item 15b).
+    Nothing is sent to the server.
+    """
+    import socket
+    import struct
+    hostport = address.split("://", 1)[1]
+    host, sep, port = hostport.rpartition(":")
+    host = host.strip("[]")
+    if not sep or not host or not port.isdigit() or not 0 < int(port) < 65536:
+        raise ValueError("is not a scheduler address like tcp://host:8786")
+    deadline = time.monotonic() + CONNECT_SECONDS
+    try:
+        sock = socket.create_connection((host, int(port)), timeout=CONNECT_SECONDS)
+    except (OSError, UnicodeError) as exc:
+        raise ValueError(f"cannot connect: {_one_line(exc)}") from None
+    try:
+        with sock:
+            (size,) = struct.unpack("<Q", _read_exactly(sock, 8, deadline))
+            if not 0 < size <= 1 << 16:
+                raise ValueError("is not a dask scheduler (it answers, but without a dask handshake)")
+            body = _read_exactly(sock, size, deadline)
+            if b"compression" not in body or b"python" not in body:
+                raise ValueError("is not a dask scheduler (it answers, but without a dask handshake)")
+    except (TimeoutError, ConnectionError, OSError) as exc:
+        raise ValueError(f"is not a dask scheduler ({_one_line(exc)})") from None
+
+
+def _scheduler_address(where: str) -> str:
+    """The address in a dask scheduler file (JSON with an ``address``), or a one-line ValueError."""
+    p = Path(where)
+    if not p.is_file():
+        raise ValueError(f"cluster {where!r}: no such scheduler file "
+                         "(give tcp://host:port or the path of a scheduler file)")
+    try:
+        if p.stat().st_size > 1 << 20:
+            raise ValueError("too large")
+        info = json.loads(p.read_text(encoding="utf-8"))
+        address = info["address"]
+        if not isinstance(address, str) or "://" not in address:
+            raise ValueError("no address")
+    except (OSError, UnicodeDecodeError, ValueError, KeyError, TypeError):
+        raise ValueError(f"cluster {where!r}: not a dask scheduler file (JSON with an \"address\")") from None
+    return address
+
+
 def _connect(cluster):
-    """A ``distributed.Client`` for an address, a scheduler file or a Client (returned as is)."""
+    """A ``distributed.Client`` for an address, a scheduler file or a Client (returned as is).
+
+    An address is checked first (scheme, then the scheduler's handshake
+    within :data:`CONNECT_SECONDS`); the client must then connect within
+    three times that.  Every failure is a one-line ValueError.
+    """
     distributed = _need_distributed()
     if isinstance(cluster, distributed.Client):
         return cluster, False, str(cluster.scheduler.address)
     where = str(cluster).strip()
     if not where:
         raise ValueError("cluster must be a scheduler address (tcp://host:8786) or a scheduler-file path")
-    try:
-        if "://" in where:
-            client = distributed.Client(where, timeout="10s", set_as_default=False)
-        else:
-            if not Path(where).is_file():
-                raise ValueError(f"cluster {where!r}: no such scheduler file "
-                                 "(give tcp://host:port or the path of a scheduler file)")
-            client = distributed.Client(scheduler_file=where, timeout="10s", set_as_default=False)
-    except ValueError:
-        raise
-    except Exception as exc:  # noqa: BLE001 - OSError/TimeoutError from the network layer
-        raise ValueError(f"cannot reach the dask scheduler at {where}: {_one_line(exc)}") from None
+    address = where if "://" in where else _scheduler_address(where)
+    scheme = address.split("://", 1)[0].lower()
+    if scheme not in CLUSTER_SCHEMES:
+        raise ValueError(f"cluster {where!r}: unsupported scheme {scheme!r} "
+                         f"(a dask scheduler address starts with {' or '.join(s + '://' for s in CLUSTER_SCHEMES)})")
+    if scheme == "tcp":
+        try:
+            _probe_scheduler(address)
+        except ValueError as exc:
+            raise ValueError(f"cluster {where!r}: {exc}") from None
+    box: dict = {}
+
+    def connect():
+        try:
+            box["client"] = distributed.Client(address, timeout=f"{CONNECT_SECONDS:g}s", set_as_default=False)
+        except BaseException as exc:  # noqa: BLE001 - reported below
+            box["error"] = exc
+
+    import threading
+    t = threading.Thread(target=connect, name="cubage-dask-connect", daemon=True)
+    t.start()
+    t.join(3 * CONNECT_SECONDS)
+    if "client" not in box:
+        err = box.get("error")
+        why = _one_line(err) if err is not None else f"no connection within {3 * CONNECT_SECONDS:g} s"
+        raise ValueError(f"cannot reach the dask scheduler at {where}: {_clip(why, 160)}")
+    client = box["client"]
     return client, True, str(client.scheduler.address)
 
 

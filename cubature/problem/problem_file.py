@@ -25,6 +25,7 @@ and a caret line follow).
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import hashlib
 import importlib
@@ -32,6 +33,7 @@ import importlib.resources
 import importlib.util
 import json
 import math
+import os
 import reprlib
 import tomllib
 from collections.abc import Callable
@@ -124,6 +126,12 @@ class Method:
     workers: int | str = 1
     backend: str = "auto"
     cluster: str | None = None
+    #: A ``cluster`` the file names but that is not used: a dask scheduler can run code in this
+    #: process, so a file's cluster counts only when the file is trusted (``allow_python``);
+    #: otherwise :func:`bind_problem` keeps it here (for messages) and ``cluster`` is None (issue 10 item 0).
+    cluster_ignored: str | None = None
+    #: The file's ``workers`` when it was above this machine's cores and capped (issue 10 item 15d).
+    workers_asked: int | None = None
 
 
 @dataclass
@@ -311,8 +319,12 @@ def _describe(variables, domain, spec, components, goal, method, reference, scan
     if m.degree is not None:
         meth += f" (degree {m.degree})"
     meth += f", workers {m.workers}, backend {m.backend}"
+    if m.workers_asked:
+        meth += f" (the file asks for {m.workers_asked} workers; capped at this machine's cores)"
     if m.cluster:
         meth += f", cluster {m.cluster}"
+    if m.cluster_ignored:
+        meth += f", cluster {m.cluster_ignored} not used (needs --cluster or --allow-python)"
     rows.append(("method", meth))
     if reference is not None:
         v = reference.value
@@ -770,9 +782,14 @@ def bind_problem(spec: ProblemSpec, *, allow_python: bool = False) -> Problem:
         components = _probe_components(ctx, f, spec.domain, target)
         if reference is not None:
             _check_reference_count(ctx, reference.value, components)
+    method = spec.method
+    if method.cluster is not None and not allow_python:
+        # never connect to a scheduler named by an untrusted file (issue 10 item 0)
+        method = dataclasses.replace(method, cluster=None, cluster_ignored=method.cluster,
+                                     backend="auto" if method.backend == "dask" else method.backend)
     return Problem(path=spec.path, text=spec.text, title=spec.title, notes=spec.notes,
                    variables=list(spec.variables), domain=spec.domain, integrand=f, integrand_spec=ispec,
-                   components=components, goal=spec.goal, method=spec.method, reference=reference,
+                   components=components, goal=spec.goal, method=method, reference=reference,
                    scan=spec.scan, spec=spec)
 
 
@@ -1112,6 +1129,11 @@ def _parse_method(ctx, tbl, domain) -> Method:
             raise ctx.error("method", "workers", f'must be a whole number >= 1 or "auto", got {_tname(v)} {_short(v)}')
         elif v < 1:
             raise ctx.error("method", "workers", f"must be at least 1, got {v}")
+        cores = os.cpu_count() or 1
+        if isinstance(v, int) and v > cores:
+            # a file from someone else must not spawn processes without bound (issue 10 item 15d);
+            # --workers on the command line is not capped
+            m.workers_asked, v = v, cores
         m.workers = v
     if "backend" in tbl:
         m.backend = _choice(ctx, "backend", tbl["backend"], BACKENDS)

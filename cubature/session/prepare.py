@@ -196,7 +196,22 @@ def make_evaluator(problem, workers=None, backend=None, cluster=None, *, labels:
             "workers" if "workers" in msg else "backend"
         where = labels.get(key, key) if given[key] is not None else _problem_where(problem, "method", key)
         raise InputError(f"{where}: {msg}") from None
-    return ev, parallel.describe_evaluator(ev), None
+    return ev, parallel.describe_evaluator(ev), _method_note(problem, given)
+
+
+def _method_note(problem, given: dict) -> str | None:
+    """What of the file's method was not applied: an untrusted cluster, workers above the cores (issue 10
+    items 0 and 15d; the problem file keeps them in ``cluster_ignored`` / ``workers_asked``)."""
+    m = problem.method
+    notes = []
+    if given.get("cluster") is None and getattr(m, "cluster_ignored", None):
+        notes.append(f"{_problem_where(problem, 'method', 'cluster')} {m.cluster_ignored} not used: cubage "
+                     "connects only to a cluster named with --cluster (or a trusted file's, with --allow-python), "
+                     "since a dask scheduler can run code in this process; evaluating on this machine")
+    if given.get("workers") is None and getattr(m, "workers_asked", None):
+        notes.append(f"{_problem_where(problem, 'method', 'workers')} = {m.workers_asked} capped at this "
+                     f"machine's {m.workers} cores (--workers N sets any number)")
+    return "; ".join(notes) or None
 
 
 def close_evaluator(ev) -> None:

@@ -1,0 +1,227 @@
+"""A problem file or a run directory never connects cubage to a dask cluster by itself.
+
+Issue 10 item 0: the cluster protocol unpickles what the scheduler sends, so
+whoever runs a scheduler that cubage connects to can run code in cubage.  A
+cluster is therefore used only when named on the command line (``--cluster``)
+or when the file is trusted with ``--allow-python``.  The tests stand up a
+"hostile scheduler": a plain TCP listener on 127.0.0.1 that records whether
+anything connected to it.
+
+Issue 10 item 15b (second half): an address that is not a dask scheduler
+gives one line, exit 2, within seconds.
+"""
+
+from __future__ import annotations
+
+import json
+import socket
+import threading
+
+import numpy as np
+import pytest
+
+pytest.importorskip("distributed")
+
+PROBLEM = """
+title = "plane over the unit square"
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+expr = "x + y"
+[goal]
+rel_tol = 1e-8
+[method]
+workers = 2
+backend = "{backend}"
+cluster = "{cluster}"
+"""
+
+
+class Listener:
+    """A TCP listener on loopback that records connections; ``mode`` says what it does with one.
+
+    "silent" keeps the connection open and says nothing; "close" hangs up at
+    once; "http" answers like a web server.  Everything is bounded in time.
+    """
+
+    def __init__(self, mode: str = "silent"):
+        self.mode = mode
+        self.connections = 0
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.listen(16)
+        self.sock.settimeout(0.2)
+        self.port = self.sock.getsockname()[1]
+        self.address = f"tcp://127.0.0.1:{self.port}"
+        self._open: list[socket.socket] = []
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._serve, daemon=True)
+        self._thread.start()
+
+    def _serve(self):
+        while not self._stop.is_set():
+            try:
+                conn, _ = self.sock.accept()
+            except (TimeoutError, OSError):
+                continue
+            self.connections += 1
+            if self.mode == "close":
+                conn.close()
+            elif self.mode == "http":
+                conn.settimeout(1.0)
+                try:
+                    conn.recv(1024)
+                except OSError:
+                    pass
+                conn.sendall(b"HTTP/1.0 200 OK\r\nContent-Length: 2\r\n\r\nhi")
+                conn.close()
+            else:
+                self._open.append(conn)
+
+    def close(self):
+        self._stop.set()
+        self._thread.join(5)
+        for c in self._open:
+            c.close()
+        self.sock.close()
+
+
+@pytest.fixture(autouse=True)
+def _short_handshake_wait(monkeypatch):
+    # a silent server is recognised after CONNECT_SECONDS; one second keeps these tests short
+    from cubage.engine import parallel
+    monkeypatch.setattr(parallel, "CONNECT_SECONDS", 1.0)
+
+
+@pytest.fixture
+def hostile():
+    lst = Listener("silent")
+    yield lst
+    lst.close()
+
+
+def run_cli(capsys, *argv):
+    from cubage.cli.commands import main
+    capsys.readouterr()
+    code = main([str(a) for a in argv])
+    cap = capsys.readouterr()
+    return code, cap.out, cap.err
+
+
+@pytest.mark.parametrize("backend", ["dask", "auto"])
+def test_problem_file_cluster_is_never_connected(tmp_path, capsys, hostile, backend):
+    """issue 10 item 0: check, run and resume of a file naming a cluster do not connect to it."""
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend=backend, cluster=hostile.address))
+    code, out, err = run_cli(capsys, "check", prob)
+    assert code == 0, err
+    assert "not used" in out
+    code, out, err = run_cli(capsys, "run", prob, "--json", "--run-dir", tmp_path / "rd")
+    assert code == 0, err
+    rec = json.loads(out)
+    # x + y over the unit square is 1 (by hand: 1/2 + 1/2)
+    assert rec["status"] == "converged" and abs(rec["value"] - 1.0) < 1e-12
+    assert "[method] cluster" in err and "not used" in err and "\n" not in err.strip().split("note: ", 1)[1][:10]
+    # a run directory whose saved settings name the cluster: resume must not reconnect either
+    info_path = tmp_path / "rd" / "ledger.json"
+    info = json.loads(info_path.read_text())
+    info.setdefault("overrides", {}).update({"cluster": hostile.address, "backend": "dask"})
+    info_path.write_text(json.dumps(info))
+    code, out, err = run_cli(capsys, "resume", tmp_path / "rd", "--json", "--rel-tol", "1e-10")
+    assert code == 0, err
+    assert "not reconnected" in err
+    assert hostile.connections == 0
+
+
+def test_text_ui_evaluator_ignores_an_untrusted_cluster(tmp_path, hostile):
+    """issue 10 item 0: the UI builds its evaluator from the problem; the file's cluster is not used."""
+    pytest.importorskip("textual")
+    from cubage.problem.problem_file import load_problem
+    from cubage.tui.run_view import make_evaluator
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend="dask", cluster=hostile.address))
+    problem = load_problem(prob)
+    assert problem.method.cluster is None and problem.method.cluster_ignored == hostile.address
+    ev, how = make_evaluator(problem, 2)
+    try:
+        assert "dask" not in how
+    finally:
+        if ev is not None:
+            ev.close()
+    assert hostile.connections == 0
+
+
+def test_cluster_named_on_the_command_line_is_tried(tmp_path, capsys, hostile):
+    """issue 10 item 0 and 15b: the listener does see a connection when the user names it (so the
+    tests above can see one), and a server that is not a dask scheduler is one line, exit 2."""
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend="auto", cluster="tcp://127.0.0.1:1"))
+    code, out, err = run_cli(capsys, "run", prob, "--cluster", hostile.address)
+    assert code == 2
+    assert hostile.connections >= 1
+    assert err.count("\n") == 1 and "not a dask scheduler" in err and "Traceback" not in err
+
+
+def test_allow_python_trusts_the_file_cluster(tmp_path, capsys, hostile):
+    """issue 10 item 0: --allow-python (the explicit trust flag) lets the file's cluster be used."""
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend="dask", cluster=hostile.address))
+    code, out, err = run_cli(capsys, "run", prob, "--allow-python")
+    assert code == 2 and hostile.connections >= 1
+    assert "[method] cluster" in err and "not a dask scheduler" in err
+
+
+@pytest.mark.parametrize("mode", ["close", "http"])
+def test_not_a_scheduler_is_one_line_exit_2(tmp_path, capsys, mode):
+    """issue 10 item 15b: a server that hangs up or speaks HTTP: one line, exit 2, no traceback."""
+    lst = Listener(mode)
+    try:
+        prob = tmp_path / "p.toml"
+        prob.write_text(PROBLEM.format(backend="auto", cluster="tcp://127.0.0.1:1"))
+        code, out, err = run_cli(capsys, "run", prob, "--cluster", lst.address)
+    finally:
+        lst.close()
+    assert code == 2 and err.count("\n") == 1 and "not a dask scheduler" in err, err
+    assert lst.connections >= 1
+
+
+@pytest.mark.parametrize("cluster, words", [
+    ("http://127.0.0.1:1", "unsupported scheme"),
+    ("udp://127.0.0.1:1", "unsupported scheme"),
+    ("tcp://127.0.0.1:notaport", "not a scheduler address"),
+])
+def test_bad_cluster_addresses_are_one_line(tmp_path, capsys, cluster, words):
+    """issue 10 item 15b: a bad scheme or address: one line, exit 2."""
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend="auto", cluster="tcp://127.0.0.1:1"))
+    code, out, err = run_cli(capsys, "run", prob, "--cluster", cluster)
+    assert code == 2 and err.count("\n") == 1 and words in err, err
+
+
+@pytest.mark.parametrize("content", ["not json at all", "[1, 2]", '{"id": "x"}', '{"address": 5}'])
+def test_scheduler_file_that_is_not_one(tmp_path, capsys, content):
+    """issue 10 item 15b: a scheduler file that is not one: one line, exit 2."""
+    sf = tmp_path / "scheduler.json"
+    sf.write_text(content)
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend="auto", cluster="tcp://127.0.0.1:1"))
+    code, out, err = run_cli(capsys, "run", prob, "--cluster", sf)
+    assert code == 2 and err.count("\n") == 1 and "not a dask scheduler file" in err, err
+
+
+def test_workers_from_a_file_are_capped_at_the_cores(tmp_path, capsys):
+    """issue 10 item 15d: workers = 100000 in a file is capped at the machine's cores (with a note)."""
+    import os
+
+    from cubage.problem.problem_file import load_problem
+    prob = tmp_path / "p.toml"
+    prob.write_text(PROBLEM.format(backend="threads", cluster="x").replace('cluster = "x"\n', "")
+                    .replace("workers = 2", "workers = 100000"))
+    problem = load_problem(prob)
+    cores = os.cpu_count() or 1
+    assert problem.method.workers == cores and problem.method.workers_asked == 100000
+    code, out, err = run_cli(capsys, "run", prob, "--json")
+    assert code == 0, err
+    assert "capped" in err
+    assert np.isclose(json.loads(out)["value"], 1.0, rtol=1e-12)  # x + y over the unit square: 1 (by hand)
