@@ -118,6 +118,11 @@ DISPATCH_GUESS = {"processes": 0.002, "threads": 0.0002, "dask": 0.005}
 #: Serial evaluation time that must have been spent before a pool is started (seconds).
 STARTUP_SECONDS = {"processes": 0.5, "threads": 0.0, "dask": 0.0}
 
+#: Seconds between two checks, in a worker process, that its parent is still alive.
+PARENT_POLL_SECONDS = 0.5
+#: Worker processes write nothing to the terminal (their stdout/stderr go to /dev/null).
+QUIET_WORKERS = True
+
 #: Chunk size limits used when ``chunk_points`` is not given (see :func:`chunk_bounds`).
 CHUNK_MIN = 1024
 CHUNK_MAX = 8192
@@ -214,6 +219,9 @@ def _eval_chunks(f: Callable, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
             r = np.full(k, float(r))
         if r.ndim > 2 or r.shape[0] != k:
             raise _WorkerFailure(f"returned shape {r.shape} for {k} points; expected ({k},) or ({k}, m)")
+        if out and (r.ndim, r.shape[1:]) != (out[0].ndim, out[0].shape[1:]):
+            raise _WorkerFailure(f"returned arrays of different shapes for different points ({out[0].shape}, "
+                                 f"{r.shape}); expected (n,) or (n, m) with the same m everywhere")
         out.append(r)
     return out[0] if len(out) == 1 else np.concatenate(out)
 
@@ -224,7 +232,7 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
     if kind == "spec":
         try:
             f = _worker_integrand(obj)
-        except Exception as exc:  # noqa: BLE001 - report whatever the import/compile raised
+        except (Exception, SystemExit, KeyboardInterrupt) as exc:  # noqa: BLE001 - whatever the import raised
             raise _WorkerFailure(f"could not be loaded in the worker: {_one_line(exc)}") from None
     else:
         f = obj
@@ -235,7 +243,8 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
             return _eval_chunks(f, X, bounds - bounds[0])
     except _WorkerFailure:
         raise
-    except Exception as exc:  # noqa: BLE001 - the user's code
+    except (Exception, SystemExit, KeyboardInterrupt) as exc:  # noqa: BLE001 - the user's code; an exit or
+        # interrupt raised by it is a failure of the integrand, not of the worker (issue 10 item 5)
         raise _WorkerFailure(f"raised {_one_line(exc)}") from None
 
 
@@ -246,6 +255,95 @@ def _preload(key: str) -> int:
     except Exception:  # noqa: BLE001 - reported by the first real task instead
         pass
     return os.getpid()
+
+
+def _watch_parent(parent: int) -> None:
+    """Worker side: end this worker as soon as its parent process is gone (issue 10 item 15a)."""
+    while True:
+        time.sleep(PARENT_POLL_SECONDS)
+        if os.getppid() != parent:
+            os._exit(0)
+
+
+def _init_worker(parent: int, quiet: bool) -> None:
+    """Initializer of every loky worker.
+
+    * Its stdout and stderr go to ``/dev/null`` (``quiet``), so a worker never
+      holds the parent's output pipes open (a caller reading them -- ssh,
+      tee, a script -- would wait for the worker, issue 10 item 15a) and a
+      worker killed by a signal prints no fault dump (issue 10 item 13); the
+      parent reports a dead worker in one line.
+    * A daemon thread ends the worker when the parent is gone, whatever the
+      moment the parent was killed (it is then re-parented).
+    """
+    import threading
+    if quiet:
+        try:
+            fd = os.open(os.devnull, os.O_RDWR)
+            for target in (0, 1, 2):
+                os.dup2(fd, target)
+            os.close(fd)
+        except OSError:
+            pass
+        try:
+            import faulthandler
+            faulthandler.disable()
+        except Exception:  # noqa: BLE001
+            pass
+    threading.Thread(target=_watch_parent, args=(parent,), name="cubage-parent-watch", daemon=True).start()
+
+
+class _DaemonThreadPool:
+    """A minimal thread pool of daemon threads (``submit`` -> Future, ``shutdown``).
+
+    Unlike :class:`concurrent.futures.ThreadPoolExecutor`, whose threads the
+    interpreter joins at exit, a thread stuck in an integrand that never
+    returns cannot keep the process from exiting (issue 10 item 9).
+    """
+
+    def __init__(self, workers: int, name: str):
+        import queue
+        import threading
+        self._queue: queue.SimpleQueue = queue.SimpleQueue()
+        self._threads = [threading.Thread(target=self._loop, name=f"{name}-{i}", daemon=True)
+                         for i in range(workers)]
+        for t in self._threads:
+            t.start()
+
+    def _loop(self) -> None:
+        while True:
+            item = self._queue.get()
+            if item is None:
+                return
+            fut, fn, args = item
+            if not fut.set_running_or_notify_cancel():
+                continue
+            try:
+                fut.set_result(fn(*args))
+            except BaseException as exc:  # noqa: BLE001 - handed to the waiting caller
+                fut.set_exception(exc)
+
+    def submit(self, fn, *args):
+        from concurrent.futures import Future
+        fut: Future = Future()
+        self._queue.put((fut, fn, args))
+        return fut
+
+    def shutdown(self, wait: bool = True, cancel_futures: bool = False, **_):
+        if cancel_futures:
+            import queue
+            while True:
+                try:
+                    item = self._queue.get_nowait()
+                except queue.Empty:
+                    break
+                if item is not None:
+                    item[0].cancel()
+        for _t in self._threads:
+            self._queue.put(None)
+        if wait:
+            for t in self._threads:
+                t.join(timeout=5)
 
 
 def _noop(pause: float = 0.0) -> int:
@@ -554,10 +652,10 @@ class PoolEvaluator(Evaluator):
             from joblib.externals.loky import ProcessPoolExecutor
             per = str(max(1, (os.cpu_count() or 1) // self.workers))
             env = {"OMP_NUM_THREADS": per, "OPENBLAS_NUM_THREADS": per, "MKL_NUM_THREADS": per}
-            self._executor = ProcessPoolExecutor(max_workers=self.workers, env=env)
+            self._executor = ProcessPoolExecutor(max_workers=self.workers, env=env, initializer=_init_worker,
+                                                 initargs=(os.getpid(), QUIET_WORKERS))
         elif self.backend == "threads":
-            from concurrent.futures import ThreadPoolExecutor
-            self._executor = ThreadPoolExecutor(max_workers=self.workers, thread_name_prefix="cubage-eval")
+            self._executor = _DaemonThreadPool(self.workers, "cubage-eval")
         else:
             import joblib
             with joblib.parallel_config(backend="dask", client=self._client, wait_for_workers_timeout=30):
@@ -577,16 +675,17 @@ class PoolEvaluator(Evaluator):
 
     def _run_all(self, calls: list) -> list:
         """Run ``[(fn, args), ...]`` on the pool; results in order."""
-        if self._executor is not None:
-            futures = [self._executor.submit(fn, *args) for fn, args in calls]
+        ex = self._executor
+        if ex is not None:
+            futures = [ex.submit(fn, *args) for fn, args in calls]
             try:
                 return [fu.result() for fu in futures]
             except BaseException:
                 for fu in futures:
                     fu.cancel()
-                if self.backend == "processes":
+                if self.backend == "processes" and self._executor is ex:
                     # kill what still runs (or is broken); a fresh pool starts on the next step
-                    ex, self._executor = self._executor, None
+                    self._executor = None
                     try:
                         ex.shutdown(wait=True, kill_workers=True)
                     except Exception:  # noqa: BLE001
@@ -594,6 +693,29 @@ class PoolEvaluator(Evaluator):
                 raise
         import joblib
         return self._parallel(joblib.delayed(fn)(*args) for fn, args in calls)
+
+    def cancel(self) -> None:
+        """Give up on the evaluation in progress (the run abandoned it, issue 10 item 9).
+
+        Worker processes are killed and reaped (a fresh pool starts if the
+        evaluator is used again); a thread pool is left to its stuck threads
+        (daemon threads, they cannot keep the process alive) and replaced;
+        dask tasks are cancelled.  The evaluator stays usable.
+        """
+        ex, self._executor = self._executor, None
+        if ex is not None:
+            try:
+                if self.backend == "processes":
+                    ex.shutdown(wait=True, kill_workers=True)
+                else:
+                    ex.shutdown(wait=False, cancel_futures=True)
+            except Exception:  # noqa: BLE001 - cancelling must not raise
+                pass
+        if self._parallel is not None and self._client is not None:
+            try:
+                self._client.cancel(list(self._client.futures.values()), force=True)
+            except Exception:  # noqa: BLE001
+                pass
 
     def worker_pids(self) -> list[int]:
         """Process ids answering a round of short tasks (for tests and diagnostics)."""
@@ -613,7 +735,7 @@ class PoolEvaluator(Evaluator):
                 if self.backend == "threads":
                     ex.shutdown(wait=True, cancel_futures=True)
                 else:
-                    ex.shutdown(wait=True)
+                    ex.shutdown(wait=True, kill_workers=True)   # reaped, even if one is stuck
             except Exception:  # noqa: BLE001 - closing must not raise
                 pass
         par, self._parallel = self._parallel, None
@@ -718,7 +840,14 @@ class PoolEvaluator(Evaluator):
             raise IntegrandError(self._lost_worker_message(name, exc)) from None
         self.mode = "parallel"
         self.steps_parallel += 1
-        return parts[0] if len(parts) == 1 else np.concatenate(parts)
+        if len(parts) == 1:
+            return parts[0]
+        shapes = {(p.ndim, p.shape[1:]) for p in parts}
+        if len(shapes) > 1:
+            raise IntegrandError(f"integrand {name} returned arrays of different shapes for different points "
+                                 f"({', '.join(sorted(str(p.shape) for p in parts[:4]))}); expected (n,) or (n, m) "
+                                 "with the same m everywhere")
+        return np.concatenate(parts)
 
     def _lost_worker_message(self, name: str, exc: BaseException) -> str:
         kind = type(exc).__name__

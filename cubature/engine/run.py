@@ -29,12 +29,15 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from cubage.engine import estimate as _estimate
+from cubage.engine.abandon import AbandonableCaller, Abandoned, CallFailed
 from cubage.engine.domains import Box, DomainError, Simplex
 from cubage.engine.geometry import BoxGeometry, SimplexGeometry
 from cubage.engine.regions import RegionStore
 from cubage.engine.rules import box_rule, default_rule, simplex_rule
 
 DEFAULT_BUDGET = 50_000_000
+#: Seconds an integrand call in progress may still take after a stop request or the time limit.
+STOP_GRACE_SECONDS = 2.0
 
 #: Status words of a finished (or paused/running) run.
 STATUSES = {
@@ -393,6 +396,9 @@ class Run:
         self._lock = threading.RLock()
         self._pause = threading.Event()
         self._stop = threading.Event()
+        self._stop_at = math.inf
+        self._stop_now = False
+        self._caller = AbandonableCaller()
         # state (all of it goes into a checkpoint)
         self.m: int | None = None
         self.store: RegionStore | None = None
@@ -432,8 +438,18 @@ class Run:
         """Continue a paused run."""
         self._pause.clear()
 
-    def stop(self) -> None:
-        """Stop after the current step; the result keeps the current estimate."""
+    def stop(self, now: bool = False) -> None:
+        """Stop after the current step; the result keeps the current estimate.
+
+        An integrand call in progress gets :data:`STOP_GRACE_SECONDS` to
+        return (``now=True``: none); after that it is abandoned, so that a
+        stuck integrand cannot hold the run (issue 10 item 9).  The run then
+        ends with the state of its last complete step.
+        """
+        if not self._stop.is_set():
+            self._stop_at = time.monotonic()
+        if now:
+            self._stop_now = True
         self._stop.set()
         self._pause.clear()
 
@@ -492,12 +508,7 @@ class Run:
             x, jac = self.geometry.to_user(g, t)
         else:
             x, jac = (self.geometry.map.to_user(t) if self.geometry.map is not None else (t, None))
-        try:
-            fx = self.evaluator(self.f, x) if self.evaluator is not None else self.f(x)
-        except IntegrandError:
-            raise
-        except Exception as exc:  # the user's code: report, never crash the engine
-            raise IntegrandError(f"integrand raised {type(exc).__name__}: {exc}") from exc
+        fx = self._call_integrand(x)
         if np.iscomplexobj(fx):
             raise IntegrandError("integrand returned complex values; return the real and imaginary parts as two "
                                  "components, shape (n, 2)")
@@ -513,6 +524,9 @@ class Run:
                 f"integrand returned shape {fx.shape} for {n} points; expected ({n},) or ({n}, m)")
         if fx.ndim == 1:
             fx = fx[:, None]
+        if fx.shape[1] == 0:
+            raise IntegrandError(f"integrand returned shape {fx.shape}: no components; expected ({n},) or ({n}, m) "
+                                 "with m >= 1")
         if self.m is not None and fx.shape[1] != self.m:
             raise IntegrandError(f"integrand returned {fx.shape[1]} components, earlier {self.m}")
         bad = ~np.isfinite(fx)
@@ -555,13 +569,11 @@ class Run:
         if t is None:
             return None
         x, jac = (self.geometry.map.to_user(t) if self.geometry.map is not None else (t, None))
+        fx = self._call_integrand(x)                # abandonable; exits in user code are failures
         try:
-            fx = self.evaluator(self.f, x) if self.evaluator is not None else self.f(x)
             fx = np.asarray(fx, dtype=np.float64)
-        except IntegrandError:
-            raise
-        except Exception as exc:  # the user's code: report, never crash the engine
-            raise IntegrandError(f"integrand raised {type(exc).__name__}: {exc}") from exc
+        except (TypeError, ValueError) as exc:
+            raise IntegrandError(f"integrand returned something that is not an array of numbers ({exc})") from None
         n = x.shape[0]
         if fx.ndim == 0:
             fx = np.full(n, float(fx))
@@ -573,6 +585,46 @@ class Run:
                 fx = fx * jac[:, None]
         fx = np.where(np.isfinite(fx), fx, np.nan)
         return fx.reshape(int(probe.sum()), -1, fx.shape[1])
+
+    def _call_integrand(self, x: np.ndarray):
+        """The integrand (through the evaluator) at ``x``, in a call the run can abandon.
+
+        Anything the user's code raises -- ``SystemExit`` and
+        ``KeyboardInterrupt`` included -- is an :class:`IntegrandError`
+        (issue 10 item 5).  A stop request (after its grace), ``stop(now=True)``
+        or the time limit (after the same grace) abandon a call that does not
+        return, raising :class:`~cubage.engine.abandon.Abandoned` (issue 10 item 9).
+        """
+        call = (self.evaluator, (self.f, x)) if self.evaluator is not None else (self.f, (x,))
+        try:
+            return self._caller.call(call[0], call[1], self._abandon_reason)
+        except Abandoned:
+            cancel = getattr(self.evaluator, "cancel", None)
+            if cancel is not None:
+                try:
+                    cancel()        # frees stuck workers; the evaluator stays usable
+                except Exception:  # noqa: BLE001 - cancelling must not hide why the run ends
+                    pass
+            raise
+        except CallFailed as failed:
+            exc = failed.error
+            if isinstance(exc, IntegrandError):
+                raise exc from None
+            msg = " ".join(str(exc).split())
+            where = ""
+            if isinstance(exc, (SystemExit, KeyboardInterrupt)):
+                where = " (an exit or interrupt inside the integrand is a failure of the integrand)"
+            raise IntegrandError(f"integrand raised {type(exc).__name__}{': ' + msg if msg else ''}{where}") \
+                from (exc if isinstance(exc, Exception) else None)
+
+    def _abandon_reason(self) -> str | None:
+        """Why to give up waiting for the integrand call in progress (None: keep waiting)."""
+        if self._stop.is_set() and (self._stop_now or time.monotonic() - self._stop_at >= STOP_GRACE_SECONDS):
+            return "stopped"
+        s = self.settings
+        if s.time_limit is not None and self.elapsed() >= s.time_limit + STOP_GRACE_SECONDS:
+            return "time-limit"
+        return None
 
     def _errors(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
@@ -805,6 +857,11 @@ class Run:
                 if why is not None:
                     return self._finish(why)
                 self._advance()
+            except Abandoned as gone:
+                # the integrand call did not return in time: end with the last complete step's state
+                self.message = (f"an integrand call was abandoned ({gone.reason}); the estimate is from the "
+                                f"last complete step")
+                return self._finish(gone.reason)
             except IntegrandError as exc:
                 self.message = str(exc)
                 self._finish("failed")

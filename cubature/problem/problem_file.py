@@ -1034,7 +1034,7 @@ def _probe_components(ctx, f, domain, target) -> int:
     try:
         with np.errstate(all="ignore"):
             y = np.asarray(f(X), dtype=float)
-    except Exception as exc:  # noqa: BLE001 - user code
+    except (Exception, SystemExit, KeyboardInterrupt) as exc:  # noqa: BLE001 - user code (issue 10 item 5)
         msg = " ".join(str(exc).split())
         raise ctx.error("integrand", "python", f"calling {target} on two test points of shape {X.shape} failed: "
                                                f"{type(exc).__name__}: {msg}") from None
