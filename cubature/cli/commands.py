@@ -85,6 +85,11 @@ def _count(text: str) -> int:
     return parse_count(text)
 
 
+def _memory_size(text: str) -> int:
+    from cubage.engine.run import parse_memory_size
+    return parse_memory_size(text)
+
+
 def _workers(text: str):
     from cubage.session.prepare import check_workers
     return check_workers(text)
@@ -109,6 +114,9 @@ def _add_goal_options(p) -> None:
                    help="absolute tolerance on the total error estimate")
     g.add_argument("--budget", type=_arg(_count), metavar="N", help="budget of integrand evaluations")
     g.add_argument("--time-limit", type=_arg(_seconds), metavar="S", help="seconds of work (summed over resumes)")
+    g.add_argument("--memory-ceiling", type=_arg(_memory_size), metavar="SIZE",
+                   help='memory the run may use, like "4G" or "800M" (default: half of this machine\'s memory); '
+                        "the run stops with its estimate before going beyond it")
 
 
 def _add_parallel_options(p, show: bool) -> None:
@@ -259,7 +267,7 @@ def _problem_where(problem) -> str:
 def _overrides(args):
     """The session's Overrides from the command line (labels name the options in messages)."""
     from cubage.session.prepare import Overrides
-    keys = ("rel_tol", "abs_tol", "budget", "time_limit", "rule", "workers", "backend", "cluster")
+    keys = ("rel_tol", "abs_tol", "budget", "time_limit", "memory_ceiling", "rule", "workers", "backend", "cluster")
     return Overrides(**{k: getattr(args, k, None) for k in keys},
                      labels={k: "--" + k.replace("_", "-") for k in keys})
 
@@ -277,6 +285,10 @@ def _continue_hint(res, run, rundir) -> str:
         opt = f" --budget {2 * int(run.settings.budget):_}"
     elif res.status == "time-limit" and run.settings.time_limit:
         opt = f" --time-limit {2 * run.settings.time_limit:g}"
+    elif res.status == "memory-ceiling":
+        from cubage.engine.run import default_memory_ceiling
+        now = run.settings.memory_ceiling or default_memory_ceiling()
+        opt = f" --memory-ceiling {max(1, 2 * now >> 20)}M"
     elif res.status in ("region-limit", "stalled"):
         return "the goal may be out of reach for this rule; try a looser --rel-tol/--abs-tol or another --rule"
     if rundir is not None:

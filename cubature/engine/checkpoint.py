@@ -3,11 +3,18 @@
 Layout: every region column as its own array (``r_<name>``), the queue
 (``q_idx``, ``q_key``), the convergence history, the running totals, and a
 ``meta`` entry holding UTF-8 JSON: format version, fingerprint, settings,
-counters and a SHA-256 digest over all arrays.  Loading uses
-``allow_pickle=False``.  A file is written to a temporary name beside the
-target, flushed and fsynced, then renamed over it (and the folder fsynced),
-so a crash leaves either the old or the new checkpoint, never half of one.
-Truncation is caught by the zip container's CRCs and the digest.
+counters and a SHA-256 digest over all arrays *and* the rest of the metadata
+(format version 2; everything that is loaded is covered, issue 10 item 15f).
+Loading uses ``allow_pickle=False``.  A file is written to a temporary name
+beside the target, flushed and fsynced, then renamed over it (and the folder
+fsynced), so a crash leaves either the old or the new checkpoint, never half
+of one; a temporary file left by a crash is removed when the checkpoint is
+next loaded.  Truncation and bit flips are caught by the zip container's CRCs
+and the digest.
+
+The digest detects accidents (a truncated copy, a bad disk, an edited file
+by mistake), not deliberate edits: anyone who can write the file can also
+recompute the digest.
 """
 
 from __future__ import annotations
@@ -15,9 +22,6 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import struct
-import zipfile
-import zlib
 from pathlib import Path
 
 import numpy as np
@@ -25,15 +29,21 @@ import numpy as np
 from cubage.engine.regions import RegionStore
 
 FORMAT = "cubage-checkpoint"
-VERSION = 1
+VERSION = 2
+#: Versions this module reads (version 1: the digest covers the arrays only).
+READABLE_VERSIONS = (1, 2)
 
 
 class CheckpointError(ValueError):
     """A checkpoint that is unreadable, corrupted, or of another problem."""
 
 
-def _digest(arrays: dict[str, np.ndarray]) -> str:
+def _digest(arrays: dict[str, np.ndarray], meta: dict | None = None) -> str:
+    """SHA-256 over the arrays (name, dtype, shape, bytes) and, from version 2, the metadata without the digest."""
     h = hashlib.sha256()
+    if meta is not None:
+        rest = {k: v for k, v in meta.items() if k != "digest"}
+        h.update(json.dumps(rest, sort_keys=True, separators=(",", ":")).encode())
     for name in sorted(arrays):
         a = np.ascontiguousarray(arrays[name])
         h.update(name.encode())
@@ -94,8 +104,9 @@ def save_run(run, path) -> None:
         "settings": dict(run.settings.__dict__), "components": run.m,
         "step": run.step_count, "evaluations": run.evaluations, "elapsed": run.elapsed(),
         "queue_thr": run.queue.thr, "status": run.status if run.done else "running",
-        "message": run.message, "checks": run.checks, "audit_ok": run._audit_ok, "digest": _digest(arrays),
+        "message": run.message, "checks": run.checks, "audit_ok": run._audit_ok,
     }
+    meta["digest"] = _digest(arrays, meta)
     meta_arr = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
     write_atomic(Path(path), lambda fh: np.savez(fh, meta=meta_arr, **arrays))
 
@@ -108,27 +119,66 @@ def read_checkpoint(path) -> tuple[dict, dict[str, np.ndarray]]:
             arrays = {k: z[k] for k in z.files}
     except FileNotFoundError:
         raise CheckpointError(f"{path}: no such checkpoint") from None
-    except (zipfile.BadZipFile, OSError, ValueError, EOFError, KeyError, zlib.error, struct.error,
-            NotImplementedError, RuntimeError) as exc:   # a flipped bit in the zip headers lands in any of these
-        raise CheckpointError(f"{path}: checkpoint is truncated or corrupted ({exc})") from None
+    except IsADirectoryError:
+        raise CheckpointError(f"{path}: is a folder, not a checkpoint") from None
+    except Exception as exc:  # noqa: BLE001 - a damaged zip can fail in many ways (zlib, struct, ...)
+        detail = " ".join(str(exc).split())[:160]
+        raise CheckpointError(f"{path}: checkpoint is truncated or corrupted ({type(exc).__name__}"
+                              f"{': ' + detail if detail else ''})") from None
     if "meta" not in arrays:
         raise CheckpointError(f"{path}: not a cubage checkpoint (no metadata)")
     try:
         meta = json.loads(arrays.pop("meta").tobytes().decode())
     except (UnicodeDecodeError, json.JSONDecodeError) as exc:
         raise CheckpointError(f"{path}: checkpoint metadata is corrupted ({exc})") from None
-    if meta.get("format") != FORMAT:
+    if not isinstance(meta, dict) or meta.get("format") != FORMAT:
         raise CheckpointError(f"{path}: not a cubage checkpoint")
-    if meta.get("version") != VERSION:
-        raise CheckpointError(f"{path}: checkpoint format version {meta.get('version')} is not supported "
-                              f"(this cubage reads version {VERSION})")
-    if _digest(arrays) != meta.get("digest"):
+    version = meta.get("version")
+    if version not in READABLE_VERSIONS:
+        raise CheckpointError(f"{path}: checkpoint format version {version} is not supported "
+                              f"(this cubage reads versions {', '.join(map(str, READABLE_VERSIONS))})")
+    if _digest(arrays, meta if version >= 2 else None) != meta.get("digest"):
         raise CheckpointError(f"{path}: checkpoint is corrupted (digest mismatch)")
     return meta, arrays
 
 
+def _temporary_files(path: Path) -> list[Path]:
+    """Temporary files of :func:`write_atomic` for ``path`` (``.NAME.tmp-PID``) left by processes that are gone."""
+    gone = []
+    try:
+        candidates = list(path.parent.glob(f".{path.name}.tmp-*"))
+    except OSError:
+        return []
+    for tmp in candidates:
+        pid = tmp.name.rpartition(".tmp-")[2]
+        if not pid.isdigit() or int(pid) == os.getpid():
+            continue
+        try:
+            os.kill(int(pid), 0)
+            continue            # its writer may still be at work
+        except ProcessLookupError:
+            gone.append(tmp)
+        except (PermissionError, OverflowError, OSError):
+            continue
+    return gone
+
+
+def clean_temporaries(path) -> list[Path]:
+    """Remove temporary files a crash left beside checkpoint ``path`` (issue 10 item 15f); the removed paths."""
+    removed = []
+    for tmp in _temporary_files(Path(path)):
+        try:
+            if tmp.is_file() and not tmp.is_symlink():
+                tmp.unlink()
+                removed.append(tmp)
+        except OSError:
+            pass
+    return removed
+
+
 def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval, overrides):
-    """Rebuild a :class:`~cubage.engine.run.Run` from ``path``."""
+    """Rebuild a :class:`~cubage.engine.run.Run` from ``path`` (and remove temporary files a crash left there)."""
+    clean_temporaries(path)
     meta, arrays = read_checkpoint(path)
     settings = dict(meta["settings"])
     path_keys = ("rule", "degree", "split", "queue", "batch", "estimate", "batch_points")
@@ -170,5 +220,6 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     run.checks.update(meta.get("checks", {}))
     run._audit_ok = bool(meta.get("audit_ok", False))
     status = meta.get("status", "running")
-    run.status = "running" if status in ("stopped", "time-limit", "budget-spent", "paused", "region-limit") else status
+    run.status = "running" if status in ("stopped", "time-limit", "budget-spent", "paused", "region-limit",
+                                                   "memory-ceiling") else status
     return run

@@ -18,6 +18,7 @@ A :class:`Run` is the steppable object; :func:`integrate` is the one-call form.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import math
@@ -48,6 +49,7 @@ STATUSES = {
     "time-limit": "time limit reached before the goal was met",
     "stopped": "stopped on request before the goal was met",
     "region-limit": "region limit reached before the goal was met",
+    "memory-ceiling": "the run's memory would have exceeded its ceiling before the goal was met",
     "stalled": "no region can be split further (floating-point resolution) before the goal was met",
     "failed": "the integrand raised an error or returned a non-finite value",
 }
@@ -74,6 +76,54 @@ AUDIT_COST = 0.05
 AUDIT_MIN = 2
 #: hidden error (extrapolated from the audit's sample) below this fraction of the goal passes the audit
 AUDIT_SMALL = 0.25
+
+
+@functools.lru_cache(maxsize=1)
+def default_memory_ceiling() -> int:
+    """Half of this machine's physical memory (bytes), or 4 GiB when it cannot be read."""
+    import os
+    try:
+        total = os.sysconf("SC_PHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        total = 0
+    return int(total // 2) if total > 0 else 4 << 30
+
+
+_SIZE_UNITS = {"": 1, "b": 1, "k": 1 << 10, "kb": 1 << 10, "kib": 1 << 10, "m": 1 << 20, "mb": 1 << 20,
+               "mib": 1 << 20, "g": 1 << 30, "gb": 1 << 30, "gib": 1 << 30, "t": 1 << 40, "tb": 1 << 40,
+               "tib": 1 << 40}
+
+
+def parse_memory_size(value) -> int:
+    """Bytes from ``value``: a positive whole number of bytes, or text like ``"800M"``, ``"4 GB"``, ``"1.5G"``.
+
+    Units are powers of 1024 (``K``, ``M``, ``G``, ``T``, optionally followed
+    by ``B`` or ``iB``).  Raises ValueError (one line) for anything else.
+    """
+    if isinstance(value, bool):
+        raise ValueError(f"must be a size like \"4G\" or a number of bytes, got {value!r}")
+    if isinstance(value, (int, np.integer)):
+        n = int(value)
+    elif isinstance(value, float) and math.isfinite(value) and value == int(value):
+        n = int(value)
+    elif isinstance(value, str):
+        text = value.strip().lower().replace("_", "")
+        num = text.rstrip("kmgtib ")
+        unit = text[len(num):].strip()
+        if unit not in _SIZE_UNITS or not num:
+            raise ValueError(f"must be a size like \"4G\", \"800M\" or a number of bytes, got {value!r}")
+        try:
+            x = float(num)
+        except ValueError:
+            raise ValueError(f"must be a size like \"4G\", \"800M\" or a number of bytes, got {value!r}") from None
+        if not (math.isfinite(x) and x > 0):
+            raise ValueError(f"must be a positive size, got {value!r}")
+        n = int(x * _SIZE_UNITS[unit])
+    else:
+        raise ValueError(f"must be a size like \"4G\" or a number of bytes, got {value!r}")
+    if n < (1 << 20):
+        raise ValueError(f"must be at least 1M (1048576 bytes), got {value!r}")
+    return n
 
 
 class IntegrandError(RuntimeError):
@@ -122,6 +172,11 @@ class Settings:
     audit : bool
         Audit the partition before claiming convergence (see
         :meth:`Run._audit`); False only for studies of the estimate itself.
+    memory_ceiling : int or None
+        Bytes the run's own arrays may take (``None``: half the machine's
+        physical memory, :func:`default_memory_ceiling`).  The run stops
+        with ``"memory-ceiling"`` before a step would go beyond it, keeping
+        its estimate (see :meth:`Run.memory_needed`).
     """
 
     rel_tol: float = 1e-6
@@ -140,6 +195,7 @@ class Settings:
     cuts: list | None = None
     singular: list | None = None
     audit: bool = True
+    memory_ceiling: int | None = None
 
     def validate(self) -> None:
         if not (self.rel_tol >= 0 and self.abs_tol >= 0) or math.isnan(self.rel_tol) or math.isnan(self.abs_tol):
@@ -154,6 +210,11 @@ class Settings:
             raise ValueError(f"queue policy must be 'global' or 'local', got {self.queue!r}")
         if self.batch != "auto" and not (isinstance(self.batch, int) and self.batch >= 1):
             raise ValueError(f"batch must be 'auto' or a positive integer, got {self.batch!r}")
+        if self.memory_ceiling is not None:
+            try:
+                self.memory_ceiling = parse_memory_size(self.memory_ceiling)
+            except ValueError as exc:
+                raise ValueError(f"memory_ceiling {exc}") from None
 
     def shape_key(self) -> dict:
         """The settings that decide the sequence of regions (part of the fingerprint)."""
@@ -462,7 +523,8 @@ class Run:
         return self.status not in ("running", "paused")
 
     def set_goal(self, rel_tol: float | None = None, abs_tol: float | None = None,
-                 budget: int | None = None, time_limit: float | None = None) -> None:
+                 budget: int | None = None, time_limit: float | None = None,
+                 memory_ceiling: int | str | None = None) -> None:
         """Change the goal while running (tighten or loosen).  A run that had
         converged, spent its budget or time, or was stopped becomes running
         again: it goes on from its current partition (and ends at once if
@@ -482,12 +544,17 @@ class Run:
                 new.budget = int(budget)
             if time_limit is not None:
                 new.time_limit = float(time_limit)
+            if memory_ceiling is not None:
+                new.memory_ceiling = memory_ceiling
             new.validate()
             self.settings = new
-            if self.status in ("converged", "budget-spent", "time-limit", "stopped") and self.store is not None:
+            if self.status in ("converged", "budget-spent", "time-limit", "stopped", "memory-ceiling") \
+                    and self.store is not None:
                 self.status = "running"
                 self._stop.clear()
                 self._audit_ok = False
+                self._stop_now = False
+                self._stop_at = math.inf
 
     # -- the loop ------------------------------------------------------------
     def elapsed(self) -> float:
@@ -820,6 +887,9 @@ class Run:
             return "time-limit"
         if s.max_regions is not None and self.store.n + self.geometry.children_per_split - 1 > s.max_regions:
             return "region-limit"
+        ceiling = s.memory_ceiling if s.memory_ceiling is not None else default_memory_ceiling()
+        if self.memory_needed() > ceiling:
+            return "memory-ceiling"
         return None
 
     def _trend(self) -> np.ndarray:
@@ -830,6 +900,30 @@ class Run:
         h = np.array(self._hist)
         m = self.m or 1
         return _estimate.trend_floor(h[:, 0], h[:, 2:2 + m])
+
+    def memory_needed(self) -> int:
+        """Bytes the run's arrays would take during its next step (the quantity the memory ceiling bounds).
+
+        A deterministic estimate from counts, not a measurement: the region
+        columns for the regions after the step, times ``1 + GROWTH`` (the old
+        and the grown arrays coexist while the store grows; a checkpoint
+        copies the live rows), plus the step's scratch arrays (points,
+        values and rule products, about ``8 (3 d + 4 m + 4)`` bytes a point)
+        and the history.  The integrand's own memory is not counted.
+        """
+        from cubage.engine.regions import GROWTH
+        st = self.store
+        if st is None:
+            return 0
+        per = self.geometry.children_per_split * self.rule.size
+        k = max(1, self.settings.batch_points // per) if self.settings.batch == "auto" else int(self.settings.batch)
+        k = min(k, st.n)                 # a step never splits more regions than there are
+        rows = st.n + k * (self.geometry.children_per_split - 1)
+        points = k * per
+        m = self.m or 1
+        scratch = 8 * points * (3 * self.domain.dim + 4 * m + 4)
+        hist = 8 * len(self._hist) * (2 + 2 * m)
+        return int(st.bytes_per_region() * rows * (1 + GROWTH) + scratch + hist)
 
     def _exact_totals(self) -> None:
         self.total_value = self.store["value"].sum(axis=0)
@@ -1264,7 +1358,8 @@ def integrate(f: Callable, domain, *, rel_tol: float = 1e-6, abs_tol: float = 0.
         How to evaluate batches (see :mod:`cubage.engine.parallel`).
     **options
         Further :class:`Settings` fields: ``degree``, ``split``, ``queue``,
-        ``batch``, ``estimate``, ``max_regions``, ``batch_points``.
+        ``batch``, ``estimate``, ``max_regions``, ``batch_points``,
+        ``memory_ceiling`` (bytes or ``"4G"``; default half the machine's memory).
 
     Returns
     -------

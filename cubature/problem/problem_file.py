@@ -63,7 +63,7 @@ _TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "referen
 _TABLE_KEYS = {
     "domain": ("variables", "box", "simplex", "scale"),
     "integrand": ("expr", "constants", "python"),
-    "goal": ("rel_tol", "abs_tol", "budget", "time_limit"),
+    "goal": ("rel_tol", "abs_tol", "budget", "time_limit", "memory_ceiling"),
     "method": ("rule", "degree", "workers", "backend", "cluster"),
     "reference": ("value", "source"),
 }
@@ -117,6 +117,7 @@ class Goal:
     abs_tol: float = 0.0
     budget: int | None = None
     time_limit: float | None = None
+    memory_ceiling: int | None = None
 
 
 @dataclass
@@ -1081,6 +1082,12 @@ def _parse_goal(ctx, tbl) -> Goal:
         g.budget = v
     if "time_limit" in tbl:
         g.time_limit = _num(ctx, "goal", "time_limit", tbl["time_limit"], positive=True)
+    if "memory_ceiling" in tbl:
+        from cubage.engine.run import parse_memory_size
+        try:
+            g.memory_ceiling = parse_memory_size(tbl["memory_ceiling"])
+        except ValueError as exc:
+            raise ctx.error("goal", "memory_ceiling", str(exc)) from None
     return g
 
 

@@ -22,7 +22,7 @@ __all__ = ["InputError", "check_tolerance", "check_budget", "check_time_limit", 
            "parse_number", "parse_count", "Overrides", "PreparedRun", "prepare_run", "resume_run", "scan_settings",
            "make_evaluator", "GOAL_KEYS", "METHOD_KEYS"]
 
-GOAL_KEYS = ("rel_tol", "abs_tol", "budget", "time_limit")
+GOAL_KEYS = ("rel_tol", "abs_tol", "budget", "time_limit", "memory_ceiling")
 METHOD_KEYS = ("rule", "degree", "workers", "backend", "cluster")
 
 
@@ -130,6 +130,7 @@ class Overrides:
     abs_tol: float | None = None
     budget: int | None = None
     time_limit: float | None = None
+    memory_ceiling: int | None = None
     rule: str | None = None
     degree: int | None = None
     workers: int | str | None = None
@@ -311,7 +312,9 @@ def _goal(problem, o: Overrides) -> dict:
         where = "/".join(which) if which else _problem_where(problem, "goal", "rel_tol/abs_tol")
         raise InputError(f"{where}: both tolerances are zero; the goal could never be met")
     return {"rel_tol": rel, "abs_tol": abs_, "budget": o.budget or g.budget or DEFAULT_BUDGET,
-            "time_limit": o.time_limit if o.time_limit is not None else g.time_limit}
+            "time_limit": o.time_limit if o.time_limit is not None else g.time_limit,
+            "memory_ceiling": (o.memory_ceiling if o.memory_ceiling is not None
+                               else getattr(g, "memory_ceiling", None))}
 
 
 def scan_settings(problem, overrides: Overrides | None = None) -> dict:

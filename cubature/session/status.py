@@ -27,6 +27,7 @@ ENGINE_WORDS: dict[str, str] = {
     "time-limit": "time limit reached before the goal was met",
     "stopped": "stopped on request before the goal was met",
     "region-limit": "region limit reached before the goal was met",
+    "memory-ceiling": "the run's memory would have exceeded its ceiling before the goal was met",
     "stalled": "no region can be split further (floating-point resolution) before the goal was met",
     "failed": "the integrand raised an error or returned a non-finite value",
 }
