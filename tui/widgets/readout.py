@@ -21,8 +21,8 @@ from .guard import guarded
 STATUS_STYLE = {
     "ready": "bold #8fa3bf", "running": "bold #e8c547", "paused": "bold #6cb6d9", "converged": "bold #5fd38a",
     "budget-spent": "bold #f08a5d", "time-limit": "bold #f08a5d", "stopped": "bold #f08a5d",
-    "region-limit": "bold #f08a5d", "stalled": "bold #f08a5d", "failed": "bold #ff5f6d",
-    "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d", "runner-gone": "bold #ff5f6d",
+    "region-limit": "bold #f08a5d", "memory-ceiling": "bold #f08a5d", "stalled": "bold #f08a5d",
+    "failed": "bold #ff5f6d", "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d", "runner-gone": "bold #ff5f6d",
 }
 
 ESTIMATE_NOTE = "± is an error estimate, not a bound"
