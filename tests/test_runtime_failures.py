@@ -219,10 +219,10 @@ def test_first_sigterm_ends_a_stuck_run_with_its_checkpoint(tmp_path, extra):
     p = start("run", "p.toml", "--json", "--allow-python", "--run-dir", rd, "--checkpoint-every", "0.1",
               "--budget", "1e9", *extra, cwd=tmp_path)
     try:
-        wait_until(lambda: (rd / "checkpoint.npz").exists(), "a first checkpoint", p)
+        wait_until(lambda: (rd / "partition.npz").exists(), "a first checkpoint", p)
         (tmp_path / "hang").write_text("")
         time.sleep(0.5)        # let the integrand get stuck
-        before = read_checkpoint(rd / "checkpoint.npz")[0]["evaluations"]
+        before = read_checkpoint(rd / "partition.npz")[0]["evaluations"]
         p.send_signal(signal.SIGTERM)
         out, err = p.communicate(timeout=60)
     finally:
@@ -232,7 +232,7 @@ def test_first_sigterm_ends_a_stuck_run_with_its_checkpoint(tmp_path, extra):
     assert p.returncode == 3, err
     rec = json.loads(out)
     assert rec["status"] == "stopped" and rec["stopped_by"] == "SIGTERM"
-    meta, _ = read_checkpoint(rd / "checkpoint.npz")
+    meta, _ = read_checkpoint(rd / "partition.npz")
     assert meta["evaluations"] >= before and rec["evaluations"] == meta["evaluations"]
 
 
