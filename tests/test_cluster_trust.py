@@ -225,3 +225,74 @@ def test_workers_from_a_file_are_capped_at_the_cores(tmp_path, capsys):
     assert code == 0, err
     assert "capped" in err
     assert np.isclose(json.loads(out)["value"], 1.0, rtol=1e-12)  # x + y over the unit square: 1 (by hand)
+
+
+# ---------------------------------------------------------------------------
+# issue 10 item 15b: a worker lost mid-run
+# ---------------------------------------------------------------------------
+
+_LOST = threading.Event()
+
+
+def losing_a_worker(X):
+    """Closes the dask worker it runs on, once, in the middle of a task (module level: pickled by name)."""
+    if not _LOST.is_set() and X.shape[0] >= 64:
+        import time
+
+        import distributed
+        try:
+            worker = distributed.get_worker()
+        except ValueError:
+            worker = None                       # in-process: not in a worker
+        if worker is not None and not _LOST.is_set():
+            _LOST.set()
+            worker.loop.add_callback(worker.close)
+            time.sleep(0.5)
+    return 1.0 / (1e-4 + (X[:, 0] - 0.3) ** 2 + (X[:, 1] - 0.6) ** 2)
+
+
+def test_a_lost_dask_worker_is_retried_on_the_others():
+    """issue 10 item 15b: a dask worker lost in the middle of a task: the task runs again on the remaining
+    worker and the run ends as if nothing happened (the same bits as in-process)."""
+    import cubage
+    from cubage.engine.parallel import make_evaluator
+    distributed = pytest.importorskip("distributed")
+    box = cubage.Box([0.0, 0.0], [1.0, 1.0])
+    ref = cubage.integrate(losing_a_worker, box, rel_tol=1e-6)
+    _LOST.clear()
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=False, protocol="tcp",
+                                  host="127.0.0.1", dashboard_address=None) as lc:
+        with make_evaluator(2, "dask", lc.scheduler_address, chunk_points=128) as ev:
+            res = cubage.integrate(losing_a_worker, box, rel_tol=1e-6, evaluator=ev)
+            left = len(ev._client.nthreads())
+    assert _LOST.is_set() and left == 1        # a worker was lost
+    assert res.status == "converged" and np.array_equal(res.values, ref.values)
+
+
+def test_a_cluster_left_without_workers_ends_the_run(monkeypatch):
+    """issue 10 item 15b: when every worker is gone the run ends with a clear one-line failure
+    instead of blocking; the state is the last complete step's."""
+    import time
+
+    import cubage
+    from cubage.engine import parallel
+    distributed = pytest.importorskip("distributed")
+    monkeypatch.setattr(parallel, "DASK_NO_WORKER_SECONDS", 1.0)
+
+    def slow(X):
+        time.sleep(0.05)
+        return 1.0 / (1e-4 + (X[:, 0] - 0.3) ** 2 + (X[:, 1] - 0.6) ** 2)
+
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=False, protocol="tcp",
+                                  host="127.0.0.1", dashboard_address=None) as lc:
+        ev = parallel.make_evaluator(1, "dask", lc.scheduler_address, chunk_points=64)
+        run = cubage.Run(slow, cubage.Box([0.0, 0.0], [1.0, 1.0]), rel_tol=1e-13, evaluator=ev)
+        for _ in range(3):
+            run.step()
+        before = run.evaluations
+        lc.scale(0)
+        with pytest.raises(cubage.IntegrandError) as info:
+            run.run()
+        ev.close()
+    assert "no worker" in str(info.value) and "\n" not in str(info.value)
+    assert run.status == "failed" and run.evaluations >= before

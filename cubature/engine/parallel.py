@@ -27,9 +27,12 @@ Backends
     only for integrands that release the GIL (numpy ufuncs on large arrays
     do, pure-Python loops do not).
 ``"dask"``
-    joblib's dask backend on a ``dask.distributed`` cluster (``cluster`` is
-    ``"tcp://host:8786"``, a scheduler-file path or a ``Client``).  Needs the
-    ``cluster`` extra: ``pip install 'cubage[cluster]'``.
+    A ``dask.distributed`` cluster (``cluster`` is ``"tcp://host:8786"``, a
+    scheduler-file path or a ``Client``), through the client's futures: the
+    tasks of a lost worker run again on the remaining ones, and a cluster
+    left without workers ends the step with a clear message (see
+    :class:`_DaskPool`).  Needs the ``cluster`` extra:
+    ``pip install 'cubage[cluster]'``.
 ``"auto"`` (the default)
     Serial until measurements say parallel pays, then ``processes`` (or
     ``dask`` when a cluster is given), see below.
@@ -37,10 +40,10 @@ Backends
 The pool is created once and kept for the whole run, so there is no pool
 start-up per step: for processes and threads one executor whose futures are
 waited on directly (``joblib.Parallel``'s result loop polls every 10 ms, a
-cost per step that a run of many short steps would feel), for dask one
-``joblib.Parallel`` object created under ``parallel_config(backend="dask")``
-and entered as a context manager.  :meth:`Evaluator.close` (or leaving a
-``with`` block) shuts it down.
+cost per step that a run of many short steps would feel), for dask the
+client's futures.  :meth:`Evaluator.close` (or leaving a ``with`` block)
+shuts it down; :meth:`PoolEvaluator.cancel` gives up on a step in progress
+(worker processes killed and reaped, dask tasks cancelled).
 
 How integrands travel
 ---------------------
@@ -118,6 +121,10 @@ DISPATCH_GUESS = {"processes": 0.002, "threads": 0.0002, "dask": 0.005}
 #: Serial evaluation time that must have been spent before a pool is started (seconds).
 STARTUP_SECONDS = {"processes": 0.5, "threads": 0.0, "dask": 0.0}
 
+#: Seconds between two checks of the dask cluster while waiting for a step's tasks.
+DASK_POLL_SECONDS = 0.5
+#: A dask cluster without any worker for this long ends the wait (the run fails with a clear message).
+DASK_NO_WORKER_SECONDS = 10.0
 #: Seconds between two checks, in a worker process, that its parent is still alive.
 PARENT_POLL_SECONDS = 0.5
 #: Worker processes write nothing to the terminal (their stdout/stderr go to /dev/null).
@@ -346,6 +353,63 @@ class _DaemonThreadPool:
                 t.join(timeout=5)
 
 
+class _DaskPool:
+    """Tasks on a dask cluster through the client's futures (``client.submit``), waited on in slices.
+
+    A task whose worker is lost is run again by the scheduler on the
+    remaining workers (up to its ``allowed-failures``, then ``KilledWorker``).
+    While waiting, the pool checks the cluster: with no worker left for
+    :data:`DASK_NO_WORKER_SECONDS`, or the scheduler gone, the wait ends with
+    a one-line ConnectionError instead of blocking (issue 10 item 15b).
+    """
+
+    def __init__(self, client):
+        self.client = client
+        self._futures: list = []
+
+    def run_all(self, calls: list) -> list:
+        client = self.client
+        futs = [client.submit(fn, *args, pure=False) for fn, args in calls]
+        self._futures = futs
+        try:
+            return [self._result(fut) for fut in futs]
+        except BaseException:
+            self.cancel()
+            raise
+        finally:
+            self._futures = []
+
+    def _result(self, fut):
+        """One task's value, waiting in slices and checking the cluster between them."""
+        client = self.client
+        empty_since = None
+        while True:
+            try:
+                return fut.result(timeout=DASK_POLL_SECONDS)
+            except TimeoutError:
+                pass
+            if client.status not in ("running", "connecting"):
+                raise ConnectionError(f"lost the connection to the dask scheduler ({client.status})")
+            try:
+                alive = len(client.nthreads())
+            except Exception as exc:  # noqa: BLE001 - the scheduler is unreachable
+                raise ConnectionError(f"lost the connection to the dask scheduler ({_one_line(exc)})") from None
+            if alive:
+                empty_since = None
+            elif empty_since is None:
+                empty_since = time.monotonic()
+            elif time.monotonic() - empty_since > DASK_NO_WORKER_SECONDS:
+                raise ConnectionError(f"the dask cluster has had no worker for {DASK_NO_WORKER_SECONDS:g} s")
+
+    def cancel(self) -> None:
+        futs, self._futures = self._futures, []
+        if futs:
+            try:
+                self.client.cancel(futs, force=True)
+            except Exception:  # noqa: BLE001 - cancelling must not raise
+                pass
+
+
 def _noop(pause: float = 0.0) -> int:
     if pause:
         time.sleep(pause)
@@ -413,7 +477,6 @@ def resolve_workers(workers) -> int:
 def _need_distributed():
     try:
         import distributed  # noqa: F401
-        import joblib._dask  # noqa: F401  - registers joblib's "dask" backend
     except ImportError:
         raise ValueError("the dask backend needs the cluster extra: pip install 'cubage[cluster]'") from None
     return distributed
@@ -657,11 +720,7 @@ class PoolEvaluator(Evaluator):
         elif self.backend == "threads":
             self._executor = _DaemonThreadPool(self.workers, "cubage-eval")
         else:
-            import joblib
-            with joblib.parallel_config(backend="dask", client=self._client, wait_for_workers_timeout=30):
-                par = joblib.Parallel(n_jobs=-1, return_as="list", batch_size=1, pre_dispatch="all")
-            par.__enter__()
-            self._parallel = par
+            self._parallel = _DaskPool(self._client)
         # warm-up (spawns the worker processes; loads the problem's integrand there when its spec
         # is known), then time one round of empty tasks
         w = self._effective_workers()
@@ -691,8 +750,7 @@ class PoolEvaluator(Evaluator):
                     except Exception:  # noqa: BLE001
                         pass
                 raise
-        import joblib
-        return self._parallel(joblib.delayed(fn)(*args) for fn, args in calls)
+        return self._parallel.run_all(calls)
 
     def cancel(self) -> None:
         """Give up on the evaluation in progress (the run abandoned it, issue 10 item 9).
@@ -711,11 +769,8 @@ class PoolEvaluator(Evaluator):
                     ex.shutdown(wait=False, cancel_futures=True)
             except Exception:  # noqa: BLE001 - cancelling must not raise
                 pass
-        if self._parallel is not None and self._client is not None:
-            try:
-                self._client.cancel(list(self._client.futures.values()), force=True)
-            except Exception:  # noqa: BLE001
-                pass
+        if self._parallel is not None:
+            self._parallel.cancel()
 
     def worker_pids(self) -> list[int]:
         """Process ids answering a round of short tasks (for tests and diagnostics)."""
@@ -740,10 +795,7 @@ class PoolEvaluator(Evaluator):
                 pass
         par, self._parallel = self._parallel, None
         if par is not None:
-            try:
-                par.__exit__(None, None, None)
-            except Exception:  # noqa: BLE001
-                pass
+            par.cancel()
         if self._client is not None and self._own_client:
             try:
                 self._client.close(timeout=10)
