@@ -249,20 +249,15 @@ USER_MODULE = textwrap.dedent("""
 
 
 def test_python_import_path_integrand_in_loky(tmp_path):
-    import threading
     (tmp_path / "usermod.py").write_text(USER_MODULE)
     spec = {"kind": "python", "target": "usermod.py:gauss", "base_dir": str(tmp_path)}
     f = integrand_from_spec(spec)
     ref = _run(f, BOX3, None)
 
-    lock = threading.Lock()
-
-    def unpicklable(X):  # a closure over a lock: cannot be pickled, so the spec must be what travels
-        with lock:
-            return f(X)
-
+    # the bound integrand pickles by reference (import path and code digest), so the worker
+    # processes import the module themselves (issue 11: the evaluator knows nothing of problem files)
     with make_evaluator(2, "processes", spec=spec, chunk_points=512) as ev:
-        res = _run(unpicklable, BOX3, ev)
+        res = _run(f, BOX3, ev)
         assert ev.steps_parallel > 0
         pids = set(ev.worker_pids())
     assert np.array_equal(res.values, ref.values)
@@ -378,3 +373,31 @@ def test_dask_needs_a_reachable_scheduler(tmp_path):
     with pytest.raises(ValueError) as info:
         make_evaluator(2, "dask", str(tmp_path / "no-such-scheduler.json"))
     assert "scheduler file" in str(info.value)
+
+
+def test_parallel_module_does_not_import_the_problem_layer():
+    """issue 11 item 4: the engine's evaluator imports nothing above the engine."""
+    import ast
+    from pathlib import Path
+
+    import cubage.engine.parallel as parallel
+    tree = ast.parse(Path(parallel.__file__).read_text())
+    names = [n.module for n in ast.walk(tree) if isinstance(n, ast.ImportFrom) and n.module] + \
+        [a.name for n in ast.walk(tree) if isinstance(n, ast.Import) for a in n.names]
+    assert not [m for m in names if m.startswith(("cubage.problem", "cubage.session", "cubage.cli", "cubage.tui"))]
+
+
+def test_unpicklable_integrand_for_processes_is_one_line():
+    """issue 11 item 4: an integrand that cannot be pickled is a one-line IntegrandError naming it."""
+    import threading
+    lock = threading.Lock()
+
+    def holds_a_lock(X):
+        with lock:
+            return X[:, 0]
+
+    holds_a_lock.lock = lock          # cloudpickle follows the function's attributes
+    with make_evaluator(2, "processes", chunk_points=4) as ev:
+        with pytest.raises(cubage.IntegrandError) as info:
+            _run(holds_a_lock, BOX2, ev)
+    assert "cannot be sent to worker processes" in str(info.value) and "\n" not in str(info.value)

@@ -47,15 +47,15 @@ shuts it down; :meth:`PoolEvaluator.cancel` gives up on a step in progress
 
 How integrands travel
 ---------------------
-* an expression (:class:`cubage.problem.expr.CompiledExpression`, or a problem's
-  ``spec`` of kind ``"expr"``) travels as its source and is compiled once in
-  each worker process;
-* a Python integrand from a problem file travels as its import path (``spec``
-  of kind ``"python"``) and is imported once in each worker process; both are
-  cached in the one module-level dict :data:`_WORKER_INTEGRANDS`, keyed by the
-  spec's JSON;
-* any other callable is pickled as joblib does by default (cloudpickle, for
-  processes and dask; threads share it).
+The integrand is pickled once per run in this process (with cloudpickle, so
+that lambdas and closures travel too) and each worker process unpickles it
+once, caching it in the one module-level dict :data:`_WORKER_INTEGRANDS`
+keyed by the pickle's SHA-256.  A problem's integrands pickle by reference:
+an expression (:class:`cubage.problem.expr.CompiledExpression`) as its
+source, compiled once in each worker; a Python integrand
+(:class:`cubage.problem.python_integrand.PythonIntegrand`) as its import path
+and code digest, imported once in each worker.  This module imports nothing
+of the problem layer (issue 11).  Threads share the callable.
 
 The automatic rule
 ------------------
@@ -207,13 +207,29 @@ def _one_line(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {msg}" if msg else type(exc).__name__
 
 
-def _worker_integrand(key: str) -> Callable:
+def _worker_integrand(key: str, blob: bytes) -> Callable:
+    """The integrand pickled in ``blob``, unpickled once in this worker process."""
     f = _WORKER_INTEGRANDS.get(key)
     if f is None:
-        from cubage.problem.problem_file import integrand_from_spec
-        f = integrand_from_spec(json.loads(key))
+        import pickle
+        f = pickle.loads(blob)  # noqa: S301 - pickled by this cubage process for its own workers
         _WORKER_INTEGRANDS[key] = f
     return f
+
+
+def _pickled(f: Callable) -> tuple[str, bytes]:
+    """(SHA-256 hex, pickle) of an integrand, for worker processes; one-line IntegrandError if impossible."""
+    import hashlib
+    try:
+        import cloudpickle as pickler  # what loky uses (a dependency of joblib's loky and of dask)
+    except ImportError:                  # pragma: no cover - plain pickle still carries a problem's integrands
+        import pickle as pickler
+    try:
+        blob = pickler.dumps(f)
+    except Exception as exc:  # noqa: BLE001 - whatever the pickler raised
+        raise IntegrandError(f"integrand {integrand_name(f)} cannot be sent to worker processes "
+                             f"({_one_line(exc)}); use threads or one worker") from None
+    return hashlib.sha256(blob).hexdigest(), blob
 
 
 def _eval_chunks(f: Callable, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
@@ -235,14 +251,13 @@ def _eval_chunks(f: Callable, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
 
 def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
     """One task: re-create or unwrap the integrand, evaluate its chunks."""
-    kind, obj = payload
-    if kind == "spec":
+    if payload[0] == "pickled":
         try:
-            f = _worker_integrand(obj)
+            f = _worker_integrand(payload[1], payload[2])
         except (Exception, SystemExit, KeyboardInterrupt) as exc:  # noqa: BLE001 - whatever the import raised
             raise _WorkerFailure(f"could not be loaded in the worker: {_one_line(exc)}") from None
     else:
-        f = obj
+        f = payload[1]
     if not X.flags.writeable:  # arrays may arrive as read-only buffers or memory maps
         X = np.array(X)
     try:
@@ -255,11 +270,11 @@ def _run_task(payload: tuple, X: np.ndarray, bounds: np.ndarray) -> np.ndarray:
         raise _WorkerFailure(f"raised {_one_line(exc)}") from None
 
 
-def _preload(key: str) -> int:
-    """Warm-up task: re-create the integrand from its spec once in this worker (errors wait for real use)."""
+def _preload(key: str, blob: bytes) -> int:
+    """Warm-up task: unpickle the integrand once in this worker (errors wait for the first real task)."""
     try:
-        _worker_integrand(key)
-    except Exception:  # noqa: BLE001 - reported by the first real task instead
+        _worker_integrand(key, blob)
+    except (Exception, SystemExit, KeyboardInterrupt):  # noqa: BLE001 - reported by the first real task
         pass
     return os.getpid()
 
@@ -441,16 +456,6 @@ def integrand_name(f: Callable | None = None, spec: dict | None = None) -> str:
     mod = getattr(f, "__module__", None) or "?"
     qual = getattr(f, "__qualname__", None) or type(f).__name__
     return _clip(f"{mod}:{qual}")
-
-
-def _spec_of(f: Callable, spec: dict | None) -> dict | None:
-    if spec is not None:
-        return spec
-    src = getattr(f, "source", None)
-    if hasattr(f, "variables") and hasattr(f, "constants") and isinstance(src, (str, list)):
-        return {"kind": "expr", "source": src, "variables": list(f.variables),
-                "constants": dict(f.constants)}
-    return None
 
 
 def resolve_workers(workers) -> int:
@@ -721,11 +726,12 @@ class PoolEvaluator(Evaluator):
             self._executor = _DaemonThreadPool(self.workers, "cubage-eval")
         else:
             self._parallel = _DaskPool(self._client)
-        # warm-up (spawns the worker processes; loads the problem's integrand there when its spec
-        # is known), then time one round of empty tasks
+        # warm-up (spawns the worker processes; unpickles the integrand there when it is known),
+        # then time one round of empty tasks
         w = self._effective_workers()
-        if self.spec is not None and self.backend != "threads":
-            self._run_all([(_preload, (json.dumps(self.spec, sort_keys=True),))] * w)
+        cached = self._payload_cache
+        if cached is not None and cached[1][0] == "pickled":
+            self._run_all([(_preload, cached[1][1:])] * w)
         else:
             self._run_all([(_noop, ())] * w)
         t0 = time.perf_counter()
@@ -828,8 +834,7 @@ class PoolEvaluator(Evaluator):
         cached = self._payload_cache
         if cached is not None and cached[0] is f:
             return cached[1]
-        spec = _spec_of(f, self.spec)
-        payload = ("spec", json.dumps(spec, sort_keys=True)) if spec is not None else ("callable", f)
+        payload = ("pickled", *_pickled(f))
         self._payload_cache = (f, payload)
         return payload
 
@@ -867,6 +872,7 @@ class PoolEvaluator(Evaluator):
         bounds = chunk_bounds(n, self.chunk_points)
         if not self._want_parallel(n, bounds.size - 1):
             return self._serial(f, X)
+        self._payload(f)                 # pickled once (and preloaded by the workers as they start)
         try:
             self._start()
         except Exception as exc:  # noqa: BLE001 - cannot start workers: say so, as an integrand failure
