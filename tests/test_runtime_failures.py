@@ -119,6 +119,17 @@ def test_cli_integrand_calling_sys_exit_fails_with_json(tmp_path):
     assert proc.returncode == 2 and "SystemExit" in proc.stderr and "Traceback" not in proc.stderr
 
 
+def test_callers_numpy_errstate_applies_to_the_integrand():
+    """issue 10 item 9 (the abandonable call runs in a helper thread): numpy's errstate set by the caller
+    still applies to the integrand, as it did when the engine called it directly."""
+    def inverse(X):
+        return 1.0 / (X[:, 0] - 0.5)        # 0.5 is a node of the first region: division by zero
+
+    with np.errstate(divide="raise"), pytest.raises(cubage.IntegrandError) as info:
+        cubage.integrate(inverse, cubage.Box([0.0], [1.0]), rule="gauss-kronrod")
+    assert "FloatingPointError" in str(info.value)
+
+
 # ---------------------------------------------------------------------------
 # item 14 (part): wrong shapes
 # ---------------------------------------------------------------------------

@@ -19,6 +19,10 @@ Two side effects of calling in a thread, both wanted:
 * signal handlers run in the main thread within one wait slice, even while
   the integrand is stuck in a long computation or a blocking call.
 
+The call runs in a copy of the caller's :mod:`contextvars` context, so a
+``numpy.errstate`` (or any other context variable) set around the engine
+applies to the integrand as if it were called directly.
+
 The helper thread is kept between calls (a hand-over costs tens of
 microseconds, not a thread start) and ends by itself after
 :data:`IDLE_SECONDS` without work, so runs that are dropped leave no thread.
@@ -26,6 +30,7 @@ microseconds, not a thread start) and ends by itself after
 
 from __future__ import annotations
 
+import contextvars
 import queue
 import threading
 from collections.abc import Callable
@@ -55,11 +60,12 @@ class CallFailed(Exception):
 
 
 class _Job:
-    __slots__ = ("fn", "args", "done", "value", "error")
+    __slots__ = ("fn", "args", "context", "done", "value", "error")
 
     def __init__(self, fn: Callable, args: tuple):
         self.fn = fn
         self.args = args
+        self.context = contextvars.copy_context()   # the caller's numpy errstate and other context
         self.done = threading.Event()
         self.value = None
         self.error: BaseException | None = None
@@ -90,7 +96,7 @@ class AbandonableCaller:
                         return
                 continue
             try:
-                job.value = job.fn(*job.args)
+                job.value = job.context.run(job.fn, *job.args)
             except BaseException as exc:  # noqa: BLE001 - SystemExit/KeyboardInterrupt of user code included
                 job.error = exc
             finally:
