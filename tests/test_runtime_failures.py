@@ -326,3 +326,20 @@ def test_workers_die_with_a_killed_parent_and_release_its_pipes(tmp_path):
         if p.poll() is None:
             p.kill()
             p.wait()
+
+
+def _output_targets(_=None):
+    """Where this process's stdout and stderr go (Linux)."""
+    return os.readlink("/proc/self/fd/1"), os.readlink("/proc/self/fd/2")
+
+
+@pytest.mark.skipif(not Path("/proc/self/fd").is_dir(), reason="reads /proc (Linux)")
+def test_every_worker_pool_writes_nothing_to_cubages_pipes():
+    """issue 10 items 13 and 15a: the evaluator's loky workers and the scan's worker processes have their
+    stdout/stderr on /dev/null, so they never hold cubage's output pipes."""
+    from cubage.session.scan import _executor
+    with make_evaluator(2, "processes") as ev:
+        outs = ev._run_all([(_output_targets, ())] * 4)
+    ex = _executor(2)
+    outs += [ex.submit(_output_targets).result(timeout=60) for _ in range(4)]
+    assert outs and all(o == (os.devnull, os.devnull) for o in outs)

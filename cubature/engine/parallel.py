@@ -102,7 +102,7 @@ import numpy as np
 
 from cubage.engine.run import IntegrandError
 
-__all__ = ["make_evaluator", "describe_evaluator", "chunk_bounds", "resolve_workers", "Evaluator",
+__all__ = ["make_evaluator", "describe_evaluator", "chunk_bounds", "resolve_workers", "Evaluator", "worker_setup",
            "PoolEvaluator", "integrand_name", "BACKENDS", "MIN_PARALLEL_SECONDS", "MIN_MEASURE_SECONDS",
            "DISPATCH_GUESS",
            "STARTUP_SECONDS"]
@@ -313,6 +313,17 @@ def _init_worker(parent: int, quiet: bool) -> None:
         except Exception:  # noqa: BLE001
             pass
     threading.Thread(target=_watch_parent, args=(parent,), name="cubage-parent-watch", daemon=True).start()
+
+
+def worker_setup() -> tuple[Callable, tuple]:
+    """``(initializer, initargs)`` for any loky pool of this process: quiet workers that end with it.
+
+    Pass them to ``ProcessPoolExecutor`` / ``get_reusable_executor`` so that
+    every worker process of cubage behaves like the evaluator's (issue 10
+    items 13 and 15a): no output on the terminal, no pipes held after cubage
+    exits.
+    """
+    return _init_worker, (os.getpid(), QUIET_WORKERS)
 
 
 class _DaemonThreadPool:

@@ -666,7 +666,10 @@ def _executor(workers, cluster=None):
     if cluster is not None:
         return cluster.get_executor() if hasattr(cluster, "get_executor") else cluster
     from joblib.externals.loky import get_reusable_executor
-    return get_reusable_executor(max_workers=int(workers))
+
+    from cubage.engine.parallel import worker_setup
+    init, args = worker_setup()            # quiet workers that end with this process (issue 10 item 15a)
+    return get_reusable_executor(max_workers=int(workers), initializer=init, initargs=args)
 
 
 def run_scan(source, domain, grid: ScanGrid, settings: dict, *, warm: bool = True, chains: int | None = None,
