@@ -201,7 +201,7 @@ def run_scan_command(args, problem, settings: dict, name: str) -> int:
     from cubage import __version__
     from cubage.cli.commands import UsageError
     from cubage.session.run_directory import RunDir
-    if problem.method.cluster and not args.cluster:
+    if (problem.method.cluster or getattr(problem.method, "cluster_ignored", None)) and not args.cluster:
         where = str(problem.path) if problem.path is not None else "<problem>"
         raise UsageError(f"{where}: [method] cluster: a scan connects only to a cluster named on the command line "
                          "(--cluster ADDR)")
