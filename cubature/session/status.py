@@ -47,7 +47,7 @@ WORDS: dict[str, str] = {**ENGINE_WORDS, **SESSION_WORDS}
 FINAL: frozenset[str] = frozenset(w for w in ENGINE_WORDS if w not in ("running", "paused")) | {"runner-gone"}
 
 #: Final statuses from which a new goal or budget lets the same run go on (Run.set_goal reopens them).
-REOPENABLE: frozenset[str] = frozenset({"converged", "budget-spent", "time-limit", "stopped"})
+REOPENABLE: frozenset[str] = frozenset({"converged", "budget-spent", "time-limit", "stopped", "memory-ceiling"})
 
 EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
