@@ -135,20 +135,20 @@ def test_problem_file_cluster_is_never_connected(tmp_path, capsys, hostile, back
 
 
 def test_text_ui_evaluator_ignores_an_untrusted_cluster(tmp_path, hostile):
-    """issue 10 item 0: the UI builds its evaluator from the problem; the file's cluster is not used."""
-    pytest.importorskip("textual")
+    """issue 10 item 0: the UI prepares its run through the session (prepare_run, start_evaluator=True, as
+    tui/run_view.py does); the file's cluster is not used."""
     from cubage.problem.problem_file import load_problem
-    from cubage.tui.run_view import make_evaluator
+    from cubage.session.prepare import Overrides, prepare_run
     prob = tmp_path / "p.toml"
     prob.write_text(PROBLEM.format(backend="dask", cluster=hostile.address))
     problem = load_problem(prob)
     assert problem.method.cluster is None and problem.method.cluster_ignored == hostile.address
-    ev, how = make_evaluator(problem, 2)
+    prep = prepare_run(problem, Overrides(workers=2), start_evaluator=True)
     try:
-        assert "dask" not in how
+        assert "dask" not in prep.evaluation
+        assert any("not used" in n for n in prep.notes)
     finally:
-        if ev is not None:
-            ev.close()
+        prep.close()
     assert hostile.connections == 0
 
 
