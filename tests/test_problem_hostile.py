@@ -273,3 +273,12 @@ def test_many_variables_refused_before_building_anything():
     verts = ", ".join(["[" + ", ".join("1" if j == i else "0" for j in range(d)) + "]" for i in range(-1, d)])
     err = _error(_problem("v0", f"[domain]\nvariables = [{names}]\nsimplex = [{verts}]\n"))
     assert "[domain] variables" in err.headline and "1 to 20 dimensions" in err.headline
+
+
+def test_long_expressions_and_many_constants_keep_messages_short():
+    """issue 10 items 7 and 21: the caret line shows a window of a long expression and the list of names is cut."""
+    consts = "constants = { " + ", ".join(f"c{i} = 1.0" for i in range(500)) + " }\n"
+    err = _error(_problem("x + " * 150 + "qq", extra=consts))
+    assert "unknown name 'qq'" in err.headline and "and 488 more" in err.headline
+    expr_line, caret = str(err).splitlines()[1:3]
+    assert len(expr_line) < 120 and expr_line[caret.index("^"):].startswith("qq")

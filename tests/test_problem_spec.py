@@ -199,3 +199,21 @@ def test_unpickled_expressions_are_compiled_once_per_process():
     assert a is b
     X = np.array([[0.5, 2.0]])
     np.testing.assert_array_equal(a(X), [[1.0, 3.0]])     # x*y = 1, k = 3, by hand
+
+
+def test_ui_reads_problems_through_the_spec(tmp_path):
+    """issue 10 items 7 and 11: the UI's file reading goes through the problem layer's spec:
+    a many-part dotted key is refused at once, and a Python problem is described without importing it."""
+    from cubage.tui.problem_facts import ProblemFacts
+    hostile = tmp_path / "hostile.toml"
+    hostile.write_text("a" + ".a" * 100_000 + " = 1\n")      # the TOML parser alone would take minutes
+    with pytest.raises(ProblemError, match="dotted parts"):
+        ProblemFacts.from_file(hostile)
+    marker = tmp_path / "imported"
+    f = _python_problem(tmp_path, f"""
+        open({str(marker)!r}, "w").close()
+        def f(X):
+            return X[:, 0]
+        """)
+    facts = ProblemFacts.from_file(f)
+    assert facts.variables == ["x"] and facts.kind == "box" and not marker.exists()

@@ -36,6 +36,10 @@ __all__ = ["ExpressionError", "CompiledExpression", "compile_expression", "FUNCT
            "RESERVED_NAMES", "function_names", "normalise_name", "declared_name", "MAX_DEPTH"]
 
 
+#: Longest part of an expression shown under an error message.
+_SHOWN = 100
+
+
 class ExpressionError(ValueError):
     """An expression that cannot be compiled.
 
@@ -66,11 +70,18 @@ class ExpressionError(ValueError):
         """The expression and, when the column is known, a ``^^^`` line under the culprit."""
         if not self.source:
             return []
-        lines = ["    " + self.source]
+        text, shift = self.source, 0
+        if len(text) > _SHOWN:     # a long expression: a window around the culprit, not the whole text
+            col0 = self.column or 0
+            start = max(0, min(col0 - _SHOWN // 2, len(text) - _SHOWN))
+            text = ("..." if start else "") + text[start:start + _SHOWN] + (
+                "..." if start + _SHOWN < len(self.source) else "")
+            shift = start - (3 if start else 0)
+        lines = ["    " + text]
         if self.column is not None:
-            col = max(0, min(self.column, len(self.source)))
-            end = self.end_column if self.end_column is not None else col + 1
-            width = max(1, min(end, len(self.source) + 1) - col)
+            col = max(0, min(self.column - shift, len(text)))
+            end = (self.end_column - shift) if self.end_column is not None else col + 1
+            width = max(1, min(end, len(text) + 1, col + _SHOWN) - col)
             lines.append("    " + " " * col + "^" * width)
         return lines
 
@@ -302,9 +313,9 @@ class _Checker:
             self.fail(f"{name} is a function; call it, as in {name}(x)", node)
         # suggest among the names a bare word can mean, never a look-alike function (issue 10 item 21)
         names = sorted(self.variables | self.constants | RESERVED_NAMES)
-        listed = f"; the variables are {', '.join(self.declared_variables)}"
+        listed = f"; the variables are {_some(self.declared_variables)}"
         if self.constants:
-            listed += f", the constants {', '.join(sorted(self.constants))}"
+            listed += f", the constants {_some(sorted(self.constants))}"
         self.fail(f"unknown name '{name}'{_suggest(name, names)}{listed}", node)
 
     def visit_BinOp(self, node):
@@ -364,6 +375,12 @@ class _Checker:
             self.fail(f"{name}() takes {want}, got {n}", node)
         for a in node.args:
             self.check(a)
+
+
+def _some(names: list[str], most: int = 12) -> str:
+    """The names joined with commas, at most ``most`` of them (then how many more)."""
+    shown = ", ".join(names[:most])
+    return shown if len(names) <= most else f"{shown} and {len(names) - most} more"
 
 
 def _describe_forbidden(node) -> str:
