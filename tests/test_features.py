@@ -281,3 +281,174 @@ def test_bad_features_refused():
         Run(lambda X: X[:, 0], Box([0, 0], [1, 1]), singular=[{"point": [0, 0], "power": -2.5}])
     with pytest.raises(FeatureError):
         Run(lambda X: X[:, 0], Box([0, 0], [1, np.inf]), cuts=[[[1, 1], 1]])
+
+
+# ---------------------------------------------------------------- expressions: automatic detection
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+from cubage.problem.expr import compile_expression  # noqa: E402
+from cubage.problem.features import analyse, parse_plane, to_engine  # noqa: E402
+
+
+def _detect(src, variables, domain):
+    return to_engine(analyse(src, variables), domain)[0]
+
+
+def test_detects_switching_functions():
+    v = ["x", "y", "z"]
+    cube = Box([0] * 3, [1] * 3)
+    assert _detect("abs(x - 0.3) * exp(y)", v, cube) == {"breaks": [[0.3], [], []]}
+    assert _detect("(x + y + z < 1.4) * 2", v, cube) == {"cuts": [[[1.0, 1.0, 1.0], 1.4]]}
+    assert _detect("where(y > 0.25, x, 0)", v, cube) == {"breaks": [[], [0.25], []]}
+    assert _detect("maximum(x, 0.5) + sign(z - 0.75)", v, cube) == {"breaks": [[0.5], [], [0.75]]}
+    assert _detect("floor(2*x)", v, cube) == {"breaks": [[0.5], [], []]}
+    assert _detect("x % 0.25", v, cube) == {"breaks": [[0.25, 0.5, 0.75], [], []]}
+    found = analyse("where(x**2 + y**2 < 1, 1, 0)", v)
+    assert found.nonsmooth and not found.planes          # a curved boundary: reported, not cut
+    assert _detect("abs(x - 3)", v, cube) == {}           # misses the domain
+
+
+def test_detects_singular_factors():
+    v = ["x", "y", "z"]
+    tet = SIMPLEX3
+    kw = _detect("(x*y*z*(1 - x - y - z))**-0.5", v, tet)
+    planes = sorted((tuple(s["normal"]), s["offset"], s["power"]) for s in kw["singular"])
+    assert planes == [((0.0, 0.0, 1.0), 0.0, -0.5), ((0.0, 1.0, 0.0), 0.0, -0.5), ((1.0, 0.0, 0.0), 0.0, -0.5),
+                      ((1.0, 1.0, 1.0), 1.0, -0.5)]
+    kw = _detect("1/sqrt((x - 0.5)**2 + (y - 0.5)**2 + (z - 0.5)**2)", v, Box([0] * 3, [1] * 3))
+    assert kw == {"singular": [{"point": [0.5, 0.5, 0.5], "power": -1.0}]}
+    kw = _detect("hypot(x - 0.2, y)**-1.5", ["x", "y"], Box([0, 0], [1, 1]))
+    assert kw == {"singular": [{"point": [0.2, 0.0], "power": -1.5}]}
+    kw = _detect("log(x) * exp(y)", ["x", "y"], Box([0, 0], [1, 1]))
+    assert kw == {"singular": [{"normal": [1.0, 0.0], "offset": 0.0, "power": None}]}
+
+
+def test_removable_singularity_in_an_expression():
+    """issue 13 item 3: sin(x)/x gets a break at 0 (no node there); sin_over_x is defined at 0."""
+    from scipy.special import sici
+    exact = 2 * sici(1.0)[0]                                  # int_{-1}^{1} sin(x)/x dx = 2 Si(1)  (scipy.special)
+    f = compile_expression("sin(x)/x", ["x"])
+    kw = _detect("sin(x)/x", ["x"], Box([-1.0], [1.0]))
+    assert kw == {"breaks": [[0.0]]}
+    res = integrate(f, Box([-1.0], [1.0]), rule="gauss-kronrod", rel_tol=1e-12, **kw)
+    assert res.value == pytest.approx(exact, rel=1e-12)
+    g = compile_expression("sin_over_x(x)", ["x"])
+    assert g(np.array([[0.0], [1e-3], [2.0]])) == pytest.approx([1.0, math.sin(1e-3) / 1e-3, math.sin(2) / 2],
+                                                              rel=1e-15)
+    res = integrate(g, Box([-1.0], [1.0]), rule="gauss-kronrod", rel_tol=1e-12)
+    assert res.value == pytest.approx(exact, rel=1e-12)
+
+
+def test_parse_plane():
+    assert parse_plane("x + 2*y = 1.5", ["x", "y"]) == ([1.0, 2.0], 1.5)
+    assert parse_plane("x = y", ["x", "y"]) == ([1.0, -1.0], 0.0)
+    for bad in ("x*y = 1", "x + y", "x = 1 = y", "2 = 3"):
+        with pytest.raises(ValueError):
+            parse_plane(bad, ["x", "y"])
+
+
+def _pos_part_integral(a, b):
+    # int_{[0,1]^d} (a.x - b)_+ dx by iterated integration: 1/((d+1)! prod a_i) sum_S (-1)^(d-|S|) (a_S - b)_+^(d+1)
+    # (each step int_0^1 (a_i t + c)_+^m dt = ((a_i + c)_+^(m+1) - c_+^(m+1)) / ((m+1) a_i)); evaluated with mpmath
+    import mpmath
+    mpmath.mp.dps = 40
+    d = len(a)
+    a = [mpmath.mpf(x) for x in a]
+    b = mpmath.mpf(b)
+    total = mpmath.mpf(0)
+    for S in itertools.product((0, 1), repeat=d):
+        t = sum(ai for ai, s in zip(a, S) if s) - b
+        total += (-1) ** (d - sum(S)) * (max(t, 0) ** (d + 1))
+    return total / (math.factorial(d + 1) * mpmath.fprod(a))
+
+
+def _abs_integral(a, b):
+    # |y| = 2 y_+ - y, and int (a.x - b) dx = sum(a)/2 - b
+    import mpmath
+    return float(2 * _pos_part_integral(a, b) - (mpmath.fsum(mpmath.mpf(x) for x in a) / 2 - mpmath.mpf(b)))
+
+
+_coef = st.floats(0.15, 1.0).map(lambda v: round(v, 3)) | st.floats(-1.0, -0.15).map(lambda v: round(v, 3))
+
+
+@settings(max_examples=12, deadline=None, derandomize=True)
+@given(st.integers(2, 4).flatmap(lambda d: st.tuples(
+    st.lists(st.tuples(st.lists(_coef, min_size=d, max_size=d), st.floats(0.2, 0.8).map(lambda v: round(v, 3)),
+                       st.floats(0.5, 2.0).map(lambda v: round(v, 2))), min_size=1, max_size=2),
+    st.just(d))))
+def test_random_affine_kinks_detected_and_integrated(case):
+    """issue 13: random affine kinks, found in the expression, integrate to the exact piecewise-polynomial value."""
+    kinks, d = case
+    names = ["x", "y", "z", "w"][:d]
+    terms, exact = [], 0.0
+    for a, frac, c in kinks:
+        # the plane a.x = b passes through the cube: b between the smallest and largest value of a.x on it
+        lo, hi = sum(min(ai, 0) for ai in a), sum(max(ai, 0) for ai in a)
+        b = round(lo + frac * (hi - lo), 3)
+        terms.append(f"{c!r} * abs({' + '.join(f'({ai!r})*{n}' for ai, n in zip(a, names))} - {b!r})")
+        exact += c * _abs_integral(a, b)
+    src = " + ".join(terms)
+    f = compile_expression(src, names)
+    domain = Box([0] * d, [1] * d)
+    kw = _detect(src, names, domain)
+    assert kw, "the kinks must be found"
+    res = integrate(f, domain, rel_tol=1e-9, budget=3_000_000, **kw)
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= max(2 * res.error, 1e-12 * abs(exact))
+
+
+# ---------------------------------------------------------------- problem files and the check command
+
+KINKED = """
+[domain]
+variables = ["x", "y", "z"]
+box = [[0, 1], [0, 1], [0, 1]]
+[integrand]
+expr = "abs(x + y + z - 1.4) + abs(x - 0.3) + 1/sqrt((x - c)**2 + (y - c)**2 + (z - c)**2)"
+constants = { c = 0.5 }
+[goal]
+rel_tol = 1e-7
+"""
+
+
+def test_problem_file_features_found_and_used(write_problem, cli):
+    # E|S - 1.4| (Irwin-Hall, k = 3) + E|U - 0.3| (= 0.29) + 2 B_3(-1) (cube potential at its centre, see above)
+    path = write_problem("kinked.toml", KINKED + '[features]\nbreaks = { y = [0.25] }\n')
+    code, out, err = cli("check", str(path))
+    assert code == 0, err
+    assert "break at y = 0.25  (declared)" in out
+    assert "break at x = 0.3" in out and "cut along x + y + z = 1.4" in out
+    assert "singular point (0.5, 0.5, 0.5), power -1" in out and "simplices" in out
+    code, out, err = cli("run", str(path), "--json")
+    assert code == 0, err
+    import json
+    res = json.loads(out)
+    exact = irwin_hall_abs_mean(1.4, 3) + 0.29 + 2 * box_integral_b3_minus1()
+    assert res["status"] == "converged"
+    assert abs(res["value"] - exact) <= max(res["error"], 1e-9)
+
+
+def test_alignment_off_and_declared_only(write_problem):
+    from cubage.problem.problem_file import load_problem
+    p = load_problem(write_problem("off.toml", KINKED + '[method]\nalign = "off"\n'))
+    assert p.features == {}
+    p = load_problem(write_problem("decl.toml", KINKED + '[method]\nalign = "declared"\n'
+                                   '[features]\ncuts = ["x + y + z = 1.4"]\n'))
+    assert p.features == {"cuts": [[[1.0, 1.0, 1.0], 1.4]]}
+
+
+@pytest.mark.parametrize("table,needle", [
+    ('[features]\nbreaks = { q = [0.5] }', "[features] breaks: 'q' is not a variable"),
+    ('[features]\ncuts = ["x*y = 1"]', "[features] cuts: 'x*y' in 'x*y = 1' is not affine"),
+    ('[features]\nsingular = [{ point = [0, 0] }]', "[features] singular: point must be a list of 3 numbers"),
+    ('[features]\nsingular = [{ point = [0, 0, 0], power = -3 }]', "not integrable"),
+    ('[features]\nholes = 1', "[features] holes: unknown key"),
+    ('[method]\nalign = "maybe"', "[method] align: must be one of auto, declared, off"),
+])
+def test_bad_feature_tables_are_one_line_errors(write_problem, cli, table, needle):
+    path = write_problem("bad.toml", KINKED + table + "\n")
+    code, out, err = cli("check", str(path))
+    assert code == 2
+    assert needle in err and len(err.strip().splitlines()) == 1

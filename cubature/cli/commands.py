@@ -389,11 +389,12 @@ def _second_opinion(prep, res, guard) -> dict:
     from cubage.session.driver import RunDriver
     from cubage.session.jsonio import json_safe
     problem, run = prep.problem, prep.run
-    opts, words = second_opinion(problem.domain.kind, problem.domain.dim, run.rule_name, run.settings.split)
+    opts, words = second_opinion(run.geometry.kind, problem.domain.dim, run.rule_name, run.settings.split)
     s = run.settings
+    feats = {k: getattr(s, k) for k in ("breaks", "cuts", "singular") if getattr(s, k, None)}   # same boundaries
     try:
         alt = Run(problem.integrand, problem.domain, evaluator=run.evaluator, fingerprint=prep.fingerprint,
-                  rel_tol=s.rel_tol, abs_tol=s.abs_tol, budget=s.budget, time_limit=s.time_limit, **opts)
+                  rel_tol=s.rel_tol, abs_tol=s.abs_tol, budget=s.budget, time_limit=s.time_limit, **opts, **feats)
     except ValueError as exc:
         return {"method": words, "status": "failed", "message": str(exc), "agree": None}
     driver = RunDriver(alt)
@@ -578,6 +579,7 @@ def _check_rows(problem) -> tuple[list[tuple[str, str]], dict]:
     rows.insert(idx, ("rule", f"{name} ({how}), {nodes} nodes per region, {per}"))
     if problem.notes:
         rows.append(("notes", " ".join(problem.notes.split())))
+    rows += _feature_rows(problem)
     return rows, {"rule": name, "nodes_per_region": nodes, "components": int(problem.components)}
 
 
@@ -630,6 +632,18 @@ def _list_entry(f: Path) -> dict:
     entry.update(ok=True, dimension=spec.dim, kind=kind, title=spec.title, integrand=spec.kind,
                  needs_allow_python=spec.needs_python)
     return entry
+
+
+def _feature_rows(problem) -> list[tuple[str, str]]:
+    """What ``[features]`` declares and the expression shows, and the decomposition it gives (issue 13)."""
+    from cubage.engine.partition import FeatureError, describe_features
+    rows = [("feature", line) for line in getattr(problem, "feature_lines", [])]
+    if getattr(problem, "features", None):
+        try:
+            rows.append(("pieces", describe_features(problem.domain, problem.features, problem.method.degree)))
+        except FeatureError as exc:
+            raise UsageError(f"{_problem_where(problem)}: [features] {exc}") from None
+    return rows
 
 
 def cmd_list(args) -> int:

@@ -589,3 +589,22 @@ def describe(geometry) -> str:
             txt += ", graded axes " + ", ".join(str(i) for i in geometry.map._axes)
         return txt
     return "one region (no features)"
+
+
+def describe_features(domain, features: dict, degree: int | None = None, rule: str | None = None) -> str:
+    """Build the decomposition for ``features`` (engine keywords) and describe it in one line.
+
+    Raises
+    ------
+    FeatureError
+    """
+    from types import SimpleNamespace
+
+    from cubage.engine.rules import box_rule, default_rule, simplex_rule
+    s = SimpleNamespace(breaks=features.get("breaks"), cuts=features.get("cuts"),
+                        singular=features.get("singular"), rule=rule, degree=degree or 7, split="bisect")
+    made = make_geometry(domain, s, box_rule, simplex_rule, default_rule)
+    if made is None:
+        return "one region (no features)"
+    geometry, name = made
+    return f"{describe(geometry)}, rule {name}"

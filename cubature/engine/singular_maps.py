@@ -82,18 +82,18 @@ def face_power(a: float | None) -> float:
     float
     """
     a = -0.5 if a is None else float(a)
-    if a >= 0:
-        return 1.0
+    if a >= 0 and abs(a - round(a)) < 1e-12:
+        return 1.0                      # a polynomial factor: nothing to flatten
     if a <= -1:
         raise ValueError(f"a singularity t**{a:g} at a face is not integrable (the power must exceed -1)")
     c = a + 1.0
-    for k in range(12):
+    for k in range(64):
         p = (k + 1) / c
         if p > 12.5:
             break
-        if abs(p - round(p)) < 1e-9:
+        if p >= 1 and abs(p - round(p)) < 1e-9:
             return float(round(p))
-    return float(min(40, math.ceil(3.0 / c)))
+    return float(min(40, max(1, math.ceil(3.0 / c))))
 
 
 def point_power(a: float | None, d: int) -> float:
@@ -117,8 +117,8 @@ def point_power(a: float | None, d: int) -> float:
     float
     """
     a = -0.5 * d if a is None else float(a)
-    if a >= 0:
-        return 1.0
+    if a >= 0 and abs(a - round(a)) < 1e-12 and round(a) % 2 == 0:
+        return 1.0                      # |r|**(2k) is a polynomial
     if a <= -d:
         raise ValueError(f"a point singularity |r|**{a:g} is not integrable in {d}-D (the power must exceed {-d})")
     return float(max(1, math.ceil((d + 2.0) / (a + d) - 1e-9)))

@@ -188,6 +188,14 @@ _add("kv", sc.kv, 2)
 _add("k0e", sc.k0e, 1)
 _add("k1e", sc.k1e, 1)
 _add("sinc", np.sinc, 1)          # normalised: sin(pi x) / (pi x)
+
+
+def _sin_over_x(x):
+    """sin(x)/x with its limit 1 at x = 0 (a removable singularity never evaluates as 0/0)."""
+    return np.sinc(np.asarray(x, dtype=np.float64) / np.pi)
+
+
+_add("sin_over_x", _sin_over_x, 1)   # unnormalised: sin(x) / x, 1 at x = 0
 _add("logaddexp", np.logaddexp, 2)
 
 #: Names with a fixed meaning that variables and constants may not take.

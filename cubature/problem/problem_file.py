@@ -59,13 +59,14 @@ __all__ = [
 RULES = ("genz-malik", "gauss-kronrod", "grundmann-moller")
 BACKENDS = ("auto", "serial", "processes", "threads", "dask")
 
-_TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "reference", "scan")
+_TOP_KEYS = ("title", "notes", "domain", "integrand", "goal", "method", "reference", "scan", "features")
 _TABLE_KEYS = {
     "domain": ("variables", "box", "simplex", "scale"),
     "integrand": ("expr", "constants", "python"),
     "goal": ("rel_tol", "abs_tol", "budget", "time_limit", "memory_ceiling"),
-    "method": ("rule", "degree", "workers", "backend", "cluster"),
+    "method": ("rule", "degree", "workers", "backend", "cluster", "align"),
     "reference": ("value", "source"),
+    "features": ("breaks", "cuts", "singular"),
 }
 # keys of earlier releases, refused with the name that replaced them
 _RENAMED_KEYS = {("goal", "max_evals"): "budget"}
@@ -157,6 +158,8 @@ class Problem:
     reference: Reference | None = None
     scan: ScanGrid | None = None       # the [scan] grid (cubage.problem.scan_table), if any
     spec: ProblemSpec | None = None    # the pure data it was bound from (read_problem_spec)
+    features: dict = field(default_factory=dict)     # engine keywords breaks/cuts/singular (problem.features)
+    feature_lines: list = field(default_factory=list)  # what was declared/found and what is done about it
 
     @property
     def dim(self) -> int:
@@ -235,6 +238,8 @@ class ProblemSpec:
     method: Method
     reference: Reference | None
     scan: ScanGrid | None = None
+    features: dict = field(default_factory=dict)    # engine keywords breaks/cuts/singular (issue 13)
+    feature_lines: tuple = ()                       # what was declared/found and what is done about it
 
     @property
     def dim(self) -> int:
@@ -732,10 +737,11 @@ def _read_spec(ctx: _Ctx, text: str, pstr: str | None) -> ProblemSpec:
     reference = _parse_reference(ctx, tables["reference"], components) if "reference" in tables else None
     kind_spec = {"kind": "expr" if expr is not None else "python", "constants": constants}
     scan = _parse_scan(ctx, data["scan"], kind_spec) if "scan" in data else None
+    features, feature_lines = _parse_features(ctx, tables, {**kind_spec, "source": expr}, variables, domain)
     return ProblemSpec(path=Path(pstr) if pstr is not None else None, text=text, title=title, notes=notes,
                        variables=tuple(variables), domain=domain, expr=expr, python=python, base_dir=base_dir,
                        constants=constants, components=components, goal=goal, method=method,
-                       reference=reference, scan=scan)
+                       reference=reference, scan=scan, features=features, feature_lines=tuple(feature_lines))
 
 
 def bind_problem(spec: ProblemSpec, *, allow_python: bool = False) -> Problem:
@@ -791,7 +797,7 @@ def bind_problem(spec: ProblemSpec, *, allow_python: bool = False) -> Problem:
     return Problem(path=spec.path, text=spec.text, title=spec.title, notes=spec.notes,
                    variables=list(spec.variables), domain=spec.domain, integrand=f, integrand_spec=ispec,
                    components=components, goal=spec.goal, method=method, reference=reference,
-                   scan=spec.scan, spec=spec)
+                   scan=spec.scan, spec=spec, features=dict(spec.features), feature_lines=list(spec.feature_lines))
 
 
 def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bool = False) -> Problem:
@@ -813,6 +819,16 @@ def parse_problem(text: str, *, path: Path | str | None = None, allow_python: bo
     ProblemError
     """
     return bind_problem(read_problem_spec(text, path=path), allow_python=allow_python)
+
+
+def _parse_features(ctx, tables, spec, variables, domain) -> tuple[dict, list]:
+    """[features] (declared) and [method] align; expressions are analysed (cubage.problem.features)."""
+    from cubage.problem.features import problem_features
+    src = spec.get("source")
+    spec = {**spec, "source": list(src) if isinstance(src, tuple) else src}
+    kw, lines, _ = problem_features(ctx, tables.get("features"), tables.get("method", {}), spec, list(variables),
+                                    domain)
+    return kw, lines
 
 
 def _parse_scan(ctx, tbl, spec) -> ScanGrid:

@@ -374,6 +374,7 @@ def prepare_run(problem, overrides: Overrides | None = None, *, snapshot_interva
         settings["rule"] = rule
     if degree is not None:
         settings["degree"] = degree
+    settings.update(getattr(problem, "features", None) or {})    # declared + detected (cubage.problem.features)
     fp = problem.fingerprint()
     try:
         run = Run(problem.integrand, problem.domain, fingerprint=fp, snapshot_interval=snapshot_interval, **settings)
@@ -387,6 +388,10 @@ def prepare_run(problem, overrides: Overrides | None = None, *, snapshot_interva
 
 def _run_error(problem, o: Overrides, exc: Exception) -> InputError:
     msg = str(exc)
+    from cubage.engine.partition import FeatureError
+    if isinstance(exc, FeatureError):
+        path = getattr(problem, "path", None)
+        return InputError(f"{path if path is not None else '<problem>'}: [features] {msg}")
     kind = getattr(problem.domain, "kind", "box")
     if "budget" in msg:
         where = o.label("budget") if o.budget is not None else _problem_where(problem, "goal", "budget")
