@@ -420,7 +420,7 @@ def test_problem_file_features_found_and_used(write_problem, cli):
     assert code == 0, err
     assert "break at y = 0.25  (declared)" in out
     assert "break at x = 0.3" in out and "cut along x + y + z = 1.4" in out
-    assert "singular point (0.5, 0.5, 0.5), power -1" in out and "simplices" in out
+    assert "singular point (0.5, 0.5, 0.5), power -1:" in out and "simplices" in out
     code, out, err = cli("run", str(path), "--json")
     assert code == 0, err
     import json

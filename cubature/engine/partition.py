@@ -584,7 +584,7 @@ def describe(geometry) -> str:
             txt += f", {n} of them with a singular map"
         return txt
     if isinstance(geometry, BoxPiecesGeometry):
-        txt = f"{geometry.pieces} sub-boxes"
+        txt = f"{geometry.pieces} sub-box" + ("es" if geometry.pieces != 1 else "")
         if isinstance(geometry.map, GradedAxisMap):
             txt += ", graded axes " + ", ".join(str(i) for i in geometry.map._axes)
         return txt

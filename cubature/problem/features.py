@@ -329,9 +329,8 @@ class _Walker:
                     if kind == "plane" and k >= 1:
                         g, off = where
                         self.found.planes.append((g, off, f"division by {self.src(node.right)}: no node where it "
-                                                          "vanishes"))
-                        self.found.notes.append(f"division by {self.src(node.right)}: integrable where it vanishes "
-                                                "only if the numerator vanishes too (as in sin(x)/x)")
+                                                          "vanishes; integrable there only if the numerator "
+                                                          "vanishes too, as in sin(x)/x"))
                     else:
                         self.singular(node.right, -1.0, f"division by {self.src(node.right)}")
             elif isinstance(node.op, ast.Mod):
@@ -543,8 +542,9 @@ def to_engine(found: Findings, domain) -> tuple[dict, list[str]]:
             if key in seen:
                 continue
             seen.add(key)
+            p = [v + 0.0 for v in p]
             sing.append({"point": p, "power": a})
-            lines.append(f"singular point ({_pt(p)}), power {_pw(a)}: split there, radial map  ({s['why']})")
+            lines.append(f"singular point ({_pt(p)}), power {_pw(a)}: a corner of the pieces there, graded map  ({s['why']})")
         else:
             g, off = _canon(s["normal"], s["offset"])
             if not _touches(domain, g, off):
@@ -580,7 +580,7 @@ def to_engine(found: Findings, domain) -> tuple[dict, list[str]]:
 
 
 def _pt(p) -> str:
-    return ", ".join(f"{v:.10g}" for v in p)
+    return ", ".join(f"{v + 0.0:.10g}" for v in p)
 
 
 def _pw(a) -> str:
