@@ -187,10 +187,17 @@ def _axis_plane(s: dict) -> int | None:
 
 
 def needs_simplices(domain, cuts, singular) -> bool:
-    """True when the features force the simplex decomposition."""
+    """True when the features force the simplex decomposition.
+
+    A singular point in a bounded box does too: the radial map on the Kuhn
+    simplices around it needs 3-20x fewer evaluations than per-axis maps on
+    boxes (``benchmarks/features.py``).
+    """
     if isinstance(domain, Simplex):
         return True
     if cuts:
+        return True
+    if domain.bounded and any("point" in s for s in singular or []):
         return True
     return any("normal" in s and _axis_plane(s) is None for s in singular or [])
 
@@ -274,11 +281,9 @@ class BoxPiecesGeometry(BoxGeometry):
             for x in (breaks or [[]] * d)[i]:
                 knots[i].setdefault(_to_engine(amap, i, x), 1.0)
         for s in singular or []:
-            if "point" in s:
-                p = sm.point_power(s["power"], d)
+            if "point" in s:         # (unbounded boxes only) a corner of the sub-boxes there, never a node
                 for i, x in enumerate(s["point"]):
-                    t = _to_engine(amap, i, x)
-                    knots[i][t] = max(knots[i].get(t, 1.0), p)
+                    knots[i].setdefault(_to_engine(amap, i, x), 1.0)
             else:
                 i = _axis_plane(s)
                 p = sm.face_power(s["power"])
@@ -334,19 +339,65 @@ def _volumes(v: np.ndarray) -> np.ndarray:
     return np.abs(np.linalg.det(v[:, 1:, :] - v[:, :1, :])) / math.factorial(d)
 
 
-def kuhn_simplices(lower, upper) -> np.ndarray:
-    """The ``d!`` Kuhn simplices of a box, shape (d!, d+1, d); they share the main diagonal."""
+def kuhn_simplices(lower, upper, origin=None) -> np.ndarray:
+    """The ``d!`` Kuhn simplices of a box, shape (d!, d+1, d); they share the diagonal from ``origin``.
+
+    ``origin`` (a corner of the box, default ``lower``) is a vertex of every simplex.
+    """
     lo, hi = np.asarray(lower, float), np.asarray(upper, float)
+    start = lo.copy() if origin is None else np.asarray(origin, float).copy()
+    end = np.where(start == lo, hi, lo)
     d = lo.size
     out = []
     for perm in itertools.permutations(range(d)):
-        v = [lo.copy()]
+        v = [start.copy()]
         for ax in perm:
             nxt = v[-1].copy()
-            nxt[ax] = hi[ax]
+            nxt[ax] = end[ax]
             v.append(nxt)
         out.append(np.array(v))
     return np.array(out)
+
+
+def _box_simplices(domain: Box, breaks, singular) -> list[np.ndarray]:
+    """Kuhn simplices of the sub-boxes cut at the break values and singular points/axis planes.
+
+    Each sub-box with a singular point at a corner is triangulated from that
+    corner, so the point is a vertex of all its simplices.
+    """
+    d = domain.dim
+    cuts = [set() for _ in range(d)]
+    for i, vals in enumerate(breaks or []):
+        cuts[i].update(vals)
+    points = [np.asarray(s["point"], float) for s in singular or [] if "point" in s]
+    for p in points:
+        for i in range(d):
+            cuts[i].add(float(p[i]))
+    for s in singular or []:
+        if "normal" in s and _axis_plane(s) is not None:
+            i = _axis_plane(s)
+            cuts[i].add(s["offset"] / s["normal"][i])
+    grid = []
+    for i in range(d):
+        a, b = float(domain.lower[i]), float(domain.upper[i])
+        w = b - a
+        inner = sorted(x for x in cuts[i] if a + _TOL * w < x < b - _TOL * w)
+        grid.append(np.array([a, *inner, b]))
+    count = math.prod(len(g) - 1 for g in grid) * math.factorial(d)
+    if count > MAX_PIECES:
+        raise FeatureError(f"the features cut the box into {count:,} simplices (at most {MAX_PIECES:,})")
+    out = []
+    for idx in itertools.product(*[range(len(g) - 1) for g in grid]):
+        lo = np.array([grid[i][j] for i, j in enumerate(idx)])
+        hi = np.array([grid[i][j + 1] for i, j in enumerate(idx)])
+        origin = None
+        for p in points:
+            at_lo, at_hi = np.isclose(p, lo, rtol=0, atol=1e-13), np.isclose(p, hi, rtol=0, atol=1e-13)
+            if np.all(at_lo | at_hi):
+                origin = np.where(at_lo, lo, hi)
+                break
+        out.extend(kuhn_simplices(lo, hi, origin))
+    return out
 
 
 def _triangulate(points: np.ndarray, vol_tol: float) -> list[np.ndarray]:
@@ -448,18 +499,20 @@ class SimplexPiecesGeometry(SimplexGeometry):
             if not domain.bounded:
                 raise FeatureError("cut planes and non-axis singular planes need a bounded box "
                                    "(infinite axes take break values only)")
-            simp = list(kuhn_simplices(domain.lower, domain.upper))
+            simp = _box_simplices(domain, breaks, singular)
             total = domain.volume()
         else:
             simp = [np.array(domain.vertices, dtype=float)]
             total = domain.volume()
         planes = [(c[0], c[1]) for c in cuts or []]
-        for i, vals in enumerate(breaks or []):
-            for x in vals:
-                n = [0.0] * d
-                n[i] = 1.0
-                planes.append((n, x))
-        planes += [(s["normal"], s["offset"]) for s in singular or [] if "normal" in s]
+        if not isinstance(domain, Box):          # on boxes the axis planes are the sub-box grid
+            for i, vals in enumerate(breaks or []):
+                for x in vals:
+                    n = [0.0] * d
+                    n[i] = 1.0
+                    planes.append((n, x))
+        planes += [(s["normal"], s["offset"]) for s in singular or []
+                   if "normal" in s and not (isinstance(domain, Box) and _axis_plane(s) is not None)]
         for n, b in planes:
             simp = cut_simplices(simp, n, b)
         for s in singular or []:
@@ -498,6 +551,7 @@ class SimplexPiecesGeometry(SimplexGeometry):
                 grade = touch[:, None] & ~on
                 self.face_powers = np.where(grade, np.maximum(self.face_powers, p), self.face_powers)
         self.mapped = (self.radial_vertex >= 0) | (self.face_powers != 1.0).any(axis=1)
+        self.face_floor = sm.face_floors(V)
 
     def root(self) -> dict:
         return {"verts": self.pverts.copy(), "vol": self.pvol.copy(), "piece": np.arange(self.pieces, dtype=np.int32)}
@@ -534,7 +588,7 @@ class SimplexPiecesGeometry(SimplexGeometry):
         fp = self.face_powers[pc]
         f = (fp != 1.0).any(axis=1)
         if f.any():
-            y, jf = sm.faces_map(xs[f], V[f], fp[f], lam[f])
+            y, jf = sm.faces_map(xs[f], V[f], fp[f], lam[f], self.face_floor[pc[f]])
             xs[f] = y
             js[f] *= jf
         x[sel] = xs

@@ -17,10 +17,9 @@ Three maps, each sending its piece onto itself:
     Rabinowitz, *Methods of Numerical Integration*, 2nd ed., 1984, on the
     removal of endpoint singularities by substitution).  For ``f ~ x**a``
     the mapped integrand is ``~ u**(p (a + 1) - 1)``: smooth when that
-    exponent is a non-negative integer, see :func:`face_power`.  A product of
-    such maps on all axes at a box corner also bounds a point singularity
-    ``|r|**a`` with ``a > -d`` (homogeneous of degree ``p (a + d) - d`` along
-    the diagonal), see :func:`point_power`.
+    exponent is a non-negative integer, see :func:`face_power`.  (Point
+    singularities in a bounded box are better served by the radial map on
+    the Kuhn simplices around the point: 3-20x fewer evaluations measured.)
 
 ``radial``  (simplices, at one vertex ``v``)
     ``y = v + s**(p-1) (x - v)`` with ``s = 1 - lambda_v(x)`` the barycentric
@@ -99,10 +98,11 @@ def face_power(a: float | None) -> float:
 def point_power(a: float | None, d: int) -> float:
     """Grading power for a point singularity ``|r|**a`` in ``d`` dimensions.
 
-    Under the radial map (or per-axis endpoint maps at a box corner) the
-    integrand becomes homogeneous of degree ``p (a + d) - d`` at the point;
-    the smallest integer ``p`` making that degree at least 2 is taken (the
-    point's region then converges under bisection like a smooth one).
+    Under the radial map the integrand becomes homogeneous of degree
+    ``p (a + d) - d`` at the point; the smallest integer ``p`` making that
+    degree at least 1 is taken (measured in ``benchmarks/features.py``: for
+    ``1/|r|`` and ``|r|**-2.5`` in 3-D, degrees 1-2 need the fewest
+    evaluations; steeper maps cost more elsewhere).
     ``a = None`` (power not known) is treated as ``-d/2``.
 
     Parameters
@@ -121,7 +121,7 @@ def point_power(a: float | None, d: int) -> float:
         return 1.0                      # |r|**(2k) is a polynomial
     if a <= -d:
         raise ValueError(f"a point singularity |r|**{a:g} is not integrable in {d}-D (the power must exceed {-d})")
-    return float(max(1, math.ceil((d + 2.0) / (a + d) - 1e-9)))
+    return float(max(1, math.ceil((d + 1.0) / (a + d) - 1e-9)))
 
 
 # --------------------------------------------------------------------------
@@ -220,8 +220,23 @@ def radial_map(x: np.ndarray, verts: np.ndarray, vertex: np.ndarray, p: np.ndarr
     return y, jac
 
 
+def face_floors(verts: np.ndarray) -> np.ndarray:
+    """Smallest ``mu_j`` the faces map produces for each face of simplices ``verts`` (k, d+1, d).
+
+    Zero offsets are avoided: a face in a coordinate plane through the origin
+    (where small offsets are exact) gets :data:`TINY`; any other face a few
+    units in the last place of the coordinates, relative to the vertex's height.
+    """
+    k, d1, d = verts.shape
+    mask = ~np.eye(d1, dtype=bool)
+    fverts = np.broadcast_to(verts[:, None, :, :], (k, d1, d1, d))[:, mask].reshape(k, d1, d, d)
+    through0 = _face_through_origin(fverts)
+    vmax = np.abs(verts).max(axis=(1, 2))
+    return np.where(through0, TINY, 8.0 * _EPS * np.maximum(vmax, 1e-300)[:, None] / _heights(verts))
+
+
 def faces_map(x: np.ndarray, verts: np.ndarray, powers: np.ndarray,
-              lam: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+              lam: np.ndarray | None = None, floor: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Per-face power grading of simplices (see the module docstring).
 
     Parameters
@@ -231,6 +246,8 @@ def faces_map(x: np.ndarray, verts: np.ndarray, powers: np.ndarray,
     powers : ndarray (n, d+1)
         ``p_j`` for the face opposite vertex ``j`` (1 = not graded).
     lam : ndarray (n, d+1), optional
+    floor : ndarray (n, d+1), optional
+        :func:`face_floors` of each point's simplex (computed when not given).
 
     Returns
     -------
@@ -241,13 +258,8 @@ def faces_map(x: np.ndarray, verts: np.ndarray, powers: np.ndarray,
     if lam is None:
         lam = barycentric(x, verts)
     lam = np.clip(lam, 0.0, 1.0)
-    # floor per face: an offset that rounds onto the face (plane through the origin: exact, tiny floor)
-    base = verts[:, None, :, :]                                                   # faces opposite j
-    mask = ~np.eye(d + 1, dtype=bool)
-    fverts = np.broadcast_to(base, (n, d + 1, d + 1, d))[:, mask].reshape(n, d + 1, d, d)
-    through0 = _face_through_origin(fverts)
-    vmax = np.abs(verts).max(axis=(1, 2))
-    floor = np.where(through0, TINY, 8.0 * _EPS * np.maximum(vmax, 1e-300)[:, None] / _heights(verts))
+    if floor is None:
+        floor = face_floors(verts)
     with np.errstate(divide="ignore", invalid="ignore", under="ignore", over="ignore"):
         phi = lam ** powers
         graded = powers != 1.0
