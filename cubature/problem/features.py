@@ -544,7 +544,9 @@ def to_engine(found: Findings, domain) -> tuple[dict, list[str]]:
             seen.add(key)
             p = [v + 0.0 for v in p]
             sing.append({"point": p, "power": a})
-            lines.append(f"singular point ({_pt(p)}), power {_pw(a)}: a corner of the pieces there, graded map  ({s['why']})")
+            how = ("a vertex of the simplices there, radial map" if domain.bounded else
+                   "a corner of the sub-boxes there, no node on it")
+            lines.append(f"singular point ({_pt(p)}), power {_pw(a)}: {how}  ({s['why']})")
         else:
             g, off = _canon(s["normal"], s["offset"])
             if not _touches(domain, g, off):
