@@ -31,10 +31,13 @@ Two ways to decompose, because one run integrates one kind of region:
 * **simplices** (any other cut, a singular plane that is not axis-aligned, or
   a simplex domain): the domain is triangulated (a box into its ``d!`` Kuhn
   simplices — Kuhn 1960, "Some combinatorial lemmas in topology", IBM J. Res.
-  Dev. 4), every simplex crossed by a plane is cut into its two convex parts
-  and each part re-triangulated with scipy.spatial's Qhull Delaunay
-  triangulation; a singular point inside a simplex becomes a vertex by a star
-  split.  The pieces are integrated with the simplex rule; pieces that touch a
+  Dev. 4; a box with singular points or break values first into sub-boxes,
+  each triangulated from its corner at a singular point), every simplex
+  crossed by a plane is cut into its two convex parts and each part
+  triangulated directly (a pulling triangulation whose cut face is the
+  staircase triangulation of a product of two simplices; checked against
+  scipy.spatial's Qhull convex hulls in the tests); a singular point inside a
+  simplex becomes a vertex by a star split.  The pieces are integrated with the simplex rule; pieces that touch a
   singular set get the radial (vertex) or per-face map.
 
 The pieces, their maps and their number are deterministic functions of the
@@ -400,61 +403,89 @@ def _box_simplices(domain: Box, breaks, singular) -> list[np.ndarray]:
     return out
 
 
-def _triangulate(points: np.ndarray, vol_tol: float) -> list[np.ndarray]:
-    """Simplices covering the convex hull of ``points`` (Qhull Delaunay), flat ones dropped."""
-    from scipy.spatial import ConvexHull, Delaunay, QhullError
-    d = points.shape[1]
-    # de-duplicate coincident points
-    keep = []
-    for p in points:
-        if not any(np.max(np.abs(p - q)) <= 1e-13 * (1 + np.max(np.abs(q))) for q in keep):
-            keep.append(p)
-    pts = np.array(keep)
-    if len(pts) < d + 1:
-        return []
-    if len(pts) == d + 1:
-        vol = _volumes(pts[None])[0]
-        return [pts] if vol > vol_tol else []
-    try:
-        hull_vol = ConvexHull(pts).volume
-    except QhullError:
-        return []                                     # flat: no volume
-    if hull_vol <= vol_tol:
-        return []
-    for opts in (None, "QJ"):
-        try:
-            tri = Delaunay(pts) if opts is None else Delaunay(pts, qhull_options=opts)
-        except QhullError:
-            continue
-        simp = pts[tri.simplices]
-        vols = _volumes(simp)
-        good = vols > 1e-12 * hull_vol
-        if abs(vols[good].sum() - hull_vol) <= 1e-9 * hull_vol:
-            return list(simp[good])
-    raise FeatureError("could not triangulate a piece of the domain (degenerate cut)")
-
-
-def cut_simplices(simplices: list[np.ndarray], normal, offset) -> list[np.ndarray]:
-    """Cut every simplex crossed by the plane ``normal . x = offset`` into simplices on either side."""
-    a = np.asarray(normal, float)
+def _staircases(A: int, B: int) -> list[list[tuple[int, int]]]:
+    """Monotone lattice paths from (0, 0) to (A-1, B-1): the simplices of the staircase
+    triangulation of the product of simplices Delta_{A-1} x Delta_{B-1} (common practice)."""
     out = []
-    for v in simplices:
-        s = v @ a - offset
-        scale = np.abs(v).max() * np.abs(a).sum() + abs(offset) + 1e-300
-        s = np.where(np.abs(s) <= 1e-12 * scale, 0.0, s)
-        if (s >= 0).all() or (s <= 0).all():
-            out.append(v)
-            continue
-        cross = []
-        for i, j in itertools.combinations(range(len(v)), 2):
-            if s[i] * s[j] < 0:
-                t = s[i] / (s[i] - s[j])
-                cross.append(v[i] + t * (v[j] - v[i]))
-        vol = _volumes(v[None])[0]
-        for side in (s <= 0, s >= 0):
-            pts = np.concatenate([v[side], np.array(cross)])
-            out.extend(_triangulate(pts, 1e-14 * vol))
+    for downs in itertools.combinations(range(A + B - 2), A - 1):
+        i = j = 0
+        path = [(0, 0)]
+        for step in range(A + B - 2):
+            if step in downs:
+                i += 1
+            else:
+                j += 1
+            path.append((i, j))
+        out.append(path)
     return out
+
+
+def _side_recipes(neg: tuple, zero: tuple, pos: tuple) -> list[list[tuple[int, int]]]:
+    """Simplices of the part of a simplex where the signed distance ``s`` <= 0, as recipes.
+
+    Each simplex is a list of ``(i, j)``: vertex ``i`` when ``j < 0``, else the
+    crossing point of edge (i, j), ``v_i + s_i/(s_i - s_j) (v_j - v_i)``.
+    Pulling triangulation from the vertices ``neg`` in order: the k-th cone
+    joins ``neg[:k+1]`` and the on-plane vertices ``zero`` with a staircase
+    simplex of the crossing points between ``neg[k:]`` and ``pos``.
+    """
+    out = []
+    for k in range(len(neg)):
+        rest = neg[k:]
+        for path in _staircases(len(rest), len(pos)):
+            out.append([(i, -1) for i in neg[:k + 1]] + [(i, -1) for i in zero] +
+                       [(rest[a], pos[b]) for a, b in path])
+    return out
+
+
+def cut_simplices(simplices, normal, offset) -> list[np.ndarray]:
+    """Cut every simplex crossed by the plane ``normal . x = offset`` into simplices on either side.
+
+    The part of a simplex on one side of a plane is triangulated directly (see
+    :func:`_side_recipes`), vectorised over simplices with the same sign pattern;
+    flat children are dropped and every cut is checked to keep the parents' volume.
+    """
+    a = np.asarray(normal, float)
+    V = np.asarray(simplices, dtype=float)
+    if V.size == 0:
+        return []
+    S = V @ a - offset                                              # (k, d+1)
+    scale = np.abs(V).max(axis=(1, 2)) * np.abs(a).sum() + abs(offset) + 1e-300
+    S = np.where(np.abs(S) <= 1e-12 * scale[:, None], 0.0, S)
+    sign = np.sign(S).astype(np.int8)
+    crossed = (sign < 0).any(axis=1) & (sign > 0).any(axis=1)
+    out = list(V[~crossed])
+    if not crossed.any():
+        return out
+    Vc, Sc, sg = V[crossed], S[crossed], sign[crossed]
+    patterns, inverse = np.unique(sg, axis=0, return_inverse=True)
+    pieces = []
+    for p_idx, pat in enumerate(patterns):
+        rows = np.nonzero(inverse.reshape(-1) == p_idx)[0]
+        v, s_ = Vc[rows], Sc[rows]
+        neg = tuple(int(i) for i in np.nonzero(pat < 0)[0])
+        pos = tuple(int(i) for i in np.nonzero(pat > 0)[0])
+        zero = tuple(int(i) for i in np.nonzero(pat == 0)[0])
+        for recipe in _side_recipes(neg, zero, pos) + _side_recipes(pos, zero, neg):
+            pts = []
+            for i, j in recipe:
+                if j < 0:
+                    pts.append(v[:, i])
+                else:
+                    t = s_[:, i] / (s_[:, i] - s_[:, j])
+                    pts.append(v[:, i] + t[:, None] * (v[:, j] - v[:, i]))
+            pieces.append((rows, np.stack(pts, axis=1)))
+    vol = _volumes(Vc)
+    got = np.zeros(len(Vc))
+    kept = []
+    for rows, kids in pieces:
+        kv = _volumes(kids)
+        keep = kv > 1e-14 * vol[rows]
+        np.add.at(got, rows[keep], kv[keep])
+        kept.append(kids[keep])
+    if np.any(np.abs(got - vol) > 1e-10 * vol):
+        raise FeatureError("a cut plane could not be triangulated exactly (volume lost)")
+    return out + list(np.concatenate(kept))
 
 
 def star_split(simplices: list[np.ndarray], point) -> list[np.ndarray]:
@@ -528,8 +559,6 @@ class SimplexPiecesGeometry(SimplexGeometry):
         self.pvol = vol
         self.pieces = len(V)
         k = len(V)
-        e = V[:, 1:, :] - V[:, :1, :]
-        self.pinv = np.linalg.inv(np.transpose(e, (0, 2, 1)))   # lam[1:] = pinv @ (x - v0)
         self.radial_vertex = np.full(k, -1, np.int64)
         self.radial_power = np.ones(k)
         self.face_powers = np.ones((k, d + 1))
@@ -551,7 +580,18 @@ class SimplexPiecesGeometry(SimplexGeometry):
                 grade = touch[:, None] & ~on
                 self.face_powers = np.where(grade, np.maximum(self.face_powers, p), self.face_powers)
         self.mapped = (self.radial_vertex >= 0) | (self.face_powers != 1.0).any(axis=1)
-        self.face_floor = sm.face_floors(V)
+        # per mapped piece: inverse edge matrix (lam[1:] = pinv @ (x - v0)) and the faces map's floors
+        self.pinv = np.zeros((k, d, d))
+        self.face_floor = np.ones((k, d + 1))
+        m = np.nonzero(self.mapped)[0]
+        if m.size:
+            e = V[m, 1:, :] - V[m, :1, :]
+            self.pinv[m] = np.linalg.inv(np.transpose(e, (0, 2, 1)))
+            self.face_floor[m] = sm.face_floors(V[m])
+
+    def points(self, g: dict) -> np.ndarray:
+        """Nodes ``bary @ V`` of the regions, one batched matrix product (faster than einsum for many simplices)."""
+        return np.matmul(self.rule.bary[None], g["verts"]).reshape(-1, self.dim)
 
     def root(self) -> dict:
         return {"verts": self.pverts.copy(), "vol": self.pvol.copy(), "piece": np.arange(self.pieces, dtype=np.int32)}
