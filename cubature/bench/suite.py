@@ -51,6 +51,7 @@ class Strategy:
     description: str
     domains: tuple = ("box",)
     max_dim: int | None = None
+    aligned: bool = False         # region boundaries on the case's features (issue 13)
 
     def applies(self, kind: str, d: int) -> bool:
         return kind in self.domains and (self.max_dim is None or d <= self.max_dim)
@@ -71,6 +72,9 @@ STRATEGIES = {s.label: s for s in (
              domains=("box", "simplex")),
     Strategy("simplex", "grundmann-moller", {}, "Grundmann-Moller degree 7 (simplex problems only)",
              domains=("simplex",)),
+    Strategy("aligned", None, {}, "as auto, with region boundaries on the case's features (break values, cuts, "
+             "singular maps: a problem's declared and detected ones, the Genz c0/discontinuous thresholds)",
+             domains=("box", "simplex"), aligned=True),
 )}
 DEFAULT_STRATEGIES = ("gm", "gm/plain", "gm/all-axes", "gm/local", "gk", "simplex")
 
@@ -228,8 +232,19 @@ def genz_cases(families, dims, draws, seed, difficulty=1.0) -> list[Case]:
             for k in range(draws):
                 c = genz.draw(fam, d, rng, difficulty)
                 out.append(Case(fam, d, c.f, "box", Box([0.0] * d, [1.0] * d), np.zeros(d), np.ones(d),
-                                np.array([c.exact]), k, "closed form (Genz 1984)"))
+                                np.array([c.exact]), k, "closed form (Genz 1984)",
+                                extra={"features": _genz_features(fam, c.params["u"])}))
     return out
+
+
+def _genz_features(family: str, u) -> dict:
+    """The thresholds a user of the family would declare: kinks of c0 at u, jumps of discontinuous at u_1, u_2."""
+    u = [float(x) for x in u]
+    if family == "c0":
+        return {"breaks": [[x] for x in u]}
+    if family == "discontinuous":
+        return {"breaks": [[x] if i < 2 else [] for i, x in enumerate(u)]}
+    return {}
 
 
 def problem_cases(paths, notes: list[str]) -> list[Case]:
@@ -253,7 +268,7 @@ def problem_cases(paths, notes: list[str]) -> list[Case]:
             kind, lo, hi = "simplex", np.zeros(prob.dim), np.zeros(prob.dim)
         out.append(Case(Path(p).stem, prob.dim, prob.integrand, kind, dom, lo, hi,
                         np.atleast_1d(np.asarray(prob.reference.value, dtype=float)), 0,
-                        prob.reference.source, prob.method.rule))
+                        prob.reference.source, prob.method.rule, extra={"features": dict(prob.features)}))
     return out
 
 
@@ -393,8 +408,9 @@ def run_strategy(strategy: Strategy, case: Case, tol: float, budget: int) -> dic
     """Integrate ``case`` with one engine strategy (bad integrands give status "failed")."""
     from cubage import IntegrandError, Run
     t0 = time.perf_counter()
+    feats = case.extra.get("features", {}) if strategy.aligned else {}
     run = Run(case.f, case.domain, rule=strategy.rule, rel_tol=tol, abs_tol=0.0, budget=budget,
-              fingerprint=f"bench:{case.group}:{case.d}:{case.draw}", **strategy.options)
+              fingerprint=f"bench:{case.group}:{case.d}:{case.draw}", **strategy.options, **feats)
     message = engine_error = ""
     status = None
     try:

@@ -635,9 +635,9 @@ def _list_entry(f: Path) -> dict:
 
 
 def _feature_rows(problem) -> list[tuple[str, str]]:
-    """What ``[features]`` declares and the expression shows, and the decomposition it gives (issue 13)."""
+    """The decomposition the problem's features give (issue 13)."""
     from cubage.engine.partition import FeatureError, describe_features
-    rows = [("feature", line) for line in getattr(problem, "feature_lines", [])]
+    rows = []                        # the feature lines themselves are in problem.describe()
     if getattr(problem, "features", None):
         try:
             rows.append(("pieces", describe_features(problem.domain, problem.features, problem.method.degree)))

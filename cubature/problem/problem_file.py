@@ -184,8 +184,9 @@ class Problem:
 
     def describe(self) -> list[tuple[str, str]]:
         """Rows (label, text) summarising the problem, for ``cubage check`` and the UI."""
-        return _describe(self.variables, self.domain, self.integrand_spec, self.components, self.goal,
+        rows = _describe(self.variables, self.domain, self.integrand_spec, self.components, self.goal,
                          self.method, self.reference, self.scan)
+        return rows + [("feature", line) for line in self.feature_lines]   # declared and found (issue 13)
 
 
 @dataclass(frozen=True, eq=False)
@@ -274,7 +275,7 @@ class ProblemSpec:
                          self.goal, self.method, self.reference, self.scan)
         if self.python is not None:
             rows = [(k, v + "   (not imported)" if k == "integrand" else v) for k, v in rows]
-        return rows
+        return rows + [("feature", line) for line in self.feature_lines]   # declared and found (issue 13)
 
     def to_json(self) -> dict:
         """A JSON-ready summary (numbers that JSON cannot hold are written as strings)."""
