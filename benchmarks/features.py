@@ -72,8 +72,7 @@ def cases(quick):
     out.append(("Dirichlet -0.9,-1/2,-1/3 3D", "x**-0.9 * y**-0.5 * z**(-1/3)", NAMES[:3], SIMPLEX(3),
                 gamma(0.1) * gamma(0.5) * gamma(2 / 3) / gamma(0.1 + 0.5 + 2 / 3 + 1), 1e-8, None))
     # vertex: int (x+y+z)^a over the simplex = 1/((d-1)! (a + d))  (Dirichlet/Liouville)
-    out.append(("vertex (x+y+z)^-2.5 declared", "(x + y + z)**-2.5", NAMES[:3], SIMPLEX(3), 1 / (2 * 0.5), 1e-8,
-                {"singular": [{"point": [0, 0, 0], "power": -2.5}]}))
+    out.append(("vertex (x+y+z)^-2.5 3D", "(x + y + z)**-2.5", NAMES[:3], SIMPLEX(3), 1 / (2 * 0.5), 1e-8, None))
     out.append(("corner 1/|r| cube 3D", "1/sqrt(x*x + y*y + z*z)", NAMES[:3], CUBE(3),
                 -math.pi / 4 + 1.5 * math.log(2 + math.sqrt(3)), 1e-8, None))   # Bailey-Borwein-Crandall B_3(-1)
     out.append(("corner |r|^-2.5 cube 3D", "(x*x + y*y + z*z)**-1.25", NAMES[:3], CUBE(3),

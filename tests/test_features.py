@@ -452,3 +452,13 @@ def test_bad_feature_tables_are_one_line_errors(write_problem, cli, table, needl
     code, out, err = cli("check", str(path))
     assert code == 2
     assert needle in err and len(err.strip().splitlines()) == 1
+
+
+def test_plane_touching_one_vertex_is_a_point_singularity():
+    # int over the standard 3-simplex of (x + y + z)^-2.5 = 1 / ((d-1)! (a + d)) = 1  (Dirichlet-Liouville formula)
+    src, names = "(x + y + z)**-2.5", ["x", "y", "z"]
+    kw = _detect(src, names, SIMPLEX3)
+    assert kw == {"singular": [{"point": [0.0, 0.0, 0.0], "power": -2.5}]}
+    res = integrate(compile_expression(src, names), SIMPLEX3, rel_tol=1e-10, **kw)
+    assert res.status == "converged"
+    assert abs(res.value - 1.0) <= max(res.error, 1e-12)

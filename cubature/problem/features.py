@@ -529,6 +529,7 @@ def to_engine(found: Findings, domain) -> tuple[dict, list[str]]:
     seen = set()
     # the strongest claim about a set first (1/sqrt(x) is seen as x**-0.5 and as sqrt(x))
     order = sorted(found.singular, key=lambda s: -0.5 if s["power"] is None else s["power"])
+    order = [_vertex_contact(s, domain, c) for s in order]
     for s in order:
         if "point" in s:
             p = [float(v) for v in s["point"]]
@@ -579,6 +580,26 @@ def to_engine(found: Findings, domain) -> tuple[dict, list[str]]:
     if sing:
         out["singular"] = sing
     return out, lines
+
+
+def _vertex_contact(s: dict, domain, corners) -> dict:
+    """A singular plane that meets the domain in one corner only is a singular point there.
+
+    Near that corner the distance to the plane is comparable to the distance to
+    the corner, so ``|a . x - b|**p`` is treated as ``|x - corner|**p`` (the
+    radial map), which is integrable for ``p > -d`` (``(x + y + z)**-2.5`` on the
+    standard simplex, for example).
+    """
+    if "normal" not in s or corners is None:
+        return s
+    g, off = _canon(s["normal"], s["offset"])
+    v = corners @ g - off
+    tol = 1e-12 * (np.abs(corners).max() * np.abs(g).sum() + abs(off) + 1e-300)
+    on = np.abs(v) <= tol
+    if on.sum() == 1 and ((v[~on] > tol).all() or (v[~on] < -tol).all()):
+        return {"point": [float(x) for x in corners[on][0]], "power": s["power"],
+                "why": s["why"] + ", touching the domain at one corner"}
+    return s
 
 
 def _pt(p) -> str:
