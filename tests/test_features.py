@@ -462,3 +462,15 @@ def test_plane_touching_one_vertex_is_a_point_singularity():
     res = integrate(compile_expression(src, names), SIMPLEX3, rel_tol=1e-10, **kw)
     assert res.status == "converged"
     assert abs(res.value - 1.0) <= max(res.error, 1e-12)
+
+
+def test_features_results_independent_of_workers():
+    """issue 13 item 5: with cut planes and a singular map, 1 or 2 thread workers give the same bits."""
+    from cubage.engine.parallel import make_evaluator
+    f = lambda X: np.abs(X.sum(axis=1) - 1.4) / np.sqrt((X * X).sum(axis=1))  # noqa: E731
+    kw = dict(rel_tol=1e-7, cuts=[[[1, 1, 1], 1.4]], singular=[{"point": [0, 0, 0], "power": -1}])
+    serial = integrate(f, Box([0] * 3, [1] * 3), **kw)
+    with make_evaluator(2, "threads", chunk_points=1000) as ev:
+        threaded = integrate(f, Box([0] * 3, [1] * 3), evaluator=ev, **kw)
+    assert serial.value == threaded.value and serial.error == threaded.error
+    assert serial.evaluations == threaded.evaluations
