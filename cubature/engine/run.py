@@ -1359,7 +1359,10 @@ def integrate(f: Callable, domain, *, rel_tol: float = 1e-6, abs_tol: float = 0.
     **options
         Further :class:`Settings` fields: ``degree``, ``split``, ``queue``,
         ``batch``, ``estimate``, ``max_regions``, ``batch_points``,
-        ``memory_ceiling`` (bytes or ``"4G"``; default half the machine's memory).
+        ``memory_ceiling`` (bytes or ``"4G"``; default half the machine's memory),
+        and the declared features ``breaks``, ``cuts``, ``singular`` (region
+        boundaries on kinks, jumps and singularities; see
+        :mod:`cubage.engine.partition`).
 
     Returns
     -------
