@@ -546,6 +546,8 @@ class SimplexPiecesGeometry(SimplexGeometry):
                    if "normal" in s and not (isinstance(domain, Box) and _axis_plane(s) is not None)]
         for n, b in planes:
             simp = cut_simplices(simp, n, b)
+            if len(simp) > MAX_PIECES:
+                raise FeatureError(f"the cut planes cut the domain into more than {MAX_PIECES:,} simplices")
         for s in singular or []:
             if "point" in s:
                 simp = star_split(simp, s["point"])

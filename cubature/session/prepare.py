@@ -391,7 +391,8 @@ def _run_error(problem, o: Overrides, exc: Exception) -> InputError:
     from cubage.engine.partition import FeatureError
     if isinstance(exc, FeatureError):
         path = getattr(problem, "path", None)
-        return InputError(f"{path if path is not None else '<problem>'}: [features] {msg}")
+        return InputError(f"{path if path is not None else '<problem>'}: [features] {msg} "
+                          "([method] align = \"declared\" or \"off\" leaves out what was found in the expression)")
     kind = getattr(problem.domain, "kind", "box")
     if "budget" in msg:
         where = o.label("budget") if o.budget is not None else _problem_where(problem, "goal", "budget")
