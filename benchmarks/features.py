@@ -75,6 +75,8 @@ def cases(quick):
     out.append(("vertex (x+y+z)^-2.5 3D", "(x + y + z)**-2.5", NAMES[:3], SIMPLEX(3), 1 / (2 * 0.5), 1e-8, None))
     out.append(("corner 1/|r| cube 3D", "1/sqrt(x*x + y*y + z*z)", NAMES[:3], CUBE(3),
                 -math.pi / 4 + 1.5 * math.log(2 + math.sqrt(3)), 1e-8, None))   # Bailey-Borwein-Crandall B_3(-1)
+    # x^(-1/2) (y + z + u) on [0,1]^4 = 2 * 3/2 = 3 (closed form; the README engine table's corner-4d case)
+    out.append(("face x^-1/2 (y+z+u) 4D", "x**-0.5 * (y + z + u)", NAMES[:4], CUBE(4), 3.0, 1e-8, None))
     out.append(("corner |r|^-2.5 cube 3D", "(x*x + y*y + z*z)**-1.25", NAMES[:3], CUBE(3),
                 None if quick else cube_power(-2.5), 1e-8, None))
     out.append(("centre 1/|r-c| cube 3D", "1/sqrt((x-0.5)**2 + (y-0.5)**2 + (z-0.5)**2)", NAMES[:3], CUBE(3),
