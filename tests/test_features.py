@@ -474,3 +474,12 @@ def test_features_results_independent_of_workers():
         threaded = integrate(f, Box([0] * 3, [1] * 3), evaluator=ev, **kw)
     assert serial.value == threaded.value and serial.error == threaded.error
     assert serial.evaluations == threaded.evaluations
+
+
+def test_point_singularity_on_an_infinite_axis():
+    # int over R of |x|^(-1/2) exp(-x^2) dx = Gamma(1/4)  (Euler's integral after t = x^2)
+    f = lambda X: np.abs(X[:, 0]) ** -0.5 * np.exp(-X[:, 0] ** 2)  # noqa: E731
+    res = integrate(f, Box([-np.inf], [np.inf]), rel_tol=1e-10, rule="gauss-kronrod",
+                    singular=[{"point": [0.0], "power": -0.5}])
+    assert res.status == "converged"
+    assert abs(res.value - gamma(0.25)) <= max(res.error, 1e-12)

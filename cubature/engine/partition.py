@@ -285,8 +285,18 @@ class BoxPiecesGeometry(BoxGeometry):
                 knots[i].setdefault(_to_engine(amap, i, x), 1.0)
         for s in singular or []:
             if "point" in s:         # (unbounded boxes only) a corner of the sub-boxes there, never a node
+                a = s["power"]
+                if d == 1:           # in 1-D a point is a face: the endpoint map fits exactly
+                    p = sm.face_power(a)
+                elif a is not None and a + d < 1:
+                    # strong point singularities only: per-axis grading bounds them (degree p (a + d) - d at
+                    # the corner) but costs more than plain bisection for milder ones (benchmarks/features.py)
+                    p = float(math.ceil((d + 2.0) / (a + d)))
+                else:
+                    p = 1.0
                 for i, x in enumerate(s["point"]):
-                    knots[i].setdefault(_to_engine(amap, i, x), 1.0)
+                    t = _to_engine(amap, i, x)
+                    knots[i][t] = max(knots[i].get(t, 1.0), p)
             else:
                 i = _axis_plane(s)
                 p = sm.face_power(s["power"])
