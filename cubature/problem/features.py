@@ -317,11 +317,8 @@ class _Walker:
         elif isinstance(node, ast.BinOp):
             if isinstance(node.op, ast.Pow):
                 e = self.r.poly(node.right)
-                if e is not None and e.degree == 0:
-                    if e.c < 0 or abs(e.c - round(e.c)) > 1e-12:
-                        self.singular(node.left, e.c, f"power {self.src(node)}")
-                else:
-                    self.found.nonsmooth.append(f"variable exponent: {self.src(node)}")
+                if e is not None and e.degree == 0 and (e.c < 0 or abs(e.c - round(e.c)) > 1e-12):
+                    self.singular(node.left, e.c, f"power {self.src(node)}")
             elif isinstance(node.op, ast.Div):
                 o = self.order(node.right)
                 if o is not None:
