@@ -24,7 +24,7 @@ __version__ = "0.1.0"
 _WHERE = {
     "CheckpointError": "cubage.engine.checkpoint",
     "Box": "cubage.engine.domains", "DomainError": "cubage.engine.domains", "Simplex": "cubage.engine.domains",
-    "DEFAULT_BUDGET": "cubage.engine.run", "STATUSES": "cubage.engine.run", "IntegrandError": "cubage.engine.run",
+    "DEFAULT_BUDGET": "cubage.engine.run", "STATUSES": "cubage.engine.statuses", "IntegrandError": "cubage.engine.run",
     "Result": "cubage.engine.run", "Run": "cubage.engine.run", "Settings": "cubage.engine.run",
     "Snapshot": "cubage.engine.run", "TopRegion": "cubage.engine.run", "integrate": "cubage.engine.run",
     "scan": "cubage.session.scan", "ScanResult": "cubage.session.scan", "PointResult": "cubage.session.scan",

@@ -35,24 +35,11 @@ from cubage.engine.domains import Box, DomainError, Simplex
 from cubage.engine.geometry import BoxGeometry, SimplexGeometry
 from cubage.engine.regions import RegionStore
 from cubage.engine.rules import box_rule, default_rule, simplex_rule
+from cubage.engine.statuses import STATUSES as STATUSES  # re-exported: cubage.STATUSES
 
 DEFAULT_BUDGET = 50_000_000
 #: Seconds an integrand call in progress may still take after a stop request or the time limit.
 STOP_GRACE_SECONDS = 2.0
-
-#: Status words of a finished (or paused/running) run.
-STATUSES = {
-    "running": "still working",
-    "paused": "paused by request, resumable",
-    "converged": "total error estimate met the goal",
-    "budget-spent": "evaluation budget spent before the goal was met",
-    "time-limit": "time limit reached before the goal was met",
-    "stopped": "stopped on request before the goal was met",
-    "region-limit": "region limit reached before the goal was met",
-    "memory-ceiling": "the run's memory would have exceeded its ceiling before the goal was met",
-    "stalled": "no region can be split further (floating-point resolution) before the goal was met",
-    "failed": "the integrand raised an error or returned a non-finite value",
-}
 
 
 #: Region flags (a uint8 column): the signatures the trust report counts and locates.

@@ -1,6 +1,6 @@
 """The status words of a run, as both front ends show them, and which of them are final.
 
-The engine's words (:data:`cubage.engine.run.STATUSES`) say what a run did;
+The engine's words (:data:`cubage.engine.statuses.STATUSES`) say what a run did;
 the session adds the words a front end needs around them:
 
 ``ready``      prepared, not started;
@@ -15,22 +15,13 @@ engine word except ``running`` and ``paused``, and ``runner-gone``.
 
 from __future__ import annotations
 
+from cubage.engine.statuses import STATUSES
+
 __all__ = ["ENGINE_WORDS", "SESSION_WORDS", "WORDS", "FINAL", "REOPENABLE", "is_final", "meaning", "exit_code",
            "EXIT_OK", "EXIT_FAILED", "EXIT_BAD_INPUT", "EXIT_SHORT", "EXIT_INTERRUPTED"]
 
-#: The engine's status words and their meaning (a copy of cubage.engine.run.STATUSES, checked by a test).
-ENGINE_WORDS: dict[str, str] = {
-    "running": "still working",
-    "paused": "paused by request, resumable",
-    "converged": "total error estimate met the goal",
-    "budget-spent": "evaluation budget spent before the goal was met",
-    "time-limit": "time limit reached before the goal was met",
-    "stopped": "stopped on request before the goal was met",
-    "region-limit": "region limit reached before the goal was met",
-    "memory-ceiling": "the run's memory would have exceeded its ceiling before the goal was met",
-    "stalled": "no region can be split further (floating-point resolution) before the goal was met",
-    "failed": "the integrand raised an error or returned a non-finite value",
-}
+#: The engine's status words and their meaning (one table, in the engine; importing it loads nothing heavy).
+ENGINE_WORDS: dict[str, str] = STATUSES
 
 #: Words a front end shows around the engine's.
 SESSION_WORDS: dict[str, str] = {
@@ -52,24 +43,14 @@ REOPENABLE: frozenset[str] = frozenset({"converged", "budget-spent", "time-limit
 EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
 
-def _engine_words() -> dict[str, str]:
-    try:
-        from cubage.engine.run import STATUSES
-    except ImportError:  # pragma: no cover
-        return {}
-    return STATUSES
-
-
 def is_final(status: str) -> bool:
     """Whether ``status`` is final (see the module docstring)."""
-    if status in FINAL:
-        return True
-    return status in _engine_words() and status not in ("running", "paused")
+    return status in FINAL
 
 
 def meaning(status: str) -> str:
     """One line explaining ``status`` ('' for an unknown word)."""
-    return WORDS.get(status) or _engine_words().get(status, "")
+    return WORDS.get(status, "")
 
 
 def exit_code(status: str) -> int:
