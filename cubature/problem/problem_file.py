@@ -47,6 +47,8 @@ from cubage.engine.rules import default_rule, rule_limit_error
 from cubage.problem.expr import ExpressionError, compile_expression, declared_name
 from cubage.problem.python_integrand import PythonIntegrand, PythonTargetError, bind_python
 from cubage.problem.scan_table import ScanGrid, ScanTableError, parse_scan_table
+from cubage.problem.toml_values import is_number as _is_number
+from cubage.problem.toml_values import type_name as _tname
 
 __all__ = [
     "ProblemError", "Goal", "Method", "Reference", "Problem", "ProblemSpec", "PythonIntegrand",
@@ -348,22 +350,6 @@ def _describe(variables, domain, spec, components, goal, method, reference, scan
 # helpers
 # --------------------------------------------------------------------------
 
-def _tname(v) -> str:
-    if isinstance(v, bool):
-        return "a boolean"
-    if isinstance(v, int):
-        return "an integer"
-    if isinstance(v, float):
-        return "a number"
-    if isinstance(v, str):
-        return "a string"
-    if isinstance(v, list):
-        return "a list"
-    if isinstance(v, dict):
-        return "a table"
-    return f"a {type(v).__name__}"
-
-
 _REPR = reprlib.Repr()
 _REPR.maxstring = _REPR.maxother = 40
 _REPR.maxlist = 6
@@ -373,10 +359,6 @@ _REPR.maxlevel = 3
 def _short(v) -> str:
     """``repr(v)`` cut to a readable length (bounded cost, whatever ``v`` holds)."""
     return _REPR.repr(v)
-
-
-def _is_number(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
 
 
 def _suggest(name: str, options) -> str:

@@ -26,6 +26,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from cubage.problem.toml_values import is_number as _is_number
+from cubage.problem.toml_values import type_name as _tname
+
 __all__ = ["MAX_POINTS", "ScanGrid", "ScanTableError", "parse_scan_table", "grid_from_mapping"]
 
 #: Largest number of grid points a scan may have.
@@ -88,24 +91,6 @@ class ScanGrid:
             parts.append(f"{n}: {len(a)} value{'s' if len(a) != 1 else ''} "
                          + (f"{a[0]:g} .. {a[-1]:g}" if len(a) > 1 else f"{a[0]:g}"))
         return "; ".join(parts) + f" ({self.size:,} point{'s' if self.size != 1 else ''})"
-
-
-def _is_number(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
-
-
-def _tname(v) -> str:
-    if isinstance(v, bool):
-        return "a boolean"
-    if isinstance(v, (int, float)):
-        return "a number"
-    if isinstance(v, str):
-        return "a string"
-    if isinstance(v, list):
-        return "a list"
-    if isinstance(v, dict):
-        return "a table"
-    return f"a {type(v).__name__}"
 
 
 def _finite(name: str, v, what: str) -> float:
