@@ -410,7 +410,10 @@ class Run:
         :meth:`partition` of another run over the same domain with the same
         rule and split policy) to begin from instead of the whole domain.
         Every region is evaluated with this run's integrand; the same error
-        control follows.  Used by parameter scans (:mod:`cubage.session.scan`).
+        control follows.  Optional ``flags`` (the regions' signatures) and
+        ``wary`` (the learnt wary-class counters), as :meth:`partition` gives
+        them, carry what the previous run measured (see :meth:`_carried`).
+        Used by parameter scans (:mod:`cubage.session.scan`).
     **settings
         Fields of :class:`Settings`.
 
@@ -730,12 +733,16 @@ class Run:
         return fr[np.arange(fr.shape[0]), :, j]
 
     def partition(self) -> dict[str, np.ndarray]:
-        """Copies of the regions' geometry and depth: the ``start`` of a warm-started run."""
+        """Copies of the regions' geometry, depth and signature flags, and the learnt wary-class
+        counters: the ``start`` of a warm-started run (see :meth:`_start`)."""
         with self._lock:
             if self.store is None:
                 g = self.geometry.root()
                 return {**g, "depth": np.zeros(len(next(iter(g.values()))), np.int16)}
-            return {name: self.store[name].copy() for name in (*self.geometry.columns, "depth")}
+            part = {name: self.store[name].copy() for name in (*self.geometry.columns, "depth", "flags")}
+            c = self.checks
+            part["wary"] = np.array([c["wary_splits"], c["wary_measured"], c["wary_estimated"]], np.float64)
+            return part
 
     def _evaluate_start(self) -> tuple[dict, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """The first regions (the root, or the warm-start partition in chunks of ``batch_points``) evaluated."""
@@ -765,9 +772,35 @@ class Run:
             cols["tol"] = ((), np.float64)
         return cols
 
+    def _carried(self, n: int) -> np.ndarray | None:
+        """Warm start (issue 14 item 3): which of the ``n`` start regions carried a non-smooth signature
+        (or were in the wary class) in the run they come from; None when the start carries no flags.
+
+        A warm start carries what its predecessor measured at nearby constants: such regions are
+        probed and join the wary class (as a child of a non-smooth region does), and the class's
+        learnt factor (the predecessor's counters) applies to their children from the first split.
+        Regions whose lineage was smooth are not probed again (a cold run does not probe the
+        children of smooth regions either); the split check and the audit still apply to them.
+        """
+        part = self._start_partition
+        if part is None or "flags" not in part:
+            return None
+        fl = np.asarray(part["flags"], np.uint8)
+        if fl.shape != (n,):
+            return None
+        return (fl & _NON_SMOOTH) != 0
+
     def _start(self) -> None:
         g, q, absq, fr, depth = self._evaluate_start()
         probe = np.ones(len(q), dtype=bool) if len(q) == 1 else self._looks_resolved(q, absq)
+        carried = self._carried(len(q))
+        if carried is not None:
+            probe &= carried
+            wary = np.asarray(self._start_partition.get("wary", ()), np.float64)
+            if wary.shape == (3,) and np.all(np.isfinite(wary)) and np.all(wary >= 0):
+                self.checks["wary_splits"] = int(wary[0])
+                self.checks["wary_measured"] = float(wary[1])
+                self.checks["wary_estimated"] = float(wary[2])
         self.m = q.shape[2]
         pv = self._probe_values(g, probe)
         raw = self._errors(q, absq)
@@ -781,7 +814,8 @@ class Run:
         g["raw"] = raw
         g["low"] = q[:, 1, :]
         g["flags"] = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
-                      | np.where(deviates, FLAG_PROBE, 0)).astype(np.uint8)
+                      | np.where(deviates, FLAG_PROBE, 0)
+                      | (np.where(carried, FLAG_WARY, 0) if carried is not None else 0)).astype(np.uint8)
         self.evaluations = fr.shape[0] * fr.shape[1] + (pv.size // self.m if pv is not None else 0)
         self.total_value = val.sum(axis=0)
         self.total_error = err.sum(axis=0)

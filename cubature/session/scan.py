@@ -35,6 +35,13 @@ feature (a peak moving with the parameter) would accumulate along the chain.
 The estimate stays the engine's: a warm-started point meets the same goal
 with the same checks as a cold one.  Error estimates are heuristic, not bounds.
 
+What a warm start carries over (``Run.partition()`` -> ``Run(start=...)``):
+the regions' signature flags and the learnt wary-class counters.  Start
+regions that were non-smooth at the neighbour's constants get vertex probes and
+join the wary class (as children of such regions do in a cold run); regions of
+a smooth lineage are not probed again (a cold run does not probe children of
+smooth regions either).  The split check and the audit apply as usual.
+
 Checkpoints (run directories)
 -----------------------------
 With a run directory every finished point is appended to ``scan-points.jsonl``
@@ -208,6 +215,7 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
     c = np.asarray(part["centre"], float).copy()
     h = np.asarray(part["halfw"], float).copy()
     dep = np.asarray(part.get("depth", np.zeros(len(c))), np.int64).copy()
+    fl = np.asarray(part["flags"], np.uint8).copy() if "flags" in part else None
     e = np.asarray(error, float).copy()
     lower, upper = np.asarray(lower, float), np.asarray(upper, float)
     width = upper - lower
@@ -264,8 +272,15 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         h = np.concatenate([h[keep], nh])
         e = np.concatenate([e[keep], growth * (e[lo_i] + e[hi_j])])
         dep = np.concatenate([dep[keep], np.maximum(dep[lo_i], dep[hi_j]) - 1])
-    return {"centre": c, "halfw": h, "axis": np.zeros(len(c), np.int8),
-            "depth": np.maximum(dep, 0).astype(np.int16)}
+        if fl is not None:
+            fl = np.concatenate([fl[keep], fl[lo_i] | fl[hi_j]])
+    out = {"centre": c, "halfw": h, "axis": np.zeros(len(c), np.int8),
+           "depth": np.maximum(dep, 0).astype(np.int16)}
+    if fl is not None:
+        out["flags"] = fl
+    if "wary" in part:
+        out["wary"] = np.asarray(part["wary"], np.float64).copy()
+    return out
 
 
 def _seed(run: Run, previous: np.ndarray | None = None) -> dict | None:
