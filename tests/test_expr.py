@@ -193,3 +193,27 @@ def test_huge_integer_power_is_not_computed_exactly():
     # 10**10**10 would take forever with Python integers; as floats it is inf at once
     f = compile_expression("10**10**10 * x", ["x"])
     assert np.isinf(f(np.array([[1.0]]))[0])
+
+
+def test_reading_problems_does_not_import_scipy_special():
+    """Start-up cleanup item 5: reading every bundled problem (and compiling its expression) no longer imports
+    scipy.special (about 0.2 s); the first evaluation of an expression that calls one of its functions does, and
+    gives the function's value (math.erf and math.gamma from the standard library as the reference)."""
+    import subprocess
+    import sys
+
+    from conftest import cubage_env
+    code = (
+        "import sys, math, numpy as np\n"
+        "from cubage.problem.problem_file import list_problems, load_problem_spec\n"
+        "specs = [load_problem_spec(p) for p in list_problems()]\n"
+        "from cubage.problem.expr import compile_expression\n"
+        "f = compile_expression('erf(x) + gamma(y)', ['x', 'y'])\n"
+        "print(len(specs), 'scipy.special' in sys.modules)\n"
+        "v = f(np.array([[0.3, 2.5]]))[0]\n"
+        "print('scipy.special' in sys.modules, abs(v - (math.erf(0.3) + math.gamma(2.5))) < 1e-14)\n")
+    r = subprocess.run([sys.executable, "-c", code], env=cubage_env(), capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0, r.stderr
+    first, second = r.stdout.split("\n")[:2]
+    assert int(first.split()[0]) >= 5 and first.split()[1] == "False"
+    assert second == "True True"

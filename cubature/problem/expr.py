@@ -30,7 +30,6 @@ import math
 import unicodedata
 
 import numpy as np
-import scipy.special as sc
 
 __all__ = ["ExpressionError", "CompiledExpression", "compile_expression", "FUNCTIONS",
            "RESERVED_NAMES", "function_names", "normalise_name", "declared_name", "MAX_DEPTH"]
@@ -107,6 +106,43 @@ def _min(*args):
 
 def _max(*args):
     return functools.reduce(np.maximum, args)
+
+
+class _Special:
+    """A scipy.special function imported on first use.
+
+    Importing :mod:`scipy.special` takes about 0.2 s, which every ``cubage`` command paid at start-up when this
+    module imported it eagerly; most expressions need none of its functions.  A compiled expression puts the real
+    function in its namespace (:meth:`resolve`), so evaluation pays nothing for the indirection.
+    """
+
+    __slots__ = ("name", "_fn")
+
+    def __init__(self, name: str):
+        self.name = name
+        self._fn = None
+
+    def resolve(self):
+        if self._fn is None:
+            import scipy.special
+            self._fn = getattr(scipy.special, self.name)
+        return self._fn
+
+    def __call__(self, *args):
+        return self.resolve()(*args)
+
+    def __repr__(self) -> str:
+        return f"<scipy.special.{self.name}, imported on first use>"
+
+
+class _SpecialNames:
+    """``sc.erf`` and the like, as :class:`_Special` placeholders (the table below reads as before)."""
+
+    def __getattr__(self, name: str) -> _Special:
+        return _Special(name)
+
+
+sc = _SpecialNames()
 
 
 # name -> (callable, min args, max args or None for "any number")
@@ -634,7 +670,7 @@ class CompiledExpression:
         self.components = len(compiled)
         self._codes = [c for _, c, _ in compiled]
         ns = {"__builtins__": {}}
-        ns.update({n: fn for n, (fn, _, _) in FUNCTIONS.items()})
+        ns.update({n: fn for n, (fn, _, _) in FUNCTIONS.items()})     # scipy.special ones: placeholders
         ns.update(_HELPERS)
         ns.update(_BUILTIN_CONSTANTS)
         ns.update({k: np.float64(v) for k, v in constants.items()})
@@ -645,6 +681,16 @@ class CompiledExpression:
             d = dict(ns)
             d.update(lits)
             self._namespaces.append(d)
+        self._resolved = False
+
+    def _resolve(self) -> None:
+        """Import the scipy.special functions the expressions call, once, before the first evaluation."""
+        for ns in self._namespaces:
+            for name in set().union(*(c.co_names for c in self._codes)):
+                fn = ns.get(name)
+                if isinstance(fn, _Special):
+                    ns[name] = fn.resolve()
+        self._resolved = True
 
     @property
     def dim(self) -> int:
@@ -667,6 +713,8 @@ class CompiledExpression:
         if X.ndim != 2 or X.shape[1] != d:
             raise ValueError(f"expected points of shape (n, {d}), got {X.shape}")
         n = X.shape[0]
+        if not self._resolved:
+            self._resolve()
         cols = np.ascontiguousarray(X.T)
         out = []
         with np.errstate(all="ignore"):
