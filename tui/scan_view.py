@@ -34,6 +34,7 @@ from cubage.session.run_directory import HALT_REQUEST, LEDGER, OCCUPANT, SOURCE,
 from cubage.session.scan import POINTS_FILE, PointResult, _ScanFiles
 
 from .widgets.guard import guarded
+from .widgets.readout import status_style
 
 POLL_SECONDS = 0.5
 
@@ -414,9 +415,8 @@ class ScanView(Screen):
         for k in sorted(set(self.state.points) - self._rows):
             p = self.state.points[k]
             self._rows.add(k)
-            style = "" if p.status == "converged" else "bold red"
             t.add_row(str(k), *(f"{p.constants[n]:.6g}" for n in self.grid.names), f"{_first(p.value):.12e}",
-                      f"{_first(p.error):.2e}", f"{p.evaluations:,}", Text(p.status, style=style),
+                      f"{_first(p.error):.2e}", f"{p.evaluations:,}", Text(p.status, style=status_style(p.status)),
                       "cold" if p.warm_from is None else f"from #{p.warm_from}", key=str(k))
 
     def _status_line(self) -> str:

@@ -11,6 +11,10 @@ the session adds the words a front end needs around them:
 
 A status is *final* when the run will not change any more by itself: every
 engine word except ``running`` and ``paused``, and ``runner-gone``.
+
+Front ends colour a word by its *tone* (:func:`tone`), never by a table of
+words of their own, so a new word needs only an entry in one of the two
+tables above.
 """
 
 from __future__ import annotations
@@ -18,7 +22,7 @@ from __future__ import annotations
 from cubage.engine.statuses import STATUSES
 
 __all__ = ["ENGINE_WORDS", "SESSION_WORDS", "WORDS", "FINAL", "REOPENABLE", "is_final", "meaning", "exit_code",
-           "EXIT_OK", "EXIT_FAILED", "EXIT_BAD_INPUT", "EXIT_SHORT", "EXIT_INTERRUPTED"]
+           "TONES", "tone", "EXIT_OK", "EXIT_FAILED", "EXIT_BAD_INPUT", "EXIT_SHORT", "EXIT_INTERRUPTED"]
 
 #: The engine's status words and their meaning (one table, in the engine; importing it loads nothing heavy).
 ENGINE_WORDS: dict[str, str] = STATUSES
@@ -42,10 +46,36 @@ REOPENABLE: frozenset[str] = frozenset({"converged", "budget-spent", "time-limit
 
 EXIT_OK, EXIT_FAILED, EXIT_BAD_INPUT, EXIT_SHORT, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
+#: The tones of status words, for front ends that colour them: the goal was met; the run (or its runner) failed;
+#: it ended short of the goal; it is working; it is held; it has not started.
+TONES = ("met", "fault", "short", "active", "held", "idle")
+
 
 def is_final(status: str) -> bool:
     """Whether ``status`` is final (see the module docstring)."""
     return status in FINAL
+
+
+def tone(status: str) -> str:
+    """The tone of a status word (one of :data:`TONES`; ``""`` for an unknown word), derived from the tables.
+
+    ``converged`` is met; ``failed`` and ``runner-gone`` are faults; every other final word ended short of the
+    goal; ``running`` and ``stopping`` are active; ``paused`` is held; the remaining words (``ready``,
+    ``waiting``) have not started.
+    """
+    if status not in WORDS:
+        return ""
+    if status == "converged":
+        return "met"
+    if status in ("failed", "runner-gone"):
+        return "fault"
+    if status in FINAL:
+        return "short"
+    if status in ("running", "stopping"):
+        return "active"
+    if status == "paused":
+        return "held"
+    return "idle"
 
 
 def meaning(status: str) -> str:

@@ -11,19 +11,23 @@ from textual.widgets import Static
 
 from cubage import Snapshot
 from cubage.session.forecast import duration_text, forecast
-from cubage.session.status import is_final, meaning
+from cubage.session.status import is_final, meaning, tone
 
 from ..drawing import fmt_count
 from ..problem_facts import ProblemFacts
 from .guard import guarded
 
-#: Colour of each status word (our own palette).
-STATUS_STYLE = {
-    "ready": "bold #8fa3bf", "running": "bold #e8c547", "paused": "bold #6cb6d9", "converged": "bold #5fd38a",
-    "budget-spent": "bold #f08a5d", "time-limit": "bold #f08a5d", "stopped": "bold #f08a5d",
-    "region-limit": "bold #f08a5d", "memory-ceiling": "bold #f08a5d", "stalled": "bold #f08a5d",
-    "failed": "bold #ff5f6d", "waiting": "bold #8fa3bf", "stopping": "bold #f08a5d", "runner-gone": "bold #ff5f6d",
+#: Colour of each tone of status word (our own palette); the words and their tones live in the session layer.
+TONE_STYLE = {
+    "met": "bold #5fd38a", "fault": "bold #ff5f6d", "short": "bold #f08a5d", "active": "bold #e8c547",
+    "held": "bold #6cb6d9", "idle": "bold #8fa3bf",
 }
+
+
+def status_style(word: str) -> str:
+    """The style of a status word, from its tone (:func:`cubage.session.status.tone`); plain bold if unknown."""
+    return TONE_STYLE.get(tone(word), "bold")
+
 
 ESTIMATE_NOTE = "± is an error estimate, not a bound"
 
@@ -61,7 +65,7 @@ class Readout(Static):
         t = Text(no_wrap=True, overflow="ellipsis")
         word = self.state
         t.append("status ", "dim")
-        t.append(word.upper(), STATUS_STYLE.get(word, "bold"))
+        t.append(word.upper(), status_style(word))
         if is_final(word) and word != "converged":
             t.append("  NOT CONVERGED", "bold reverse #f08a5d")
         t.append("\n")
