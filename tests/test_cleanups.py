@@ -48,3 +48,93 @@ def test_the_text_ui_keeps_no_table_of_status_words():
             if len(words) >= 3:
                 offenders.append(f"{path.name}:{node.lineno} {words}")
     assert not offenders, offenders
+
+
+# --------------------------------------------------------------------------
+# cleanup item 3: the scan view reads a scan's files through a public session-layer class
+# --------------------------------------------------------------------------
+
+def test_front_ends_import_no_private_session_names():
+    """Cleanup item 3: the front ends (tui/, cubature/cli/) import no private name (``_Name``) from the session
+    layer; the scan view follows a run directory through ``cubage.session.scan_follower.ScanFollower``."""
+    offenders = []
+    for folder in ("tui", "cubature/cli"):
+        for path in sorted((ROOT / folder).rglob("*.py")):
+            for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+                if isinstance(node, ast.ImportFrom) and (node.module or "").startswith("cubage.session"):
+                    offenders += [f"{path.name}: {node.module}.{a.name}" for a in node.names if a.name.startswith("_")]
+    assert not offenders, offenders
+
+
+def test_scan_follower_reads_points_live_records_and_verdict(tmp_path):
+    """Cleanup item 3: ScanFollower reads the finished points of a scan's run directory (checked against the closed
+    form), new ones incrementally, skips a line torn by a crash until it is complete, lists live records of
+    unfinished points only, and sees the verdict."""
+    import json
+    import math
+
+    import numpy as np
+
+    import cubage
+    from cubage.session.scan import LIVE_FILE, POINTS_FILE
+    from cubage.session.scan_follower import ScanFollower, read_scan_points
+
+    def f(X, a):
+        return np.exp(-a * X[:, 0])
+    res = cubage.scan(f, cubage.Box([0.0, 0.0], [1.0, 1.0]), {"a": [0.5, 1.0, 2.0]}, rel_tol=1e-10,
+                      run_dir=tmp_path)
+    follower = ScanFollower(tmp_path)
+    points = follower.poll()
+    assert sorted(points) == [0, 1, 2] and read_scan_points(tmp_path).keys() == points.keys()
+    for p in points.values():
+        a = p.constants["a"]
+        exact = (1 - math.exp(-a)) / a                  # the integral of exp(-a x) over [0, 1] (elementary)
+        assert abs(float(np.atleast_1d(p.value)[0]) - exact) <= 1e-9 * exact
+        assert p.value == res.points[p.index].value
+    # a torn line (a crash mid-write) waits; once completed it is read, and nothing is read twice
+    line = json.dumps(dict(json.loads((tmp_path / POINTS_FILE).read_text().splitlines()[0]), index=7))
+    with open(tmp_path / POINTS_FILE, "a", encoding="utf-8") as fh:
+        fh.write(line[:20])
+    assert sorted(follower.poll()) == [0, 1, 2]
+    with open(tmp_path / POINTS_FILE, "a", encoding="utf-8") as fh:
+        fh.write(line[20:] + "\n")
+    assert sorted(follower.poll()) == [0, 1, 2, 7]
+    # live records: one of a finished point is left out
+    (tmp_path / LIVE_FILE.format(chain=0)).write_text(json.dumps({"index": 1, "evaluations": 5}))
+    (tmp_path / LIVE_FILE.format(chain=1)).write_text(json.dumps({"index": 9, "evaluations": 5}))
+    assert [r["index"] for r in follower.live()] == [9]
+    assert follower.verdict is None                       # cubage.scan() writes no verdict; the command does
+    (tmp_path / "verdict.json").write_text(json.dumps({"converged": True}))
+    assert follower.verdict == {"converged": True}
+
+
+def test_plain_watch_of_a_scan_started_before_its_first_point_shows_the_constants(tmp_path, monkeypatch, capsys):
+    """User pass: ``cubage watch DIR --plain`` started on a scan before its first point finished printed the rows
+    without their constants' columns (the column names were taken, empty, from the first poll)."""
+    import argparse
+    import json
+
+    import numpy as np
+
+    import cubage
+    from cubage.cli import scan_command
+    from cubage.session.scan import POINTS_FILE
+
+    def f(X, a):
+        return np.exp(-a * X[:, 0])
+    src = tmp_path / "done"
+    cubage.scan(f, cubage.Box([0.0, 0.0], [1.0, 1.0]), {"a": [0.5, 1.0]}, rel_tol=1e-8, run_dir=src)
+    lines = (src / POINTS_FILE).read_text()
+    live = tmp_path / "live"
+    live.mkdir()
+    (live / "occupant.json").write_text(json.dumps({"pid": __import__("os").getpid()}))
+
+    def later(_seconds):                       # the scan's process finishes its points while the watch sleeps
+        (live / POINTS_FILE).write_text(lines)
+        (live / "verdict.json").write_text(json.dumps({"converged": True, "points_done": 2, "points_total": 2}))
+    monkeypatch.setattr(scan_command.time, "sleep", later)
+    code = scan_command.watch_scan_plain(argparse.Namespace(dir=str(live), once=False, every=0.01))
+    out = capsys.readouterr().out.splitlines()
+    assert code == 0
+    assert out[0].split()[:2] == ["#", "a"]                 # the header names the scanned constant
+    assert [r.split()[1] for r in out[1:3]] == ["0.5", "1"]

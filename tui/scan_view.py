@@ -2,8 +2,7 @@
 
 Opened for a problem with a ``[scan]`` table (the scan runs here, in a
 background thread) or by ``cubage watch DIR`` on a scan's run directory
-(following its files: ``scan-points.jsonl`` and ``scan-live-<chain>.json``,
-see :mod:`cubage.session.scan`).
+(following its files through :class:`cubage.session.scan_follower.ScanFollower`).
 
 Layout: the curve of the value against the first scanned constant, with the
 reported errors as error bars (two scanned constants: a heat map of the
@@ -30,8 +29,9 @@ from textual.widgets import DataTable, Footer, Header, Static
 from textual_plotext import PlotextPlot
 
 from cubage.problem.scan_table import ScanGrid
-from cubage.session.run_directory import HALT_REQUEST, LEDGER, OCCUPANT, SOURCE, VERDICT
-from cubage.session.scan import POINTS_FILE, PointResult, _ScanFiles
+from cubage.session.run_directory import LEDGER, SOURCE
+from cubage.session.scan import POINTS_FILE, PointResult
+from cubage.session.scan_follower import ScanFollower
 
 from .widgets.guard import guarded
 from .widgets.readout import status_style
@@ -54,60 +54,25 @@ class ScanState:
 
 
 class ScanDirSource:
-    """Follows a scan's run directory (read only, except the halt request on :meth:`halt`)."""
+    """Follows a scan's run directory (read only, except the halt request on :meth:`halt`), through the session
+    layer's :class:`~cubage.session.scan_follower.ScanFollower`."""
 
     def __init__(self, path):
         self.path = Path(path)
-        self.files = _ScanFiles(self.path)
-        self._points: dict[int, PointResult] = {}
-        self._offset = 0
-
-    def _read_new_points(self) -> dict[int, PointResult]:
-        """Points appended since the last poll (whole lines only: a line being written waits)."""
-        try:
-            with open(self.path / POINTS_FILE, "rb") as fh:
-                fh.seek(self._offset)
-                data = fh.read()
-        except OSError:
-            return self._points
-        end = data.rfind(b"\n") + 1
-        for line in data[:end].splitlines():
-            try:
-                pr = PointResult.from_json(json.loads(line))
-            except (ValueError, KeyError, TypeError):
-                continue
-            self._points[pr.index] = pr
-        self._offset += end
-        return self._points
+        self.follower = ScanFollower(self.path)
 
     def poll(self, state: ScanState) -> None:
-        state.points = dict(self._read_new_points())
-        live = []
-        for f in sorted(self.path.glob("scan-live-*.json")):
-            try:
-                rec = json.loads(f.read_text(encoding="utf-8"))
-            except (OSError, ValueError):
-                continue
-            if isinstance(rec, dict) and rec.get("index") not in state.points:
-                live.append(rec)
-        state.live = live
-        state.over = (self.path / VERDICT).is_file()
+        state.points = dict(self.follower.poll())
+        state.over = self.follower.verdict is not None
+        state.live = [] if state.over else self.follower.live()
         state.note = "" if state.over or self.runner_alive() is not False else \
             f"the scan's process is gone; continue it with: cubage resume {self.path}"
-        if state.over:
-            state.live = []
 
     def runner_alive(self) -> bool | None:
-        from cubage.session.run_directory import pid_alive
-        try:
-            lock = json.loads((self.path / OCCUPANT).read_text(encoding="utf-8"))
-        except (OSError, ValueError):
-            return None if (self.path / VERDICT).is_file() else False
-        pid = lock.get("pid") if isinstance(lock, dict) else None
-        return pid_alive(int(pid)) if isinstance(pid, int) else None
+        return self.follower.runner_alive()
 
     def halt(self) -> str:
-        (self.path / HALT_REQUEST).touch()
+        self.follower.halt()
         return f"asked the scan to stop; continue it with: cubage resume {self.path}"
 
     def close(self) -> None:

@@ -210,9 +210,10 @@ def plot_command(args) -> int:
     except PicturesUnavailable as exc:
         print(f"cubage: {exc}", flush=True)
         return EXIT_FAILED
-    from cubage.session.scan import POINTS_FILE, _ScanFiles
+    from cubage.session.scan import POINTS_FILE
+    from cubage.session.scan_follower import read_scan_points
     if (src / POINTS_FILE).is_file():
-        points = list(_ScanFiles(src).read_points().values())
+        points = list(read_scan_points(src).values())
         if not points:
             raise UsageError(f"{src}: the scan has no finished point yet")
         names = list(points[0].constants)

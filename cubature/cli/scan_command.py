@@ -272,26 +272,20 @@ def resume_scan_command(args) -> int:
 
 def watch_scan_plain(args) -> int:
     """``cubage watch DIR --plain`` on a scan: a row per finished point until the scan ends (or ``--once``)."""
-    from cubage.session.follower import RunFollower
-    from cubage.session.jsonio import read_json_object
-    from cubage.session.run_directory import VERDICT
-    from cubage.session.scan import _ScanFiles
+    from cubage.session.scan_follower import ScanFollower
     d = Path(args.dir)
-    files = _ScanFiles(d)
-    follower = RunFollower(d)
+    follower = ScanFollower(d)
     shown: set[int] = set()
     rows = None
     while True:
-        pts = files.read_points()
-        if rows is None:
-            names = list(next(iter(pts.values())).constants) if pts else []
-            rows = _Rows(names, 0, quiet=False, tty=False)
-            if names:
-                rows.header()
+        pts = follower.poll()
+        if rows is None and pts:            # the columns are the first point's constants
+            rows = _Rows(list(next(iter(pts.values())).constants), 0, quiet=False, tty=False)
+            rows.header()
         for k in sorted(set(pts) - shown):
             shown.add(k)
             rows(pts[k], len(shown), 0)
-        verdict = read_json_object(d / VERDICT)
+        verdict = follower.verdict
         if verdict is not None:
             ok = bool(verdict.get("converged"))
             print(f"watch: the scan has ended: {verdict.get('points_done')}/{verdict.get('points_total')} points, "

@@ -23,6 +23,8 @@ Module map::
     status.py           the status words (engine + session), which are final or reopenable, exit codes
     scan.py             scans: one integral over a grid of constants, warm-started, resumable
                         (cubage.scan; its run-directory files sit beside the ones above)
+    scan_follower.py    ScanFollower: follows a scan's run directory from another process (the scan
+                        view, cubage watch --plain, cubage plot); read_scan_points
 
 Dependencies point down only: this package imports the engine and the problem
 format, never a front end.  ``import cubage`` loads none of it (``cubage.scan``

@@ -77,7 +77,7 @@ from cubage.problem.scan_table import ScanGrid, grid_from_mapping
 
 __all__ = ["scan", "run_scan", "ScanResult", "PointResult", "ExprSource", "CallableSource", "scan_path",
            "plan_chains", "default_chains", "coarsen", "POINTS_PER_CHAIN", "COARSEN_SHARE", "COARSEN_GROWTH",
-           "POINTS_FILE", "CSV_FILE", "SCAN_JSON"]
+           "POINTS_FILE", "CSV_FILE", "SCAN_JSON", "LIVE_FILE"]
 
 #: One chain per this many points by default (see the order rule).
 POINTS_PER_CHAIN = 50
@@ -101,6 +101,8 @@ SEGMENT_SECONDS = 0.5
 POINTS_FILE = "scan-points.jsonl"
 CSV_FILE = "scan.csv"
 SCAN_JSON = "scan.json"
+#: A current point's live file, per chain (``LIVE_FILE.format(chain=c)``; followers glob ``chain="*"``).
+LIVE_FILE = "scan-live-{chain}.json"
 
 
 # --------------------------------------------------------------------------
@@ -600,7 +602,7 @@ class _ScanFiles:
         return self.path / f"scan-current-{index}.npz"
 
     def live(self, c: int) -> Path:
-        return self.path / f"scan-live-{c}.json"
+        return self.path / LIVE_FILE.format(chain=c)
 
     @property
     def stop_file(self) -> Path:
