@@ -81,3 +81,46 @@ def test_trend_floor_silent_on_fast_convergence():
     j = np.arange(12)
     values = (1.0 + 256.0 ** -j)[:, None]
     assert E.trend_floor(100.0 * 2.0 ** j, values)[0] == 0.0
+
+
+def _gk_diagonal(fun, v=2):
+    """Values of fun(s) at the four outermost K15 abscissae of one diagonal, and at its vertex s = 1."""
+    from cubage.engine.rules.gauss_kronrod import _XK
+    xs = _XK[:4]
+    f_diag = np.array([[[[fun(x)] for x in xs]] * v])          # (1, v, 4, 1)
+    f_vertex = np.array([[[fun(1.0)]] * v])                     # (1, v, 1)
+    return f_diag, xs, f_vertex
+
+
+@pytest.mark.parametrize("fun", [np.exp, np.cos, lambda s: s ** 3 - s, lambda s: 1.0 / (2.0 + s),
+                                 lambda s: np.exp(-20 * s * s)])
+def test_extrapolation_quiet_on_smooth_functions(fun):
+    """Issue 12 item 3: a smooth function's value at the vertex is the cubic extrapolation from the outermost
+    K15 nodes up to the remainder f''''/4! prod(1 - x_i) (Lagrange remainder, A&S 25.2.3), far below the
+    quadratic/cubic difference."""
+    f_diag, xs, f_vertex = _gk_diagonal(fun)
+    floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[1.0]]))
+    assert not dev[0] and floor[0, 0] == 0.0
+
+
+def test_extrapolation_sees_a_step_between_the_outermost_node_and_the_vertex():
+    """Issue 12 item 3: 1 + 50 [s > 0.995] is constant on every node (s <= 0.9915) but 51 at the vertex.
+
+    Both diagonals (v = 2) see the jump of 50; the allowance |cubic - quadratic| is 0 for a constant, so the
+    floor is volume * mean excess = 4 * 50 (by hand)."""
+    f_diag, xs, f_vertex = _gk_diagonal(lambda s: 1.0 + 50.0 * (s > 0.995))
+    floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[51.0]]))
+    assert dev[0]
+    assert floor[0, 0] == pytest.approx(4.0 * 50.0, rel=1e-6)
+
+
+def test_non_finite_vertex_values_are_not_data():
+    """Issue 12 item 3: a vertex singularity (NaN probe) neither flags the region nor sets a floor."""
+    f_diag, xs, f_vertex = _gk_diagonal(lambda s: 1.0 / (1.5 - s))
+    f_vertex[:] = np.nan
+    floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[1.0]]))
+    assert not dev[0] and floor[0, 0] == 0.0
+    f0, fp, fm, probe, a = _diagonal(np.exp)
+    probe[:] = np.nan
+    floor, dev = E.probe_errors(f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
+    assert not dev[0] and floor[0, 0] == 0.0

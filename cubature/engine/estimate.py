@@ -167,8 +167,10 @@ ROUNDING = 64 * np.finfo(float).eps
 DISAGREE = 1.0
 #: largest factor by which a measured disagreement scales the children's rule estimates (lineage calibration)
 CALIBRATION_LIMIT = 1e3
-#: corner probes sit at this fraction of the way from a box's centre to each vertex (inside, never on the boundary)
-PROBE_POSITION = 0.99
+#: vertex probes sit at this fraction of the way from a box's centre to each vertex: 1, the vertices themselves
+#: (a jump or kink crossing a box always separates some vertex from the centre, however close to a face it lies;
+#: non-finite values there, as at a corner singularity or an infinite axis' end, are never used as data)
+PROBE_POSITION = 1.0
 #: a probe deviates when |f - quadratic extrapolation| > PROBE_TOLERANCE * (|quadratic| + PROBE_SLOPE * |linear|)
 PROBE_TOLERANCE = 1.0
 PROBE_SLOPE = 0.05
@@ -366,10 +368,72 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         dev = np.abs(f_probe - pred)
     allow = (PROBE_TOLERANCE * (np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3 + PROBE_SLOPE * np.abs(c[1]) * t)
              + 1e3 * ROUNDING * scale[:, None, :])
+    bad = ~np.isfinite(dev)                 # no finite value there (a vertex singularity): not data, no signature
+    excess = np.where(bad, 0.0, np.maximum(dev - allow, 0.0))
+    floor = volume[:, None] * excess.mean(axis=1)
+    deviates = (excess > 0).any(axis=(1, 2))
+    return floor, deviates
+
+
+def extrapolation_errors(f_diag: np.ndarray, xs: np.ndarray, f_vertex: np.ndarray, volume: np.ndarray,
+                         scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Error floors of boxes from their vertex values, for rules with many nodes along each diagonal.
+
+    A tensor rule (Gauss–Kronrod) has nodes at ``t = xs[0] > xs[1] > ...``
+    (in units of the half-diagonal) along the diagonal towards every vertex,
+    the outermost a short way from the vertex at ``t = 1``.  The cubic
+    through the four outermost nodes predicts the vertex value; the quadratic
+    through the three outermost predicts it too, and their difference is the
+    allowance (times :data:`PROBE_TOLERANCE`): for a smooth integrand the
+    extrapolation over the short gap ``1 - xs[0]`` is accurate to far below
+    it.  A jump or kink between the outermost node and the vertex (where no
+    node lies) is not, and the excess of the deviation, averaged over the
+    vertices and times the volume, becomes a floor of the box's error.
+
+    Parameters
+    ----------
+    f_diag : ndarray, shape (k, v, n, m)
+        Values at the ``n >= 4`` outermost diagonal nodes towards each of the
+        ``v`` vertices, in the order of ``xs``.
+    xs : ndarray, shape (n,)
+        Positions of those nodes on the diagonal (``0 < xs < 1``).
+    f_vertex : ndarray, shape (k, v, m)
+        Values at the vertices (NaN where the integrand gave no finite value:
+        not data, no signature).
+    volume : ndarray, shape (k,)
+    scale : ndarray, shape (k, m)
+        Magnitude of the region's values (rounding allowance).
+
+    Returns
+    -------
+    floor : ndarray, shape (k, m)
+    deviates : ndarray of bool, shape (k,)
+        Boxes where some vertex deviated.
+
+    References
+    ----------
+    Lagrange extrapolation; its remainder ``f^(4)(xi)/4! prod (1 - x_i)`` is
+    the smooth case's error (e.g. Abramowitz & Stegun 25.2.3).
+    """
+    def lagrange_at_one(x):
+        # weights w with sum_j w_j p(x_j) = p(1) for every polynomial p of degree < len(x)
+        w = np.ones(len(x))
+        for j in range(len(x)):
+            for i in range(len(x)):
+                if i != j:
+                    w[j] *= (1.0 - x[i]) / (x[j] - x[i])
+        return w
+    xs = np.asarray(xs, dtype=float)
+    w3, w2 = lagrange_at_one(xs[:4]), lagrange_at_one(xs[:3])
+    p3 = np.einsum("j,kvjm->kvm", w3, f_diag[:, :, :4, :])
+    p2 = np.einsum("j,kvjm->kvm", w2, f_diag[:, :, :3, :])
+    with np.errstate(invalid="ignore"):
+        dev = np.abs(f_vertex - p3)
+    allow = PROBE_TOLERANCE * np.abs(p3 - p2) + 1e3 * ROUNDING * scale[:, None, :]
     bad = ~np.isfinite(dev)
     excess = np.where(bad, 0.0, np.maximum(dev - allow, 0.0))
     floor = volume[:, None] * excess.mean(axis=1)
-    deviates = (bad | (excess > 0)).any(axis=(1, 2))
+    deviates = (excess > 0).any(axis=(1, 2))
     return floor, deviates
 
 

@@ -23,6 +23,12 @@ from cubage.engine.transforms import AxisMap
 _EPS = np.finfo(float).eps
 
 
+def has_probes(rule) -> bool:
+    """Whether vertex probes can be compared with the nodes of ``rule`` (nodes along each diagonal:
+    Genz–Malik's corner group, the tensor Gauss–Kronrod grid)."""
+    return "groups" in rule.extra or "diagonal" in rule.extra
+
+
 class BoxGeometry:
     """Boxes as (centre, half-width) rows; nodes ``c + h * u`` for rule nodes ``u``."""
 
@@ -70,12 +76,11 @@ class BoxGeometry:
     def probe_points(self, g: dict, position: float) -> np.ndarray | None:
         """Points near the vertices of the boxes ``g``: ``c + position * h * s`` for every sign
         vector ``s`` in ``itertools.product((1, -1), repeat=d)`` order (the order of the
-        Genz–Malik corner nodes); shape (k * 2^d, d).  None when the rule has no corner nodes
-        to compare them with."""
-        if "groups" not in self.rule.extra:
+        Genz–Malik corner nodes and of the Gauss–Kronrod ``"diagonal"``); shape (k * 2^d, d).
+        None when the rule has no nodes along the diagonals to compare them with."""
+        if not has_probes(self.rule):
             return None
-        signs = self.rule.nodes[slice(*self.rule.extra["groups"]["corner5"])]
-        signs = np.sign(signs)
+        signs = np.array(list(itertools.product((1.0, -1.0), repeat=self.dim)))
         pts = g["centre"][:, None, :] + position * g["halfw"][:, None, :] * signs[None]
         return pts.reshape(-1, self.dim)
 

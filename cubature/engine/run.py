@@ -32,7 +32,7 @@ import numpy as np
 from cubage.engine import estimate as _estimate
 from cubage.engine.abandon import AbandonableCaller, Abandoned, CallFailed
 from cubage.engine.domains import Box, DomainError, Simplex
-from cubage.engine.geometry import BoxGeometry, SimplexGeometry
+from cubage.engine.geometry import BoxGeometry, SimplexGeometry, has_probes
 from cubage.engine.regions import RegionStore
 from cubage.engine.rules import box_rule, default_rule, simplex_rule
 from cubage.engine.statuses import STATUSES as STATUSES  # re-exported: cubage.STATUSES
@@ -625,23 +625,36 @@ class Run:
         t = self.geometry.probe_points({name: a[probe] for name, a in g.items()}, _estimate.PROBE_POSITION)
         if t is None:
             return None
-        x, jac = (self.geometry.map.to_user(t) if self.geometry.map is not None else (t, None))
-        fx = self._call_integrand(x)                # abandonable; exits in user code are failures
-        try:
-            fx = np.asarray(fx, dtype=np.float64)
-        except (TypeError, ValueError) as exc:
-            raise IntegrandError(f"integrand returned something that is not an array of numbers ({exc})") from None
-        n = x.shape[0]
-        if fx.ndim == 0:
-            fx = np.full(n, float(fx))
-        fx = fx.reshape(n, -1)
-        if fx.shape[1] != (self.m or fx.shape[1]):
-            raise IntegrandError(f"integrand returned {fx.shape[1]} components, earlier {self.m}")
-        with np.errstate(invalid="ignore", over="ignore"):
-            if jac is not None:
-                fx = fx * jac[:, None]
-        fx = np.where(np.isfinite(fx), fx, np.nan)
-        return fx.reshape(int(probe.sum()), -1, fx.shape[1])
+        n, m = t.shape[0], self.m or 1
+        out = np.full((n, m), np.nan)
+        # a vertex at the end of an infinite axis (engine t = +-1) maps to infinity: no value there is data
+        amap = self.geometry.map
+        kinds = getattr(getattr(amap, "amap", amap), "kinds", None)
+        use = np.ones(n, dtype=bool)
+        if kinds is not None and (kinds != 0).any():
+            inf_axes = kinds != 0
+            on_end = (t <= amap.lower[None, :]) | (t >= amap.upper[None, :])
+            use = ~(on_end & inf_axes[None, :]).any(axis=1)
+        if use.any():
+            tu = t[use]
+            x, jac = (amap.to_user(tu) if amap is not None else (tu, None))
+            try:
+                with np.errstate(all="ignore"):     # 1/0 at a vertex is no news: the value is not data
+                    fx = self._call_integrand(x)    # abandonable (Abandoned propagates)
+                fx = np.asarray(fx, dtype=np.float64)
+                if fx.ndim == 0:
+                    fx = np.full(x.shape[0], float(fx))
+                fx = fx.reshape(x.shape[0], -1)
+            except (IntegrandError, TypeError, ValueError):
+                # an integrand that fails on the boundary (where no node lies) gives the probes no data;
+                # a broken integrand fails at the next evaluation of nodes
+                fx = None
+            if fx is not None and fx.shape[1] == m:
+                with np.errstate(invalid="ignore", over="ignore"):
+                    if jac is not None:
+                        fx = fx * jac[:, None]
+                out[use] = np.where(np.isfinite(fx), fx, np.nan)
+        return out.reshape(int(probe.sum()), -1, m)
 
     def _call_integrand(self, x: np.ndarray):
         """The integrand (through the evaluator) at ``x``, in a call the run can abandon.
@@ -695,12 +708,17 @@ class Run:
         deviates = np.zeros(k, dtype=bool)
         if pv is None:
             return floor, deviates
-        grp = self.rule.extra["groups"]["corner5"]
         fp = fr[probe]
-        fc = fp[:, grp[0]:grp[1], :]
-        a = float(np.abs(self.rule.nodes[grp[0]]).max())
         vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
-        fl, dv = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv, a, vol, np.abs(fp).max(axis=1))
+        if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
+            diag = self.rule.extra["diagonal"]
+            fl, dv = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
+                                                    np.abs(fp).max(axis=1))
+        else:
+            grp = self.rule.extra["groups"]["corner5"]
+            fc = fp[:, grp[0]:grp[1], :]
+            a = float(np.abs(self.rule.nodes[grp[0]]).max())
+            fl, dv = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv, a, vol, np.abs(fp).max(axis=1))
         floor[probe] = fl
         deviates[probe] = dv
         return floor, deviates
@@ -711,6 +729,20 @@ class Run:
         if c["wary_splits"] < _estimate.WARY_MIN_SPLITS or not c["wary_estimated"] > 0:
             return 1.0
         return float(min(max(1.0, c["wary_measured"] / c["wary_estimated"]), _estimate.CALIBRATION_LIMIT))
+
+    def _suspects(self, parents: dict, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
+        """Children (of the split ``parents``, values ``q``) whose vertices to probe.
+
+        A tensor rule's regions are all probed (``2^d`` values beside ``15^d`` nodes); Genz–Malik
+        children are probed when they look resolved although their parent showed a non-smooth signature.
+        """
+        nch = self.geometry.children_per_split
+        if "diagonal" in self.rule.extra:
+            return np.ones(q.shape[0], dtype=bool)
+        suspect = np.tile((parents["flags"] & _NON_SMOOTH) != 0, nch)
+        if suspect.any():
+            suspect &= self._looks_resolved(q, absq)
+        return suspect
 
     def _looks_resolved(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
         """Regions whose rule estimate is tiny against their size (candidates for a vertex probe)."""
@@ -792,7 +824,8 @@ class Run:
 
     def _start(self) -> None:
         g, q, absq, fr, depth = self._evaluate_start()
-        probe = np.ones(len(q), dtype=bool) if len(q) == 1 else self._looks_resolved(q, absq)
+        probe = (np.ones(len(q), dtype=bool) if len(q) == 1 or "diagonal" in self.rule.extra
+                 else self._looks_resolved(q, absq))
         carried = self._carried(len(q))
         if carried is not None:
             probe &= carried
@@ -841,7 +874,7 @@ class Run:
 
     def _per_split(self) -> int:
         """Most evaluations one split can cost (children's nodes and vertex probes)."""
-        v = 2 ** self.domain.dim if "groups" in self.rule.extra else 0
+        v = 2 ** self.domain.dim if has_probes(self.rule) else 0
         return self.geometry.children_per_split * (self.rule.size + v)
 
     def _choose(self) -> int:
@@ -1008,10 +1041,7 @@ class Run:
         kids = self.geometry.split(parents)
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
         # children that look resolved although their parent showed a non-smooth signature: probe their vertices
-        nch = self.geometry.children_per_split
-        suspect = np.tile((parents["flags"] & _NON_SMOOTH) != 0, nch)
-        if suspect.any():
-            suspect &= self._looks_resolved(q, absq)
+        suspect = self._suspects(parents, q, absq)
         pv = self._probe_values(kids, suspect)    # may raise: nothing changed yet
         self.queue.pop(k)
         key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0)
@@ -1142,7 +1172,8 @@ class Run:
         kids = self.geometry.split(parents)
         before = self.evaluations
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
-        probe = self._looks_resolved(q, absq)
+        probe = (np.ones(len(q), dtype=bool) if "diagonal" in self.rule.extra
+                 else self._looks_resolved(q, absq))
         pv = self._probe_values(kids, probe)
         w_sample = float(w[idx].sum())
         _, _, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED)
