@@ -84,11 +84,11 @@ def test_trend_floor_silent_on_fast_convergence():
 
 
 def _gk_diagonal(fun, v=2):
-    """Values of fun(s) at the four outermost K15 abscissae of one diagonal, and at its vertex s = 1."""
+    """Values of fun(s) at the four outermost K15 abscissae of one diagonal, and at its probe (just inside s = 1)."""
     from cubage.engine.rules.gauss_kronrod import _XK
     xs = _XK[:4]
     f_diag = np.array([[[[fun(x)] for x in xs]] * v])          # (1, v, 4, 1)
-    f_vertex = np.array([[[fun(1.0)]] * v])                     # (1, v, 1)
+    f_vertex = np.array([[[fun(E.PROBE_POSITION)]] * v])        # (1, v, 1)
     return f_diag, xs, f_vertex
 
 

@@ -167,10 +167,13 @@ ROUNDING = 64 * np.finfo(float).eps
 DISAGREE = 1.0
 #: largest factor by which a measured disagreement scales the children's rule estimates (lineage calibration)
 CALIBRATION_LIMIT = 1e3
-#: vertex probes sit at this fraction of the way from a box's centre to each vertex: 1, the vertices themselves
-#: (a jump or kink crossing a box always separates some vertex from the centre, however close to a face it lies;
-#: non-finite values there, as at a corner singularity or an infinite axis' end, are never used as data)
-PROBE_POSITION = 1.0
+#: vertex probes sit at this fraction of the way from a box's centre to each vertex: just inside the vertex (a
+#: jump or kink crossing a box always separates some vertex from the centre, however close to a face it lies; a
+#: jump exactly on a face, as on a declared break or at x < 0.5, is not mistaken for one inside)
+PROBE_POSITION = 1.0 - 2.0 ** -20
+#: a probe value above this many times the magnitude of the integrand on the region's nodes (and on the first
+#: region's) is a singularity at the vertex, not data (its size says nothing about the region's error)
+PROBE_WILD = 1e4
 #: a probe deviates when |f - quadratic extrapolation| > PROBE_TOLERANCE * (|quadratic| + PROBE_SLOPE * |linear|)
 PROBE_TOLERANCE = 1.0
 PROBE_SLOPE = 0.05
@@ -376,13 +379,14 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
 
 
 def extrapolation_errors(f_diag: np.ndarray, xs: np.ndarray, f_vertex: np.ndarray, volume: np.ndarray,
-                         scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+                         scale: np.ndarray, position: float | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Error floors of boxes from their vertex values, for rules with many nodes along each diagonal.
 
     A tensor rule (Gauss–Kronrod) has nodes at ``t = xs[0] > xs[1] > ...``
     (in units of the half-diagonal) along the diagonal towards every vertex,
     the outermost a short way from the vertex at ``t = 1``.  The cubic
-    through the four outermost nodes predicts the vertex value; the quadratic
+    through the four outermost nodes predicts the value at the probe
+    (``t = position``, default :data:`PROBE_POSITION`, just inside the vertex); the quadratic
     through the three outermost predicts it too, and their difference is the
     allowance (times :data:`PROBE_TOLERANCE`): for a smooth integrand the
     extrapolation over the short gap ``1 - xs[0]`` is accurate to far below
@@ -398,8 +402,8 @@ def extrapolation_errors(f_diag: np.ndarray, xs: np.ndarray, f_vertex: np.ndarra
     xs : ndarray, shape (n,)
         Positions of those nodes on the diagonal (``0 < xs < 1``).
     f_vertex : ndarray, shape (k, v, m)
-        Values at the vertices (NaN where the integrand gave no finite value:
-        not data, no signature).
+        Values at the probes (NaN where the integrand gave no finite value or
+        a singular one: not data, no signature).
     volume : ndarray, shape (k,)
     scale : ndarray, shape (k, m)
         Magnitude of the region's values (rounding allowance).
@@ -408,23 +412,25 @@ def extrapolation_errors(f_diag: np.ndarray, xs: np.ndarray, f_vertex: np.ndarra
     -------
     floor : ndarray, shape (k, m)
     deviates : ndarray of bool, shape (k,)
-        Boxes where some vertex deviated.
+        Boxes where some probe deviated.
 
     References
     ----------
     Lagrange extrapolation; its remainder ``f^(4)(xi)/4! prod (1 - x_i)`` is
     the smooth case's error (e.g. Abramowitz & Stegun 25.2.3).
     """
-    def lagrange_at_one(x):
-        # weights w with sum_j w_j p(x_j) = p(1) for every polynomial p of degree < len(x)
+    t = PROBE_POSITION if position is None else float(position)
+
+    def lagrange_at(x):
+        # weights w with sum_j w_j p(x_j) = p(t) for every polynomial p of degree < len(x)
         w = np.ones(len(x))
         for j in range(len(x)):
             for i in range(len(x)):
                 if i != j:
-                    w[j] *= (1.0 - x[i]) / (x[j] - x[i])
+                    w[j] *= (t - x[i]) / (x[j] - x[i])
         return w
     xs = np.asarray(xs, dtype=float)
-    w3, w2 = lagrange_at_one(xs[:4]), lagrange_at_one(xs[:3])
+    w3, w2 = lagrange_at(xs[:4]), lagrange_at(xs[:3])
     p3 = np.einsum("j,kvjm->kvm", w3, f_diag[:, :, :4, :])
     p2 = np.einsum("j,kvjm->kvm", w2, f_diag[:, :, :3, :])
     with np.errstate(invalid="ignore"):

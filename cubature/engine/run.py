@@ -470,7 +470,7 @@ class Run:
         self._hidden = np.zeros(1)
         self.checks = {"splits": 0, "disagreed": 0, "lower_closer": 0, "audits": 0, "audit_regions": 0,
                        "audit_evaluations": 0, "audit_disagreed": 0, "audit": "not run",
-                       "wary_splits": 0, "wary_measured": 0.0, "wary_estimated": 0.0}
+                       "wary_splits": 0, "wary_measured": 0.0, "wary_estimated": 0.0, "f_scale": [0.0]}
         self._audit_ok = False
 
     # -- fingerprint ---------------------------------------------------------
@@ -710,6 +710,11 @@ class Run:
             return floor, deviates
         fp = fr[probe]
         vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
+        # a value far above the integrand's magnitude on the region's nodes and on the first region's is a
+        # singularity at (just inside) the vertex: not data
+        big = _estimate.PROBE_WILD * np.maximum(np.abs(fp).max(axis=1), np.asarray(self.checks["f_scale"]))
+        with np.errstate(invalid="ignore"):
+            pv = np.where(np.abs(pv) <= big[:, None, :], pv, np.nan)
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
             diag = self.rule.extra["diagonal"]
             fl, dv = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
@@ -835,6 +840,7 @@ class Run:
                 self.checks["wary_measured"] = float(wary[1])
                 self.checks["wary_estimated"] = float(wary[2])
         self.m = q.shape[2]
+        self.checks["f_scale"] = [float(v) for v in np.abs(fr).max(axis=(0, 1))]
         pv = self._probe_values(g, probe)
         raw = self._errors(q, absq)
         floor, deviates = self._probe_floor(g, fr, pv, probe)
