@@ -296,3 +296,115 @@ def test_a_cluster_left_without_workers_ends_the_run(monkeypatch):
         ev.close()
     assert "no worker" in str(info.value) and "\n" not in str(info.value)
     assert run.status == "failed" and run.evaluations >= before
+
+
+SCAN = PROBLEM.replace('expr = "x + y"', 'expr = "a * (x + y)"\nconstants = {{ a = 1.0 }}') + "[scan]\na = [1.0, 2.0]\n"
+
+
+def test_scans_follow_the_same_cluster_rule_as_runs(tmp_path, capsys, hostile):
+    """Cleanup item 1: a scan's file cluster is treated like a run's (one rule, session.prepare.choose_cluster):
+    untrusted, it is ignored with the same note and nothing connects (the scan used to be refused); trusted with
+    --allow-python, or named with --cluster, it is contacted (here: not a scheduler, one line, exit 2)."""
+    prob = tmp_path / "s.toml"
+    prob.write_text(SCAN.format(backend="auto", cluster=hostile.address))
+    code, out, err = run_cli(capsys, "run", prob, "--json", "--run-dir", tmp_path / "rd")
+    assert code == 0, err
+    rec = json.loads(out)
+    # a (x + y) over the unit square is a (by hand: a/2 + a/2)
+    assert [round(p["value"], 10) for p in rec["points"]] == [1.0, 2.0]
+    assert err.count("\n") == 1 and "[method] cluster" in err and "not used" in err
+    # resume of the scan: the copy's cluster is not contacted either
+    code, out, err = run_cli(capsys, "resume", tmp_path / "rd", "--json")
+    assert code == 0, err
+    assert hostile.connections == 0
+    code, out, err = run_cli(capsys, "run", prob, "--allow-python")
+    assert code == 2 and hostile.connections >= 1
+    assert err.count("\n") == 1 and "[method] cluster" in err and "not a dask scheduler" in err
+    seen = hostile.connections
+    code, out, err = run_cli(capsys, "run", prob, "--cluster", hostile.address)
+    assert code == 2 and hostile.connections > seen
+    assert err.count("\n") == 1 and "--cluster" in err and "not a dask scheduler" in err
+
+
+def test_run_and_scan_notes_about_a_file_cluster_are_the_same(tmp_path):
+    """Cleanup item 1: runs and scans take the cluster and its note from one session function."""
+    from cubage.problem.problem_file import load_problem
+    from cubage.session.prepare import Overrides, choose_cluster, prepare_run, prepare_scan
+    run_file, scan_file = tmp_path / "p.toml", tmp_path / "s.toml"
+    run_file.write_text(PROBLEM.format(backend="auto", cluster="tcp://127.0.0.1:9"))
+    scan_file.write_text(SCAN.format(backend="auto", cluster="tcp://127.0.0.1:9"))
+    run_p, scan_p = load_problem(run_file), load_problem(scan_file)
+    plan = prepare_scan(scan_p)
+    prep = prepare_run(run_p, start_evaluator=True)
+    try:
+        assert plan.cluster is None and "dask" not in prep.evaluation
+        assert [n.split(" not used")[1] for n in plan.notes] == [n.split(" not used")[1] for n in prep.notes]
+    finally:
+        prep.close()
+    assert choose_cluster(scan_p, "tcp://elsewhere:8786") == ("tcp://elsewhere:8786", None)
+    trusted = load_problem(scan_file, allow_python=True)
+    assert prepare_scan(trusted).cluster == "tcp://127.0.0.1:9" and prepare_scan(trusted).notes == []
+    assert prepare_scan(trusted, Overrides(cluster="tcp://other:1")).cluster == "tcp://other:1"
+
+
+def test_text_ui_scans_and_runs_follow_the_same_cluster_rule(tmp_path, hostile):
+    """Cleanup item 1: the UI's scan view prepares its scan through the session (prepare_scan) like cubage run:
+    an untrusted file's cluster is not contacted (a note says so; the points are right); and the UI started with
+    --allow-python trusts an expression file's cluster as the command line does (it used to ignore it)."""
+    import asyncio
+
+    from textual.app import App
+
+    from cubage.problem.problem_file import load_problem
+    from cubage.tui.app import CubageApp
+    from cubage.tui.run_view import RunView
+    from cubage.tui.scan_view import ScanView, open_scan
+
+    scan_file = tmp_path / "s.toml"
+    scan_file.write_text(SCAN.format(backend="auto", cluster=hostile.address))
+    prob = load_problem(scan_file)
+    notes = []
+
+    class Host(App):
+        def on_mount(self):
+            open_scan(self, prob, can_go_back=False)
+
+        def notify(self, message, **kw):
+            notes.append(message)
+
+    async def wait(pilot, cond, seconds=30.0):
+        for _ in range(int(seconds / 0.1)):
+            if cond():
+                return True
+            await pilot.pause(0.1)
+        return bool(cond())
+
+    async def scan_view():
+        app = Host()
+        async with app.run_test(size=(80, 24)) as pilot:
+            assert await wait(pilot, lambda: isinstance(app.screen, ScanView))
+            view = app.screen
+            assert await wait(pilot, lambda: view.state.over)
+            assert not view.state.note, view.state.note
+            # a (x + y) over the unit square is a (by hand)
+            assert sorted(round(float(p.value), 10) for p in view.state.points.values()) == [1.0, 2.0]
+            await pilot.press("q")
+    asyncio.run(scan_view())
+    assert hostile.connections == 0 and any("[method] cluster" in n and "not used" in n for n in notes)
+
+    run_file = tmp_path / "p.toml"
+    run_file.write_text(PROBLEM.format(backend="dask", cluster=hostile.address))
+
+    async def trusted_run():
+        app = CubageApp([run_file], allow_python=True)
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.3)
+            await pilot.press("enter")
+            assert await wait(pilot, lambda: isinstance(app.screen, RunView))
+            await pilot.press("g")
+            assert await wait(pilot, lambda: hostile.connections >= 1, 15.0)
+            await pilot.press("q")
+            await pilot.pause(0.2)
+            if app.is_running:
+                await pilot.press("y")
+    asyncio.run(trusted_run())

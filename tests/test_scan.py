@@ -281,12 +281,13 @@ def test_random_scan_tables_are_accepted_or_one_line_errors(table):
 
 
 def test_cluster_from_a_problem_file_is_not_contacted(tmp_path, capsys):
-    """issue 10 item 0 for scans: a [method] cluster in the file is refused unless named on the command line."""
+    """issue 10 item 0 for scans, as for runs (cleanup item 1): an untrusted file's [method] cluster is not used;
+    one note says so and the scan runs on this machine (tests/test_cluster_trust.py checks nothing connects)."""
     f = tmp_path / "c.toml"
     f.write_text(BASE.format(scan="a = [1.0, 2.0]") + '\n[method]\ncluster = "tcp://127.0.0.1:9"\n')
-    assert main(["run", str(f)]) == 2
+    assert main(["run", str(f), "--json"]) == 0
     err = capsys.readouterr().err
-    assert "--cluster" in err and len(err.strip().splitlines()) == 1
+    assert "[method] cluster" in err and "not used" in err and len(err.strip().splitlines()) == 1
 
 
 def test_a_folder_of_another_scan_is_refused(tmp_path):

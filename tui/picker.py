@@ -322,7 +322,9 @@ class PickerScreen(Screen):
                                           f"([b]{escape(spec.python)}[/b]).\nImport and run it?",
                                           title="Python integrand"), answer)
             return
-        self._open(spec, overrides, trust=spec.needs_python)
+        # trusted like the command line's --allow-python: the UI started with it (or the question answered yes)
+        # trusts the whole file, its [method] cluster included (one rule for runs and scans, session.prepare)
+        self._open(spec, overrides, trust=self.allow_python)
 
     def _open(self, spec: ProblemSpec, overrides: dict, trust: bool) -> None:
         """Bind the spec read for the preview (the file is not read again) and open its run view."""

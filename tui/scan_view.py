@@ -80,16 +80,18 @@ class ScanDirSource:
 
 
 class ScanThreadSource:
-    """Runs the scan of a problem in a background thread of this process."""
+    """Runs the scan of a problem in a background thread of this process.
 
-    def __init__(self, problem, settings: dict | None = None, workers: int = 1):
+    ``plan`` is the session's :class:`~cubage.session.prepare.PreparedScan` (settings, workers, the cluster the
+    one rule of runs and scans allows); without one, the problem's own goal and method.
+    """
+
+    def __init__(self, problem, plan=None):
+        from cubage.session.prepare import prepare_scan
         from cubage.session.scan import ExprSource
         self.problem = problem
-        self.settings = settings or {"rel_tol": problem.goal.rel_tol, "abs_tol": problem.goal.abs_tol}
-        if problem.goal.budget is not None:
-            self.settings.setdefault("budget", problem.goal.budget)
-        if problem.method.rule:
-            self.settings.setdefault("rule", problem.method.rule)
+        self.plan = plan if plan is not None else prepare_scan(problem)
+        self.settings = self.plan.settings
         self.source = ExprSource(problem.integrand_spec, problem.fingerprint())
         self.stop = threading.Event()
         self._lock = threading.Lock()
@@ -120,10 +122,16 @@ class ScanThreadSource:
             self._live = rec
 
     def _work(self) -> None:
+        from cubage.session.prepare import open_cluster
         from cubage.session.scan import run_scan
+        where = f"{self.problem.path if self.problem.path is not None else '<problem>'}: [method] cluster"
         try:
-            run_scan(self.source, self.problem.domain, self.problem.scan, self.settings,
-                     on_point=self._on_point, on_step=self._on_step, stop_event=self.stop)
+            with open_cluster(self.plan.cluster, where) as client:
+                # chains stay in this process (worker processes started under the UI's terminal handling are
+                # unreliable); a cluster the rules allow takes them
+                run_scan(self.source, self.problem.domain, self.problem.scan, self.settings, cluster=client,
+                         on_point=self._on_point, on_step=self._on_step if client is None else None,
+                         stop_event=self.stop)
         except Exception as exc:  # noqa: BLE001 - shown in the view, never a crash of the UI
             self._error = f"the scan ended with an error: {type(exc).__name__}: {exc}"
         finally:
@@ -134,7 +142,14 @@ class ScanThreadSource:
             state.points = dict(self._points)
             state.live = [self._live] if self._live is not None else []
         state.over = self._over
-        state.note = self._error
+        if self._error or state.over:
+            state.note = self._error
+        elif self.plan.cluster is not None:
+            state.note = "chains run in the dask cluster; no per-point chart"
+        elif self.plan.workers > 1:
+            state.note = f"one process here (cubage run --workers {self.plan.workers} runs chains side by side)"
+        else:
+            state.note = ""
 
     def halt(self) -> str:
         self.stop.set()
@@ -483,8 +498,18 @@ def watch_scan(path) -> int:
 
 
 def open_scan(app, problem, overrides: dict | None = None, *, can_go_back: bool = True) -> None:
-    """Push the scan view running ``problem``'s scan here (the picker's hook)."""
-    o = dict(overrides or {})
-    settings = {"rel_tol": o.get("rel_tol", problem.goal.rel_tol), "abs_tol": o.get("abs_tol", problem.goal.abs_tol)}
-    app.push_screen(ScanView(problem.title or "scan", problem.scan, ScanThreadSource(problem, settings),
+    """Push the scan view running ``problem``'s scan here (the picker's hook): the picker's fields are checked
+    and the scan prepared by the session layer, as ``cubage run`` does (:func:`cubage.session.prepare.prepare_scan`)."""
+    from cubage.session.prepare import InputError, Overrides, prepare_scan
+
+    from .run_view import FIELD_LABELS
+    o = Overrides(**{k: v for k, v in (overrides or {}).items() if k in FIELD_LABELS}, labels=FIELD_LABELS)
+    try:
+        plan = prepare_scan(problem, o)
+    except InputError as exc:
+        app.notify(str(exc), title="Cannot start the scan", severity="error", markup=False)
+        return
+    for note in plan.notes:
+        app.notify(note, title="Note", severity="warning", markup=False, timeout=10)
+    app.push_screen(ScanView(problem.title or "scan", problem.scan, ScanThreadSource(problem, plan),
                              can_go_back=can_go_back))

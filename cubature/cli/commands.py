@@ -458,8 +458,8 @@ def cmd_run(args, guard) -> int:
     problem = _load(args.file, args.allow_python)
     if problem.scan is not None:
         from cubage.cli.scan_command import run_scan_command
-        from cubage.session.prepare import scan_settings
-        return run_scan_command(args, problem, scan_settings(problem, _overrides(args)), args.file
+        from cubage.session.prepare import prepare_scan
+        return run_scan_command(args, problem, prepare_scan(problem, _overrides(args)), args.file
                                 if problem.path is None else problem.path.stem)
     prep = prepare_run(problem, _overrides(args), snapshot_interval=SNAPSHOT_INTERVAL)
     name = problem.path.stem if problem.path is not None else args.file

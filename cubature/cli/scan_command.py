@@ -160,55 +160,25 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
     return code
 
 
-class _cluster:
-    """The dask client of ``--cluster ADDR`` (named on this command line only; closed afterwards), or None."""
-
-    def __init__(self, args):
-        self.address = getattr(args, "cluster", None)
-        self.client = None
-        self.owned = False
-
-    def __enter__(self):
-        if not self.address:
-            return None
-        from cubage.cli.commands import UsageError
-        from cubage.engine.parallel import _connect
-        try:
-            self.client, self.owned, _ = _connect(self.address)
-        except ValueError as exc:
-            raise UsageError(f"--cluster: {exc}") from None
-        return self.client
-
-    def __exit__(self, *exc):
-        if self.client is not None and self.owned:
-            try:
-                self.client.close()
-            except Exception:  # noqa: BLE001 - closing must never hide the scan's outcome
-                pass
-        return False
+def _cluster_label(args, problem) -> str:
+    """How messages name the cluster: the option, or the file's key."""
+    if getattr(args, "cluster", None):
+        return "--cluster"
+    return f"{problem.path if problem.path is not None else '<problem>'}: [method] cluster"
 
 
-def _workers_count(workers) -> int:
-    if workers in (None, 1):
-        return 1
-    if workers == "auto":
-        return max(1, os.cpu_count() or 1)
-    return max(1, int(workers))
-
-
-def run_scan_command(args, problem, settings: dict, name: str) -> int:
-    """``cubage run FILE`` for a problem with ``[scan]`` (``settings`` from the CLI's merge)."""
+def run_scan_command(args, problem, plan, name: str) -> int:
+    """``cubage run FILE`` for a problem with ``[scan]`` (``plan``: the session's
+    :class:`~cubage.session.prepare.PreparedScan` of the problem and the command line's overrides)."""
     from cubage import __version__
     from cubage.cli.commands import UsageError
+    from cubage.session.prepare import open_cluster
     from cubage.session.run_directory import RunDir
-    if (problem.method.cluster or getattr(problem.method, "cluster_ignored", None)) and not args.cluster:
-        where = str(problem.path) if problem.path is not None else "<problem>"
-        raise UsageError(f"{where}: [method] cluster: a scan connects only to a cluster named on the command line "
-                         "(--cluster ADDR)")
     if getattr(args, "second_opinion", False):
         raise UsageError("--second-opinion does not apply to a scan")
-    workers = _workers_count(args.workers if args.workers is not None else problem.method.workers)
-    warm = not args.cold
+    for note in plan.notes:
+        print(f"cubage: note: {note}", file=sys.stderr, flush=True)
+    settings, workers, warm = plan.settings, plan.workers, not args.cold
     rd = None
     try:
         if args.run_dir:
@@ -226,7 +196,7 @@ def run_scan_command(args, problem, settings: dict, name: str) -> int:
                     "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
                     "pid": os.getpid()}
             rd.create(problem.text, info)
-        with _cluster(args) as client:
+        with open_cluster(plan.cluster, _cluster_label(args, problem)) as client:
             return _execute(problem, args, name=name, settings=settings, rd=rd, warm=warm, chains=args.chains,
                             workers=workers, cluster=client)
     finally:
@@ -238,6 +208,7 @@ def resume_scan_command(args) -> int:
     """``cubage resume DIR`` for a scan's run directory."""
     from cubage.problem.problem_file import parse_problem
     from cubage.session.jsonio import read_json_object
+    from cubage.session.prepare import choose_cluster, open_cluster, worker_count
     from cubage.session.run_directory import HALT_REQUEST, LEDGER, SOURCE, VERDICT, RunDir, RunDirError
     rd = RunDir(Path(args.dir))
     rd._refuse_links()
@@ -245,7 +216,7 @@ def resume_scan_command(args) -> int:
     if info is None:
         raise RunDirError(f"{rd.path}: not a cubage run directory (no readable {LEDGER})")
     text = rd.read_source()
-    problem = parse_problem(text, path=rd.file(SOURCE))
+    problem = parse_problem(text, path=rd.file(SOURCE), allow_python=bool(getattr(args, "allow_python", False)))
     if problem.scan is None:
         raise RunDirError(f"{rd.path}: the problem copy has no [scan] table")
     settings = dict(info.get("settings") or {})
@@ -253,7 +224,10 @@ def resume_scan_command(args) -> int:
         v = getattr(args, k, None)
         if v is not None:
             settings[k] = v
-    workers = _workers_count(args.workers if args.workers is not None else info.get("workers", 1))
+    workers = worker_count(args.workers if args.workers is not None else info.get("workers", 1))
+    cluster, note = choose_cluster(problem, getattr(args, "cluster", None))     # the one rule of runs and scans
+    if note:
+        print(f"cubage: note: {note}", file=sys.stderr, flush=True)
     rd.acquire()
     try:
         rd.file(HALT_REQUEST).unlink(missing_ok=True)
@@ -261,7 +235,7 @@ def resume_scan_command(args) -> int:
         entry = {"command": "resume", "started": time.strftime("%Y-%m-%dT%H:%M:%S%z"), "host": socket.gethostname(),
                  "pid": os.getpid()}
         rd.add_session(info, entry)
-        with _cluster(args) as client:
+        with open_cluster(cluster, _cluster_label(args, problem)) as client:
             return _execute(problem, args, name=info.get("problem") or "scan", settings=settings, rd=rd,
                             warm=bool(info.get("warm", True)), chains=info.get("chains"), workers=workers,
                             cluster=client)

@@ -20,7 +20,8 @@ from typing import Any
 
 __all__ = ["InputError", "check_tolerance", "check_budget", "check_time_limit", "check_workers",
            "parse_number", "parse_count", "Overrides", "PreparedRun", "prepare_run", "resume_run", "scan_settings",
-           "make_evaluator", "GOAL_KEYS", "METHOD_KEYS"]
+           "make_evaluator", "choose_cluster", "open_cluster", "PreparedScan", "prepare_scan", "worker_count",
+           "GOAL_KEYS", "METHOD_KEYS"]
 
 GOAL_KEYS = ("rel_tol", "abs_tol", "budget", "time_limit", "memory_ceiling")
 METHOD_KEYS = ("rule", "degree", "workers", "backend", "cluster")
@@ -182,7 +183,7 @@ def make_evaluator(problem, workers=None, backend=None, cluster=None, *, labels:
     m = problem.method
     workers = workers if workers is not None else m.workers
     backend = backend if backend is not None else m.backend
-    cluster = cluster if cluster is not None else m.cluster
+    cluster, _ = choose_cluster(problem, cluster)
     want = workers not in (1, None) or backend not in ("auto", "serial", None) or cluster
     try:
         from cubage.engine import parallel
@@ -200,15 +201,76 @@ def make_evaluator(problem, workers=None, backend=None, cluster=None, *, labels:
     return ev, parallel.describe_evaluator(ev), _method_note(problem, given)
 
 
+def choose_cluster(problem, named: str | None = None) -> tuple[str | None, str | None]:
+    """The dask cluster a run or a scan of ``problem`` connects to, and a note for the user (one rule for both).
+
+    A cluster is contacted only when the user names it (``named``: ``--cluster ADDR``) or trusts the file
+    (``--allow-python``, the UI's trust question): :func:`cubage.problem.problem_file.bind_problem` keeps
+    ``[method] cluster`` only for a trusted file and otherwise moves it to ``Method.cluster_ignored``, which
+    gives the note (a dask scheduler can run code in the process that connects to it; issue 10 item 0).
+
+    Returns
+    -------
+    str or None, str or None
+        The scheduler address or file to connect to (None: evaluate on this machine), and the note (or None).
+    """
+    m = problem.method
+    if named is not None:
+        return named, None
+    if m.cluster is not None:
+        return m.cluster, None
+    ignored = getattr(m, "cluster_ignored", None)
+    if ignored:
+        return None, (f"{_problem_where(problem, 'method', 'cluster')} {ignored} not used: cubage connects only "
+                      "to a cluster named with --cluster (or a trusted file's, with --allow-python), since a dask "
+                      "scheduler can run code in this process; evaluating on this machine")
+    return None, None
+
+
+class open_cluster:
+    """``with open_cluster(address, label) as client``: a dask client for ``address`` (None: no cluster, the
+    client is None), closed on exit when this opened it.  For scans, whose chains go to the cluster's executor.
+
+    Raises
+    ------
+    InputError
+        The address cannot be used (not a scheduler, unreachable, dask not installed), named by ``label``.
+    """
+
+    def __init__(self, address: str | None, label: str = "cluster"):
+        self.address = address
+        self.label = label
+        self.client = None
+        self._owned = False
+
+    def __enter__(self):
+        if not self.address:
+            return None
+        from cubage.engine.parallel import _connect
+        try:
+            self.client, self._owned, _ = _connect(self.address)
+        except (ValueError, ImportError) as exc:
+            raise InputError(f"{self.label}: {str(exc).splitlines()[0] if str(exc) else type(exc).__name__}") \
+                from None
+        return self.client
+
+    def __exit__(self, *exc) -> bool:
+        if self.client is not None and self._owned:
+            try:
+                self.client.close()
+            except Exception:  # noqa: BLE001 - closing must never hide the scan's outcome
+                pass
+        return False
+
+
 def _method_note(problem, given: dict) -> str | None:
     """What of the file's method was not applied: an untrusted cluster, workers above the cores (issue 10
     items 0 and 15d; the problem file keeps them in ``cluster_ignored`` / ``workers_asked``)."""
     m = problem.method
     notes = []
-    if given.get("cluster") is None and getattr(m, "cluster_ignored", None):
-        notes.append(f"{_problem_where(problem, 'method', 'cluster')} {m.cluster_ignored} not used: cubage "
-                     "connects only to a cluster named with --cluster (or a trusted file's, with --allow-python), "
-                     "since a dask scheduler can run code in this process; evaluating on this machine")
+    _, cluster_note = choose_cluster(problem, given.get("cluster"))
+    if cluster_note:
+        notes.append(cluster_note)
     if given.get("workers") is None and getattr(m, "workers_asked", None):
         notes.append(f"{_problem_where(problem, 'method', 'workers')} = {m.workers_asked} capped at this "
                      f"machine's {m.workers} cores (--workers N sets any number)")
@@ -344,6 +406,55 @@ def scan_settings(problem, overrides: Overrides | None = None) -> dict:
     if degree is not None:
         settings["degree"] = degree
     return settings
+
+
+def worker_count(workers) -> int:
+    """A number of workers as a count: ``None`` -> 1, ``"auto"`` -> this machine's cores, else the number."""
+    import os
+    if workers in (None, 1):
+        return 1
+    if workers == "auto":
+        return max(1, os.cpu_count() or 1)
+    return max(1, int(workers))
+
+
+@dataclass
+class PreparedScan:
+    """A validated scan of a problem with a ``[scan]`` table: what :func:`cubage.session.scan.run_scan` needs
+    besides the problem, decided once for the command line and the text UI.
+
+    Attributes
+    ----------
+    settings : dict
+        The engine settings of every point (goal, rule, degree; :func:`scan_settings`).
+    workers : int
+        Worker processes running chains side by side.
+    cluster : str or None
+        The dask scheduler to connect to (:func:`choose_cluster`: named, or a trusted file's), or None.
+    notes : list of str
+        One-line notes for the user (a file's cluster not used, workers capped at the cores).
+    """
+
+    settings: dict
+    workers: int
+    cluster: str | None
+    notes: list = field(default_factory=list)
+
+
+def prepare_scan(problem, overrides: Overrides | None = None) -> PreparedScan:
+    """Validate ``overrides`` against ``problem`` for a scan: settings, workers and the cluster (one rule with
+    runs: a file's ``[method] cluster`` only when the file is trusted; cleanup item 1).
+
+    Raises
+    ------
+    InputError
+    """
+    o = overrides or Overrides()
+    settings = scan_settings(problem, o)
+    workers = worker_count(o.workers if o.workers is not None else problem.method.workers)
+    cluster, _ = choose_cluster(problem, o.cluster)
+    note = _method_note(problem, {"cluster": o.cluster, "workers": o.workers})
+    return PreparedScan(settings, workers, cluster, [note] if note else [])
 
 
 def prepare_run(problem, overrides: Overrides | None = None, *, snapshot_interval: float = 0.25,
