@@ -9,6 +9,8 @@ from __future__ import annotations
 import ast
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -138,3 +140,93 @@ def test_plain_watch_of_a_scan_started_before_its_first_point_shows_the_constant
     assert code == 0
     assert out[0].split()[:2] == ["#", "a"]                 # the header names the scanned constant
     assert [r.split()[1] for r in out[1:3]] == ["0.5", "1"]
+
+
+# --------------------------------------------------------------------------
+# cleanup item 4: run directories of the first release with Python integrands
+# --------------------------------------------------------------------------
+
+def _as_first_release(rd: Path, integrand_file: Path, target: str) -> None:
+    """Rewrite ``rd``'s checkpoint and ledger as the first release wrote them: checkpoint format 1 (digest over the
+    arrays only) and the problem fingerprint of that release (import path + sha256 of the .py file's bytes,
+    re-stated here from that release's source, not taken from cubage)."""
+    import hashlib
+    import json
+
+    import numpy as np
+
+    from cubage.engine.checkpoint import _digest
+    with np.load(rd / "partition.npz", allow_pickle=False) as z:
+        arrays = {k: z[k] for k in z.files}
+    meta = json.loads(arrays.pop("meta").tobytes().decode())
+    old_spec = {"kind": "python", "target": target,
+                "file_sha256": hashlib.sha256(integrand_file.read_bytes()).hexdigest()}
+    old_fp = hashlib.sha256(json.dumps({"domain": meta["domain"], "integrand": old_spec}, sort_keys=True,
+                                       separators=(",", ":")).encode()).hexdigest()
+    meta.update(version=1, integrand=old_fp,
+                fingerprint=hashlib.sha256((old_fp + json.dumps(meta["settings"], sort_keys=True)).encode())
+                .hexdigest())
+    meta.pop("digest")
+    meta["digest"] = _digest(arrays, None)
+    with open(rd / "partition.npz", "wb") as fh:
+        np.savez(fh, meta=np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8), **arrays)
+    ledger = json.loads((rd / "ledger.json").read_text())
+    ledger["problem_fingerprint"] = old_fp
+    (rd / "ledger.json").write_text(json.dumps(ledger))
+
+
+PY_INTEGRAND = "import numpy as np\ndef f(X):\n    return np.exp(-X[:, 0]) * np.sqrt(X[:, 1])\n"
+PY_PROBLEM = """
+[domain]
+variables = ["x", "y"]
+box = [[0, 1], [0, 1]]
+[integrand]
+python = "integrand.py:f"
+[goal]
+rel_tol = 1e-13
+budget = 3000
+"""
+
+
+@pytest.mark.parametrize("with_verdict", [True, False])
+def test_resume_of_a_first_release_python_run_directory_says_what_to_do(tmp_path, cli, with_verdict):
+    """Cleanup item 4: ``cubage resume DIR`` on a run directory written by the first release with a Python
+    integrand (whose fingerprint format changed) says so in one line, with the command that starts it again,
+    exit 2, no traceback; the directory is left as it was."""
+    (tmp_path / "integrand.py").write_text(PY_INTEGRAND)
+    prob = tmp_path / "p.toml"
+    prob.write_text(PY_PROBLEM)
+    rd = tmp_path / "rd"
+    code, out, err = cli("run", prob, "--allow-python", "--run-dir", rd)
+    assert code == 3, err                                  # budget spent: a run to continue
+    _as_first_release(rd, tmp_path / "integrand.py", "integrand.py:f")
+    if not with_verdict:                                   # as after kill -9
+        (rd / "verdict.json").unlink()
+    before = {p.name: p.read_bytes() for p in rd.iterdir()}
+    code, out, err = cli("resume", rd, "--allow-python", "--budget", "1e5")
+    assert code == 2 and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1, err
+    assert "first release" in err and f"cubage run {prob}" in err and "--allow-python" in err
+    assert ("verdict.json" in err) == with_verdict
+    assert {p.name: p.read_bytes() for p in rd.iterdir() if p.name != "occupant.json"} == \
+        {k: v for k, v in before.items() if k != "occupant.json"}
+    code, out, err = cli("resume", rd, "--allow-python", "--json")
+    import json
+    rec = json.loads(out)
+    assert code == 2 and rec["status"] == "error" and "first release" in rec["message"]
+
+
+def test_resume_of_a_current_python_run_directory_still_works(tmp_path, cli):
+    """Cleanup item 4 (the other side): a Python run directory written by this release resumes and converges to
+    the closed form (integral of exp(-x) sqrt(y) over the unit square = (1 - 1/e) 2/3, elementary)."""
+    import json
+    import math
+    (tmp_path / "integrand.py").write_text(PY_INTEGRAND)
+    prob = tmp_path / "p.toml"
+    prob.write_text(PY_PROBLEM.replace("1e-13", "1e-9"))
+    rd = tmp_path / "rd"
+    code, _, err = cli("run", prob, "--allow-python", "--run-dir", rd, "--budget", "1000")
+    assert code == 3, err
+    code, out, err = cli("resume", rd, "--allow-python", "--budget", "1e7", "--json")
+    assert code == 0, err
+    assert abs(json.loads(out)["value"] - (1 - math.exp(-1)) * 2 / 3) < 1e-8

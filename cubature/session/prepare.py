@@ -539,6 +539,9 @@ def resume_run(problem, checkpoint, overrides: Overrides | None = None, *, snaps
         run = Run.from_checkpoint(checkpoint, problem.integrand, problem.domain, fingerprint=fp,
                                   snapshot_interval=snapshot_interval, **goal)
     except CheckpointError:
+        why = _first_release_python(problem, checkpoint)
+        if why:
+            raise CheckpointError(why) from None
         raise
     except (ValueError, TypeError, KeyError, IndexError, AttributeError) as exc:
         if goal and isinstance(exc, ValueError) and any(w in str(exc) for w in ("tol", "budget", "time_limit")):
@@ -550,3 +553,56 @@ def resume_run(problem, checkpoint, overrides: Overrides | None = None, *, snaps
         except ValueError as exc:
             raise _run_error(problem, o, exc) from None
     return PreparedRun(problem, run, o, fp)
+
+
+def _first_release_fingerprint(problem) -> str | None:
+    """The fingerprint the first release gave ``problem`` if its integrand is Python code, else None.
+
+    That release identified a Python integrand by its import path and, for a ``file.py:function`` target, the
+    digest of that one file's bytes; later releases use the digest of all the code it imports
+    (:meth:`cubage.problem.problem_file.Problem.fingerprint`), so such a checkpoint never matches again.
+    """
+    import hashlib
+    import json
+    from pathlib import Path
+    spec = getattr(problem, "integrand_spec", None) or {}
+    if spec.get("kind") != "python":
+        return None
+    target = spec["target"]
+    module = target.rpartition(":")[0].strip()
+    old = {"kind": "python", "target": target}
+    if module.endswith(".py"):
+        file = Path(module) if Path(module).is_absolute() else Path(spec.get("base_dir") or ".") / module
+        try:
+            old["file_sha256"] = hashlib.sha256(file.read_bytes()).hexdigest()
+        except OSError:
+            old["base_dir"] = spec.get("base_dir")
+    payload = json.dumps({"domain": problem.domain.to_json(), "integrand": old}, sort_keys=True,
+                         separators=(",", ":"))
+    return hashlib.sha256(payload.encode("utf-8")).hexdigest()
+
+
+def _first_release_python(problem, checkpoint) -> str | None:
+    """One line for a checkpoint of a Python integrand written by the first release (cleanup item 4), else None.
+
+    Recognised by the checkpoint's problem fingerprint: the first release's formula applied to this problem, or
+    a checkpoint of format version 1 (that release's) whose fingerprint is not today's.
+    """
+    from pathlib import Path
+
+    from cubage.engine.checkpoint import CheckpointError, read_checkpoint
+    old = _first_release_fingerprint(problem)
+    if old is None:
+        return None
+    try:
+        meta, _ = read_checkpoint(checkpoint)
+    except (CheckpointError, OSError, ValueError):
+        return None
+    theirs = meta.get("integrand")
+    if theirs == problem.fingerprint() or not (theirs == old or meta.get("version") == 1):
+        return None
+    folder = Path(checkpoint).parent
+    source = getattr(problem, "path", None) or "FILE"
+    kept = f" (its last estimate stays in {folder / 'verdict.json'})" if (folder / "verdict.json").is_file() else ""
+    return (f"{folder}: written by cubage's first release, which identified Python integrands differently, so it "
+            f"cannot be resumed; start again with: cubage run {source} --allow-python --run-dir NEW-DIR{kept}")
