@@ -224,3 +224,46 @@ def test_vertex_probes_skip_infinite_ends_and_singular_vertices():
     assert not run.store["flags"][0] & 16
     res = run.run()
     _honest(res, 1.5 * math.log(2 + math.sqrt(3)) - math.pi / 4, 1e-4)
+
+
+def test_kink_near_the_faces_of_resolved_regions_3d():
+    """Issue 12 item 3: exp(-sum a_i |x_i - u_i|) (Genz's C0 family) in 3-D at 1e-6 used to converge with 4x the
+    reported error: its kink at x0 = 0.8431 sat at 98 % of the width of many resolved regions, between the last
+    axis node and the vertex, where the probes' slope allowance hid it and no probed ancestor flagged the lineage.
+
+    Closed form: product of the 1-D integrals (Genz 1984; cubage.bench.genz_families.exact, checked in
+    tests/test_genz.py against direct quadrature).
+    """
+    a = np.array([4.07966757195459, 5.739562785044427, 10.58076964300098])
+    u = np.array([0.843110021516097, 0.5422597924093286, 0.4752261386265063])
+    f = genz.integrand("c0", a, u)
+    exact = genz.exact("c0", a, u)
+    res = cubage.integrate(f, cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6, budget=2_000_000)
+    assert not (res.converged and abs(res.value - exact) > 2e-6 * exact)       # never silently wrong
+    assert abs(res.value - exact) <= res.error
+
+
+def test_audit_counts_what_the_parent_missed():
+    """Issue 12 item 4: exp(-sum a_i |x_i - u_i|) in 2-D at 1e-4: the first audit's split of a region with a
+    kink across it measures 1.8e-5 against the parent's estimate 1.8e-8.  The children's own estimates then
+    cover their share, but the regions the audit did not split have the same shortfall: the audit must fail
+    (and its next sample grow) rather than pass because the split children look fine.
+    Closed form: Genz 1984 product (cubage.bench.genz_families.exact)."""
+    a = np.array([9.378927806706338, 11.021072193293662])
+    u = np.array([0.7724929607883628, 0.04298977735649856])
+    run = cubage.Run(genz.integrand("c0", a, u), cubage.Box([0] * 2, [1] * 2), rel_tol=1e-4, budget=200_000)
+    run.run()
+    assert run.checks["audit_failed"] >= 1 and run.checks["audits"] >= 2
+
+
+def test_one_region_audit_costs_one_split():
+    """Issue 12 item 4: a smooth 6-D integrand met by the first region's estimate is audited by one split
+    (2 x 149 Genz-Malik nodes, 2^6 + 2*6^2 + 2*6 + 1 = 149 by Genz & Malik 1980) and no second round of vertex
+    probes: the first region's vertices were probed already.  Value: Re(e^i prod (e^(i c_k) - 1)/(i c_k)) for
+    cos(1 + sum c_k x_k) (closed form, common practice)."""
+    c = 1.0 / np.arange(1, 7)
+    exact = float((np.exp(1j) * np.prod((np.exp(1j * c) - 1) / (1j * c))).real)
+    res = cubage.integrate(lambda X: np.cos(1.0 + X @ c), cubage.Box([0] * 6, [1] * 6), rel_tol=1e-6)
+    assert res.converged and res.trust["audit"] == "passed"
+    assert res.trust["audit_evaluations"] == 2 * 149
+    assert abs(res.value - exact) <= res.error

@@ -49,6 +49,8 @@ FLAG_LOWER_CLOSER = 4     # made by a split where the parent's lower-degree rule
 FLAG_AUDITED = 8          # made by an audit split
 FLAG_PROBE = 16           # values near a vertex disagreed with the rule's nodes (a feature where no node lies)
 FLAG_WARY = 32            # child of a region with a non-smooth signature (its estimate gets the learnt factor)
+FLAG_WATCH = 64           # descendant of a non-smooth region, not yet cleared by vertex probes (its children are)
+FLAG_PROBED = 128         # its vertices were probed and agreed with its nodes
 _SIGNATURES = ((FLAG_DISAGREED, "parent and children disagreed beyond the estimate"),
                (FLAG_PROBE, "values near a vertex disagree with the nodes (jump or kink between them)"),
                (FLAG_LOWER_CLOSER, "lower-degree rule closer than the rule"),
@@ -468,6 +470,7 @@ class Run:
         self._last_snap = -math.inf
         # the honesty checks (counters for the trust report; part of a checkpoint)
         self._hidden = np.zeros(1)
+        self._missed = np.zeros(1)
         self.checks = {"splits": 0, "disagreed": 0, "lower_closer": 0, "audits": 0, "audit_regions": 0,
                        "audit_evaluations": 0, "audit_disagreed": 0, "audit": "not run",
                        "wary_splits": 0, "wary_measured": 0.0, "wary_estimated": 0.0, "f_scale": [0.0]}
@@ -739,12 +742,14 @@ class Run:
         """Children (of the split ``parents``, values ``q``) whose vertices to probe.
 
         A tensor rule's regions are all probed (``2^d`` values beside ``15^d`` nodes); Genz–Malik
-        children are probed when they look resolved although their parent showed a non-smooth signature.
+        children are probed when they look resolved although their parent showed a non-smooth signature
+        or is watched (:data:`FLAG_WATCH`: a descendant of such a region that was not probed yet, because
+        its estimate was still large; a feature near its faces would otherwise escape every probe).
         """
         nch = self.geometry.children_per_split
         if "diagonal" in self.rule.extra:
             return np.ones(q.shape[0], dtype=bool)
-        suspect = np.tile((parents["flags"] & _NON_SMOOTH) != 0, nch)
+        suspect = np.tile((parents["flags"] & (_NON_SMOOTH | FLAG_WATCH)) != 0, nch)
         if suspect.any():
             suspect &= self._looks_resolved(q, absq)
         return suspect
@@ -854,6 +859,7 @@ class Run:
         g["low"] = q[:, 1, :]
         g["flags"] = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
                       | np.where(deviates, FLAG_PROBE, 0)
+                      | np.where(probe & ~deviates if pv is not None else False, FLAG_PROBED, 0)
                       | (np.where(carried, FLAG_WARY, 0) if carried is not None else 0)).astype(np.uint8)
         self.evaluations = fr.shape[0] * fr.shape[1] + (pv.size // self.m if pv is not None else 0)
         self.total_value = val.sum(axis=0)
@@ -1097,13 +1103,20 @@ class Run:
         raised = (floor > err).any(axis=1)
         # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
         # what the vertex probes added on top of the children's corrected estimates
+        probe_extra = np.maximum(floor - err, 0.0).sum(axis=0)
         self._hidden = (np.maximum(D.sum(axis=0) - parents["error"].sum(axis=0) - child_raw.sum(axis=0), 0.0)
-                        + np.maximum(floor - err, 0.0).sum(axis=0))
+                        + probe_extra)
+        # what the parents' own estimates missed, region by region (the audit extrapolates it to the regions
+        # it did not split: the children's estimates may now cover their share, the unsplit regions' do not)
+        self._missed = np.maximum(D - parents["error"], 0.0).sum(axis=0) + probe_extra
         err = np.maximum(err, floor)
         pd, pl = disagree.any(axis=1), lower.any(axis=1)
         flags = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
                  | np.where(deviates, FLAG_PROBE, 0) | np.where(wary, FLAG_WARY, 0)
+                 | np.where(probe & ~deviates if pv is not None else False, FLAG_PROBED, 0)
                  | np.tile(np.where(pd, FLAG_DISAGREED, 0) | np.where(pl, FLAG_LOWER_CLOSER, 0), nch)
+                 | np.where(np.tile((parents["flags"] & (_NON_SMOOTH | FLAG_WATCH)) != 0, nch) & ~probe,
+                            FLAG_WATCH, 0)
                  | extra_flag).astype(np.uint8)
         self.checks["splits"] += k
         self.checks["disagreed"] += int(pd.sum())
@@ -1165,21 +1178,29 @@ class Run:
             self._audit_ok = True
             return "converged"
         cum = np.cumsum(w[order])
-        want = int(np.searchsorted(cum, AUDIT_VALUE_SHARE * cum[-1], side="left")) + 1 if cum[-1] > 0 else 1
-        cap = max(AUDIT_MIN, int(AUDIT_COST * self.evaluations) // per)
+        # each failed audit doubles the next one's sample: a failure says the estimates of this run fall short
+        # somewhere, and the next sample must reach further than the one that failed
+        failed = min(int(self.checks.get("audit_failed", 0)), 4)
+        share = 1.0 - (1.0 - AUDIT_VALUE_SHARE) / 2 ** failed
+        want = int(np.searchsorted(cum, share * cum[-1], side="left")) + 1 if cum[-1] > 0 else 1
+        cap = max(AUDIT_MIN, int(AUDIT_COST * 2 ** failed * self.evaluations) // per)
         k = max(1, min(want, cap, int(afford), order.size))
         idx = np.sort(order[:k])
         parents = {name: st[name][idx] for name in st.columns}
         if self.geometry.kind == "box" and self.geometry.split_policy == "bisect":
             h = parents["halfw"]
             rule_axis = parents["axis"].astype(np.intp)
-            pref = h * (1.0 + 1e-9 * (np.arange(h.shape[1])[None, :] != rule_axis[:, None]))
+            pref = np.where(np.arange(h.shape[1])[None, :] != rule_axis[:, None], h, 0.0)
             parents["axis"] = np.argmax(pref, axis=1).astype(np.int8)
         kids = self.geometry.split(parents)
         before = self.evaluations
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
+        # the audit's children get vertex probes where they look resolved, unless their parent's vertices
+        # were probed and agreed (half of the children's vertices are the parent's; the split check covers
+        # the mid-plane): a one-region run's audit then costs one split, not one split and 2^(d+1) probes
         probe = (np.ones(len(q), dtype=bool) if "diagonal" in self.rule.extra
-                 else self._looks_resolved(q, absq))
+                 else self._looks_resolved(q, absq)
+                 & ~np.tile((parents["flags"] & FLAG_PROBED) != 0, self.geometry.children_per_split))
         pv = self._probe_values(kids, probe)
         w_sample = float(w[idx].sum())
         _, _, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED)
@@ -1187,7 +1208,7 @@ class Run:
         self._exact_totals()
         # the sample's hidden error, extrapolated to the whole partition by value share, must fit in the goal
         scale = w_total / w_sample if w_sample > 0 else float(st.n) / max(1, len(idx))
-        hidden = self._hidden * scale
+        hidden = self._missed * scale
         c = self.checks
         c["audits"] += 1
         c["audit_regions"] += int(k)
@@ -1198,6 +1219,8 @@ class Run:
         goal = self.goal()
         self._audit_ok = bool(np.all(hidden <= np.maximum(goal - self.total_error, AUDIT_SMALL * goal)))
         c["audit"] = "passed" if self._audit_ok else "failed, refining"
+        if not self._audit_ok:
+            c["audit_failed"] = int(c.get("audit_failed", 0)) + 1
         return None
 
     def _depth_add(self, depth: np.ndarray, key: np.ndarray) -> None:
