@@ -8,9 +8,11 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 
 import cubage
 from cubage.engine.run import FLAG_DISAGREED, FLAG_WARY
+from cubage.session.scan import FALLING, REFINE_AHEAD, _refine_ahead, _seed, coarsen
 
 CUBE = cubage.Box([0.0, 0.0, 0.0], [1.0, 1.0, 1.0])
 
@@ -92,3 +94,106 @@ def test_moving_kink_warm_and_cold_agree_and_are_honest():
         assert abs(w.value - k.value) <= w.error + k.error
         assert abs(w.value - exact(w.constants["c"])) <= w.error
         assert abs(k.value - exact(k.constants["c"])) <= k.error
+
+
+# --------------------------------------------------------------------------
+# shaping the partition handed on: merging by trend, splitting ahead
+# --------------------------------------------------------------------------
+
+def _grid_partition(k: int) -> dict:
+    """k^3 equal boxes tiling the unit cube (engine coordinates are the user's on a bounded box)."""
+    t = (np.arange(k) + 0.5) / k
+    c = np.stack(np.meshgrid(t, t, t, indexing="ij"), axis=-1).reshape(-1, 3)
+    return {"centre": c, "halfw": np.full_like(c, 0.5 / k), "axis": np.zeros(len(c), np.int8),
+            "depth": np.full(len(c), 3 * int(math.log2(k)), np.int16)}
+
+
+def _tiles_the_cube(part: dict) -> None:
+    lo, hi = part["centre"] - part["halfw"], part["centre"] + part["halfw"]
+    assert np.prod(hi - lo, axis=1).sum() == pytest.approx(1.0, rel=1e-14)      # volume of the unit cube
+    # int x^2 y z^3 over the unit cube = (1/3)(1/2)(1/4) = 1/24 (elementary), box by box
+    mono = ((hi[:, 0] ** 3 - lo[:, 0] ** 3) / 3 * (hi[:, 1] ** 2 - lo[:, 1] ** 2) / 2
+            * (hi[:, 2] ** 4 - lo[:, 2] ** 4) / 4).sum()
+    assert mono == pytest.approx(1 / 24, rel=1e-13)
+
+
+def test_coarsen_merges_boxes_whose_errors_fell_not_those_that_grew():
+    """issue 14 item 3 (coarsening by trend): the same boxes with the same errors are merged when their
+    errors fell since the previous point (a feature moved away) and kept when they grew (a scan getting
+    harder); NaN errors are never merged; the result still tiles the cube."""
+    part = _grid_partition(8)
+    n = len(part["centre"])
+    err = np.full(n, 1e-9)
+    kw = dict(allowance=1e-6, cap=1e-7)
+    falling = coarsen(part, err, np.zeros(3), np.ones(3), trend=np.full(n, 0.5), **kw)
+    rising = coarsen(part, err, np.zeros(3), np.ones(3), trend=np.full(n, 2.0), **kw)
+    unknown = coarsen(part, np.full(n, np.nan), np.zeros(3), np.ones(3), allowance=np.inf)
+    assert len(falling["centre"]) < len(rising["centre"]) <= n
+    assert len(falling["centre"]) <= n // 8 and len(unknown["centre"]) == n
+    for p in (falling, rising, unknown):
+        _tiles_the_cube(p)
+    # no merged box predicted (errors extrapolated by their trends) above the cap (FALLING: its multiple)
+    assert np.all(2.0 * rising["error"] <= 1e-7) and np.all(0.5 * falling["error"] <= FALLING[1] * 1e-7)
+
+
+def test_refine_ahead_splits_the_regions_with_the_largest_errors():
+    """issue 14 item 3 (splitting ahead): a warm point that had to split regions after its start hands on
+    its partition with the share REFINE_AHEAD of that many largest-error regions already split; the
+    partition still tiles the cube."""
+    first = _finished(3.0)
+    start = _seed(first, None, None)
+    run = cubage.Run(lambda X: _cloud(X, 4.5), CUBE, rel_tol=1e-8, start=start)
+    run.run()
+    n0, n = len(start["centre"]), run.store.n
+    assert n > n0                                             # the harder point had to split
+    key = run.store["key"]
+    err = np.where(np.isfinite(key), key, 0.0)
+    part, err2, trend2 = _refine_ahead(run, run.partition(), err, np.full(n, np.nan), start)
+    k = int(REFINE_AHEAD * (n - n0))
+    assert k > 0 and len(part["centre"]) == n + k
+    assert np.isnan(err2).sum() == 2 * k and np.isnan(trend2).all()
+    top = np.argsort(-err, kind="stable")[:k]
+    kept = {tuple(c) for c in part["centre"]}
+    assert not any(tuple(c) in kept for c in run.store["centre"][top])
+    _tiles_the_cube(part)
+
+
+def test_simplex_scan_warm_and_cold_agree_with_dirichlet():
+    """issue 14 item 3 on a simplex domain (partitions are split ahead, never merged): every point of
+    exp(c (x + y + z)) over the unit 3-simplex within its error of the closed form
+    int_0^1 e^(c s) s^2/2 ds = (e^c (c^2 - 2c + 2) - 2) / (2 c^3) (the sum s has density s^2/2 on the
+    simplex, Dirichlet's formula); warm and cold agree within their errors."""
+    tri = cubage.Simplex([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1]])
+
+    def exact(c):
+        return (math.exp(c) * (c * c - 2 * c + 2) - 2) / (2 * c**3)
+    grid = {"c": np.linspace(1.0, 6.0, 6)}
+    f = lambda X, c: np.exp(c * X.sum(axis=1))
+    warm = cubage.scan(f, tri, grid, rel_tol=1e-8)
+    cold = cubage.scan(f, tri, grid, rel_tol=1e-8, warm=False)
+    assert warm.converged and cold.converged
+    assert sum(p.warm_from is not None for p in warm.points) == 5
+    for w, k in zip(warm.points, cold.points):
+        assert abs(w.value - k.value) <= w.error + k.error
+        assert abs(w.value - exact(w.constants["c"])) <= w.error
+
+
+def test_moving_peak_warm_and_cold_agree_and_are_honest():
+    """issue 14 item 3: a Gaussian peak moving along the cube's diagonal (the benchmark's moving feature,
+    shorter): warm and cold agree within their errors, and every point is within its error of the product
+    of three erf integrals (A&S 7.1.1)."""
+    s = 0.1
+
+    def f(X, c):
+        return np.exp(-((X - c) ** 2).sum(axis=1) / (2 * s * s))
+
+    def exact(c):
+        w = s * math.sqrt(2)
+        return (s * math.sqrt(math.pi / 2) * (math.erf((1 - c) / w) + math.erf(c / w))) ** 3
+    grid = {"c": np.linspace(0.3, 0.7, 9)}
+    warm = cubage.scan(f, CUBE, grid, rel_tol=1e-6)
+    cold = cubage.scan(f, CUBE, grid, rel_tol=1e-6, warm=False)
+    assert warm.converged and cold.converged
+    for w, k in zip(warm.points, cold.points):
+        assert abs(w.value - k.value) <= w.error + k.error
+        assert abs(w.value - exact(w.constants["c"])) <= w.error

@@ -29,11 +29,32 @@ Warm start
 ----------
 A warm-started point evaluates every region of the start partition with its
 own constants (``Run(start=...)``), then runs the engine's usual error control.
-Regions whose error in the finished neighbour was tiny are merged back with
-their siblings first (:func:`coarsen`): otherwise refinement that followed a
-feature (a peak moving with the parameter) would accumulate along the chain.
+The partition handed on is shaped first (:func:`_seed`), from what the
+finished neighbour measured; none of this touches the estimate, only which
+regions the next point evaluates first:
+
+* merged (:func:`coarsen`): sibling boxes whose errors were tiny, and above all
+  those whose errors *fell* since the point before (each start region's error
+  now against then: its trend) -- refinement that followed a feature (a peak
+  moving with the parameter) would otherwise accumulate along the chain --
+  while no merged box is predicted above a quarter of the largest error the
+  neighbour left unsplit (such a box would be split again at once);
+* split ahead (:func:`_refine_ahead`): half as many regions as the neighbour
+  had to split after its own start, those with the largest errors -- a scan
+  growing harder along its path would otherwise evaluate each of them once
+  more only to split it.
+
 The estimate stays the engine's: a warm-started point meets the same goal
 with the same checks as a cold one.  Error estimates are heuristic, not bounds.
+
+Where the warm start's evaluations go (``benchmarks/scan.py``, full scans): a
+cold run evaluates about 2N regions to end with N, a warm one at least the N it
+ends with, so 1/2 is the floor of reuse; on the smooth scan, which grows harder
+along its path, a warm point spent 0.51 of a cold one on its start partition,
+0.04 on refinement and 0.03 on the audit (0.58 in all), and no sibling pair of a
+converged partition could be merged without the merged box exceeding the error
+level the partition was refined to.  Merging pays only where the integrand got
+easier (a feature moving away, a goal loosening after a zero of the value).
 
 What a warm start carries over (``Run.partition()`` -> ``Run(start=...)``):
 the regions' signature flags and the learnt wary-class counters.  Start
@@ -77,19 +98,32 @@ from cubage.problem.scan_table import ScanGrid, grid_from_mapping
 
 __all__ = ["scan", "run_scan", "ScanResult", "PointResult", "ExprSource", "CallableSource", "scan_path",
            "plan_chains", "default_chains", "coarsen", "POINTS_PER_CHAIN", "COARSEN_SHARE", "COARSEN_GROWTH",
-           "POINTS_FILE", "CSV_FILE", "SCAN_JSON", "LIVE_FILE"]
+           "COARSEN_CAP", "FALLING", "REFINE_AHEAD", "POINTS_FILE", "CSV_FILE", "SCAN_JSON", "LIVE_FILE"]
 
 #: One chain per this many points by default (see the order rule).
 POINTS_PER_CHAIN = 50
-#: Coarsening may add at most this multiple of the finished point's goal to its estimated error.
+#: Coarsening may add at most this multiple of the goal expected at the next point to the estimated error.
 COARSEN_SHARE = 3.0
-#: A merged pair's error is estimated as this many times the sum of its two halves' errors.
-#: (Measured ratio parent/children on smooth and peaked 3-D integrands: median 9-13, 95th
-#: percentile 100-1000.)  Chosen with COARSEN_SHARE on benchmarks/scan.py's smooth and moving-peak
-#: scans (warm/cold evaluations, smooth; moving): (0.3, 64) 0.72; 0.95, (1, 16) -; 0.85,
-#: (3, 8) 0.81; 0.83, (10, 4) 0.85; 0.89 -- the engine's audited estimates (issue 12) leave less
-#: to gain than before them: (0.3, 64) gave 0.57; 0.75 on the earlier estimate.
-COARSEN_GROWTH = 8.0
+#: A merged box's error is predicted as this many times the summed errors of the boxes it merges
+#: (each extrapolated by its trend when known), however many levels are merged at once: next to a
+#: feature that moved away the boxes are thin slabs in which the integrand is nearly polynomial
+#: along the merged axis, and a factor compounding per level would keep them.  Measured ratio
+#: parent/children on smooth and peaked 3-D integrands: median 9-13, 95th percentile 100-1000.
+COARSEN_GROWTH = 32.0
+#: Pairs whose errors both fell since the previous point (a feature moving away): growth factor and
+#: multiple of the cap used for them instead.
+FALLING = (2.0, 16.0)
+#: A merged box may be estimated at most this multiple of the largest error its run left unsplit
+#: (scaled by how much looser the next point's goal is expected to be).
+COARSEN_CAP = 0.25
+#: Share of the regions a warm point split after its start that its successor gets split ahead.
+REFINE_AHEAD = 0.5
+#: (These five were chosen on benchmarks/scan.py's full scans, warm/cold evaluations smooth; through a
+#: zero; moving peak; and on a moving kink |x - c| e^y, 50 points, where cold runs stop at ~10 regions:
+#: the earlier rule, share and growth alone, (3, 8): 0.74; 0.72; 0.76 -- a cap of 0.25 added: 0.61;
+#: 0.60; 0.77 -- trends, a growth compounding per merged level, 32: 0.58; 0.64; 0.71; kink 1.57 --
+#: the same, growth not compounding (chosen): 0.58; 0.64; 0.70; kink 1.17 -- growth 64: 0.57; 0.65;
+#: 0.71; kink 1.27 -- no coarsening at all: 0.61; 0.73; 1.70.)
 
 #: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
 LIVE_INTERVAL = 1.0
@@ -193,32 +227,61 @@ def _row_keys(*cols: np.ndarray) -> np.ndarray:
 
 
 def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray, allowance: float, *,
-            growth: float | None = None, passes: int = 64) -> dict:
+            growth: float | None = None, passes: int = 64, cap: float = math.inf,
+            trend: np.ndarray | None = None) -> dict:
     """Merge pairs of sibling boxes whose errors were tiny, within an error allowance.
 
     Two boxes of the same shape that are neighbours along one axis and fill
-    the dyadic box one level up form a pair.  Pairs are merged cheapest first
-    (estimated cost ``(growth - 1) * (e_a + e_b)``, ties by index), each box
-    at most once per pass, while the summed cost stays within ``allowance``;
-    passes repeat on the merged boxes.  Deterministic.
+    the dyadic box one level up form a pair.  A merged box's error is
+    predicted as ``growth`` times the summed errors of the original boxes in
+    it (extrapolated by their trends when known; :data:`FALLING` for pairs
+    whose errors both fell).
+    Pairs are merged cheapest first (the predicted increase, ties by index),
+    each box at most once per pass, while no merged box exceeds ``cap`` and
+    the summed increase stays within ``allowance``; passes repeat on the
+    merged boxes.  Deterministic.
 
     Parameters
     ----------
     part : dict
-        ``centre``, ``halfw``, ``depth`` of box regions (engine coordinates), as :meth:`Run.partition`.
+        ``centre``, ``halfw``, ``depth`` (optional ``flags``, ``wary``) of box regions (engine
+        coordinates), as :meth:`Run.partition`.
     error : ndarray, shape (n,)
-        The regions' error estimates (priority-key units).
+        The regions' error estimates (priority-key units; NaN: unknown, never merged).
     lower, upper : ndarray
         The engine box (:meth:`BoxGeometry.map_extent`).
     allowance : float
-        Largest estimated increase of the total error.
+        Largest predicted increase of the total error.
+    growth : float, optional
+        Predicted error of a merged box over the summed errors of the boxes in it (default
+        :data:`COARSEN_GROWTH`).
+    cap : float
+        Largest predicted error of one merged box: a box above the error level its run left unsplit
+        would be split again at once.
+    trend : ndarray, shape (n,), optional
+        Each box's error now over its error at the previous point of the chain (NaN: unknown).  A
+        scan growing harder along its path needs every box it has, while a feature moving away
+        leaves boxes behind it whose errors fall from point to point.
+
+    Returns
+    -------
+    dict
+        The merged partition, with ``error`` (the boxes' errors now; merged boxes as predicted) and,
+        when ``part`` has them, ``flags`` (the union of the merged boxes') and ``wary`` (copied).
     """
     growth = COARSEN_GROWTH if growth is None else float(growth)
     c = np.asarray(part["centre"], float).copy()
     h = np.asarray(part["halfw"], float).copy()
     dep = np.asarray(part.get("depth", np.zeros(len(c))), np.int64).copy()
     fl = np.asarray(part["flags"], np.uint8).copy() if "flags" in part else None
-    e = np.asarray(error, float).copy()
+    e0 = np.asarray(error, float).copy()          # estimated errors now (NaN: unknown, never merged)
+    e = np.where(np.isnan(e0), np.inf, e0)        # ... extrapolated to the next point
+    down = np.zeros(len(e), bool)                 # errors falling from point to point
+    if trend is not None:
+        tr = np.asarray(trend, float)
+        down = np.isfinite(tr) & (tr <= 1.0)
+        e = e * np.where(np.isfinite(tr), np.maximum(tr, 0.0), 1.0)
+    le, le0 = e.copy(), e0.copy()                 # summed errors of the original boxes inside each box
     lower, upper = np.asarray(lower, float), np.asarray(upper, float)
     width = upper - lower
     unit = 2.0 ** 40
@@ -249,9 +312,14 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         lo_i, hi_j, ax_a = np.concatenate(ii), np.concatenate(jj), np.concatenate(aa)
         if lo_i.size == 0:
             break
-        cost = (growth - 1.0) * (e[lo_i] + e[hi_j])
+        both = down[lo_i] & down[hi_j]
+        gp = np.where(both, FALLING[0], growth)
+        with np.errstate(invalid="ignore"):
+            pred = gp * (le[lo_i] + le[hi_j])
+            cost = np.maximum(pred - e[lo_i] - e[hi_j], 0.0)
         o = np.lexsort((ax_a, lo_i, cost))
-        lo_i, hi_j, ax_a, cost = lo_i[o], hi_j[o], ax_a[o], cost[o]
+        o = o[np.isfinite(pred[o]) & (pred[o] <= np.where(both[o], FALLING[1] * cap, cap))]
+        lo_i, hi_j, ax_a, cost, pred, gp = lo_i[o], hi_j[o], ax_a[o], cost[o], pred[o], gp[o]
         used = np.zeros(n, bool)
         take = []
         for t in range(lo_i.size):
@@ -266,18 +334,22 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         if not take:
             break
         t = np.array(take)
-        lo_i, hi_j, ax_a = lo_i[t], hi_j[t], ax_a[t]
+        lo_i, hi_j, ax_a, pred, gp = lo_i[t], hi_j[t], ax_a[t], pred[t], gp[t]
         keep = ~used
         nh = h[lo_i].copy()
         nh[np.arange(len(ax_a)), ax_a] *= 2.0
         c = np.concatenate([c[keep], 0.5 * (c[lo_i] + c[hi_j])])
         h = np.concatenate([h[keep], nh])
-        e = np.concatenate([e[keep], growth * (e[lo_i] + e[hi_j])])
+        e = np.concatenate([e[keep], pred])
+        le = np.concatenate([le[keep], le[lo_i] + le[hi_j]])
+        e0 = np.concatenate([e0[keep], gp * (le0[lo_i] + le0[hi_j])])
+        le0 = np.concatenate([le0[keep], le0[lo_i] + le0[hi_j]])
+        down = np.concatenate([down[keep], down[lo_i] & down[hi_j]])
         dep = np.concatenate([dep[keep], np.maximum(dep[lo_i], dep[hi_j]) - 1])
         if fl is not None:
             fl = np.concatenate([fl[keep], fl[lo_i] | fl[hi_j]])
     out = {"centre": c, "halfw": h, "axis": np.zeros(len(c), np.int8),
-           "depth": np.maximum(dep, 0).astype(np.int16)}
+           "depth": np.maximum(dep, 0).astype(np.int16), "error": e0}
     if fl is not None:
         out["flags"] = fl
     if "wary" in part:
@@ -285,29 +357,96 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
     return out
 
 
-def _seed(run: Run, previous: np.ndarray | None = None) -> dict | None:
+def _trend(run: Run, start: dict | None) -> np.ndarray:
+    """Per region of ``run``'s store: its error now over its error at the previous point of the chain.
+
+    Known for the start regions this point never split (their rows still hold them; ``start["error"]``
+    holds their errors at the previous point); NaN for every other region.  Depends only on the start
+    and on the finished run, so a resumed point gives the same trends.
+    """
+    st = run.store
+    out = np.full(st.n, np.nan)
+    if start is None or "error" not in start or run.geometry.kind != "box":
+        return out
+    before = np.asarray(start["error"], float)
+    n = before.size
+    if n != len(start["centre"]) or st.n < n:
+        return out
+    same = (np.all(st["centre"][:n] == np.asarray(start["centre"]), axis=1)
+            & np.all(st["halfw"][:n] == np.asarray(start["halfw"]), axis=1))
+    now = np.where(np.isfinite(st["key"][:n]), st["key"][:n], 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = np.where(before > 0, now / before, np.where(now > 0, np.inf, 1.0))
+    out[:n] = np.where(same & np.isfinite(before), t, np.nan)
+    return out
+
+
+def _seed(run: Run, previous: np.ndarray | None = None, start: dict | None = None) -> dict | None:
     """The start partition a finished point hands to its successor (None: the successor starts cold).
 
     The coarsening allowance is :data:`COARSEN_SHARE` of the goal expected at the successor: the larger
     of this point's goal and the goal at the value extrapolated linearly from this point and the one
     before it on the chain (``previous``, its values) -- so that a point whose value passed near zero
-    (a tiny relative goal, a very fine partition) does not hand that partition on whole.
+    (a tiny relative goal, a very fine partition) does not hand that partition on whole.  No merged box
+    may be predicted above :data:`COARSEN_CAP` times the largest error this point left unsplit (times
+    the same loosening of the goal).  ``start`` (the partition this point started from) gives the
+    regions' trends (:func:`_trend`) and how many regions to split ahead (:func:`_refine_ahead`).
     """
     if run.status != "converged" or run.store is None:
         return None
     part = run.partition()
-    if run.geometry.kind != "box":
-        return part
-    lo, hi = run.geometry.map_extent()
     key = run.store["key"]
     err = np.where(np.isfinite(key), key, 0.0)
+    if run.geometry.kind != "box":                 # simplices: split ahead, no merging
+        return _refine_ahead(run, part, err, np.full(len(err), np.nan), start)[0]
+    lo, hi = run.geometry.map_extent()
+    now = float((run.goal() * run.key_weight).min())
     goal = run.goal()
     if previous is not None and np.shape(previous) == np.shape(run.total_value):
         s = run.settings
         guess = 2.0 * run.total_value - np.asarray(previous, float)
         goal = np.maximum(goal, np.maximum(s.abs_tol, s.rel_tol * np.abs(guess)))
     allowance = COARSEN_SHARE * float((goal * run.key_weight).min())
-    return coarsen(part, err, lo, hi, allowance)
+    loosen = allowance / (COARSEN_SHARE * now) if now > 0 else 1.0
+    cap = COARSEN_CAP * float(err.max(initial=0.0)) * loosen
+    trend = _trend(run, start)
+    part, err, trend = _refine_ahead(run, part, err, trend, start)
+    return coarsen(part, err, lo, hi, allowance, cap=cap, trend=trend)
+
+
+def _refine_ahead(run: Run, part: dict, err: np.ndarray, trend: np.ndarray,
+                  start: dict | None) -> tuple[dict, np.ndarray, np.ndarray]:
+    """Split ahead, in the partition handed on, the regions the successor will most likely split.
+
+    A point that started warm and then split ``s`` regions shows how fast the scan grows harder along
+    its path; its successor will probably split about as many, and first those with the largest
+    errors now.  Handing on those regions' children instead saves evaluating each parent once
+    more only to split it.  The :data:`REFINE_AHEAD` share of ``s`` regions with the largest errors
+    are split (ties: lower index first); their children's errors are unknown (NaN: never merged).
+    """
+    first = next((name for name in ("centre", "verts") if name in (start or {})), None)
+    if first is None or run.geometry.kind != ("box" if first == "centre" else "simplex"):
+        return part, err, trend
+    n0 = len(start[first])
+    k = int(REFINE_AHEAD * max(0, run.store.n - n0) / max(1, run.geometry.children_per_split - 1))
+    k = min(k, len(err))
+    if k <= 0:
+        return part, err, trend
+    order = np.argsort(-err, kind="stable")[:k]
+    pick = np.zeros(len(err), bool)
+    pick[order] = True
+    idx = np.nonzero(pick)[0]
+    cols = run.geometry.columns
+    kids = run.geometry.split({name: np.asarray(part[name])[idx] for name in cols})
+    nch = run.geometry.children_per_split
+    out = {name: np.concatenate([np.asarray(part[name])[~pick], kids[name]]) for name in cols}
+    out["depth"] = np.concatenate([part["depth"][~pick], np.tile(part["depth"][idx] + 1, nch)]).astype(np.int16)
+    if "flags" in part:
+        out["flags"] = np.concatenate([part["flags"][~pick], np.tile(part["flags"][idx], nch)]).astype(np.uint8)
+    if "wary" in part:
+        out["wary"] = part["wary"]
+    return (out, np.concatenate([err[~pick], np.full(nch * len(idx), np.nan)]),
+            np.concatenate([trend[~pick], np.full(nch * len(idx), np.nan)]))
 
 
 # --------------------------------------------------------------------------
@@ -511,7 +650,7 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
         return PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions,
                            "stopped", res.seconds, job.warm_from, res.message, _trust(res)), None, True
     res = run.result()
-    seed = _seed(run, job.previous) if job.want_seed else None
+    seed = _seed(run, job.previous, job.start) if job.want_seed else None
     pr = PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions, res.status,
                      res.seconds, job.warm_from, res.message, _trust(res))
     return pr, seed, False
