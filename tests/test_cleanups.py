@@ -230,3 +230,19 @@ def test_resume_of_a_current_python_run_directory_still_works(tmp_path, cli):
     code, out, err = cli("resume", rd, "--allow-python", "--budget", "1e7", "--json")
     assert code == 0, err
     assert abs(json.loads(out)["value"] - (1 - math.exp(-1)) * 2 / 3) < 1e-8
+
+
+# --------------------------------------------------------------------------
+# user pass
+# --------------------------------------------------------------------------
+
+def test_overflowing_variable_map_is_one_line_without_numpy_warnings(tmp_path, cubage):
+    """User pass: a problem whose infinite axis has a huge scale ended with the right one-line message, but numpy's
+    RuntimeWarnings from the map's Jacobian and the engine's product printed four source lines before it."""
+    f = tmp_path / "wide.toml"
+    f.write_text('[domain]\nvariables = ["x", "y"]\nbox = [[0, inf], [0, 1]]\nscale = [1e308, 1]\n'
+                 '[integrand]\nexpr = "exp(-x*y)"\n')
+    r = cubage("run", f)
+    assert r.returncode == 1, r.stderr
+    assert "RuntimeWarning" not in r.stderr and len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert "overflows" in r.stderr

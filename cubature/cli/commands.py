@@ -818,6 +818,11 @@ def _main(argv: list[str], guard, want_json: bool) -> int:
         return _fail(str(exc), EXIT_BAD_INPUT, "bad-input", want_json)
     debug = bool(getattr(args, "debug", False))
     want_json = bool(getattr(args, "json", False))
+    if not debug:
+        # the engine turns non-finite values into one-line messages (or estimates); numpy's floating-point warnings
+        # from its own arithmetic would only print source lines on the terminal (user code keeps its warnings)
+        import warnings
+        warnings.filterwarnings("ignore", category=RuntimeWarning, module=r"cubage\.engine(\.|$)")
     try:
         if args.command is None or args.command == "tui":
             if not _terminal():

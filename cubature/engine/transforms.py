@@ -81,21 +81,24 @@ class AxisMap:
             return t, None
         x = t.copy(order="K")
         jac = np.ones(t.shape[0])
-        for i in self._axes:
-            k = self.kinds[i]
-            ti = t[:, i]
-            L = self.scale[i]
-            if k == _BOTH_INF:
-                ti = np.clip(ti, _T_MIN, _T_MAX)
-                s = 1.0 - ti * ti
-                x[:, i] = L * ti / s
-                jac *= L * (1.0 + ti * ti) / (s * s)
-            else:
-                ti = np.minimum(ti, _T_MAX)
-                s = 1.0 - ti
-                u = L * ti / s
-                x[:, i] = self.user_lower[i] + u if k == _UPPER_INF else self.user_upper[i] - u
-                jac *= L / (s * s)
+        # a huge scale can overflow to inf here: the run reports that as one line naming the point, so numpy's
+        # own warning would only repeat it on the user's terminal
+        with np.errstate(over="ignore", invalid="ignore"):
+            for i in self._axes:
+                k = self.kinds[i]
+                ti = t[:, i]
+                L = self.scale[i]
+                if k == _BOTH_INF:
+                    ti = np.clip(ti, _T_MIN, _T_MAX)
+                    s = 1.0 - ti * ti
+                    x[:, i] = L * ti / s
+                    jac *= L * (1.0 + ti * ti) / (s * s)
+                else:
+                    ti = np.minimum(ti, _T_MAX)
+                    s = 1.0 - ti
+                    u = L * ti / s
+                    x[:, i] = self.user_lower[i] + u if k == _UPPER_INF else self.user_upper[i] - u
+                    jac *= L / (s * s)
         return x, jac
 
     def bounds_to_user(self, lo: np.ndarray, hi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
