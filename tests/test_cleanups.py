@@ -246,3 +246,17 @@ def test_overflowing_variable_map_is_one_line_without_numpy_warnings(tmp_path, c
     assert r.returncode == 1, r.stderr
     assert "RuntimeWarning" not in r.stderr and len(r.stderr.strip().splitlines()) == 1, r.stderr
     assert "overflows" in r.stderr
+
+
+def test_text_ui_takes_problem_names_like_run(tmp_path, monkeypatch):
+    """User pass: ``cubage tui oscillator-phase-6d`` said "no such file or folder" although ``cubage run`` takes
+    the same name; the UI now resolves names as run does, and a misspelt one gets run's suggestion."""
+    from cubage.tui.app import collect_files
+    monkeypatch.chdir(tmp_path)                      # no ./problems here: the bundled examples
+    (found,) = collect_files(["oscillator-phase-6d"])
+    assert found.name == "oscillator-phase-6d.toml" and found.is_file()
+    (tmp_path / "mine.toml").write_text("")
+    assert collect_files(["mine"]) == [Path("mine.toml")]
+    with pytest.raises(FileNotFoundError) as info:
+        collect_files(["oscilator-phase-6d"])
+    assert "did you mean 'oscillator-phase-6d'" in info.value.args[1]

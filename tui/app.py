@@ -11,7 +11,7 @@ from pathlib import Path
 from textual.app import App
 from textual.binding import Binding
 
-from cubage.problem.problem_file import ProblemError, list_problems, problem_dirs
+from cubage.problem.problem_file import ProblemError, find_problem, list_problems, problem_dirs
 from cubage.session.follower import RunFollower
 from cubage.session.run_directory import SOURCE
 from cubage.session.status import EXIT_INTERRUPTED
@@ -104,12 +104,16 @@ class CubageApp(App):
 
 
 def collect_files(paths: list[str] | None) -> list[Path]:
-    """Problem files from files and folders in ``paths`` (default: :func:`problem_dirs`).
+    """Problem files from files, folders and problem names in ``paths`` (default: :func:`problem_dirs`).
+
+    A name that is neither a file nor a folder means what it means to ``cubage run``
+    (:func:`cubage.problem.problem_file.find_problem`: ``NAME.toml`` here, in ./problems or among the bundled
+    examples).
 
     Raises
     ------
     FileNotFoundError
-        Naming the first path that does not exist.
+        Naming the first path that is no file, folder or problem name (``args[1]``: why, with suggestions).
     """
     if not paths:
         return list_problems(problem_dirs())
@@ -121,7 +125,10 @@ def collect_files(paths: list[str] | None) -> list[Path]:
         elif q.is_file():
             out.append(q)
         else:
-            raise FileNotFoundError(p)
+            try:
+                out.append(find_problem(p))
+            except ProblemError as exc:
+                raise FileNotFoundError(p, exc.headline if hasattr(exc, "headline") else str(exc)) from None
     seen, uniq = set(), []
     for f in out:
         k = f.resolve()
@@ -172,7 +179,8 @@ def main(paths: list[str] | None = None, watch: str | None = None, allow_python:
         try:
             files = collect_files(paths)
         except FileNotFoundError as exc:
-            print(f"cubage tui: {exc.args[0]}: no such file or folder", file=sys.stderr)
+            why = exc.args[1] if len(exc.args) > 1 else f"{exc.args[0]}: no such file or folder"
+            print(f"cubage tui: {why}", file=sys.stderr)
             return 2
         if not files:
             where = ", ".join(paths) if paths else ", ".join(str(p) for p in problem_dirs())

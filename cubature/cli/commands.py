@@ -204,7 +204,8 @@ def build_parser(show_names: bool = True) -> argparse.ArgumentParser:
                    help="print one JSON object on stdout: {\"folders\": [...], \"problems\": [...]}")
 
     p = sub.add_parser("tui", help="open the text UI", description="Open the text UI on some problems.")
-    p.add_argument("paths", metavar="PATH", nargs="*", help="problem files or folders")
+    p.add_argument("paths", metavar="PATH", nargs="*", help="problem files, folders, or problem names as for "
+                                                            "cubage run (default: ./problems or the bundled ones)")
     p.add_argument("--allow-python", action="store_true", help="allow python = ... integrands")
 
     p = sub.add_parser("watch", help="follow a run directory",
