@@ -260,3 +260,31 @@ def test_text_ui_takes_problem_names_like_run(tmp_path, monkeypatch):
     with pytest.raises(FileNotFoundError) as info:
         collect_files(["oscilator-phase-6d"])
     assert "did you mean 'oscillator-phase-6d'" in info.value.args[1]
+
+
+def test_scan_on_an_unbounded_domain_records_infinite_trust_bounds(tmp_path):
+    """User pass: ``cubage run orbital-overlap-scan --rel-tol 1e-8 --run-dir DIR`` ended with "internal error:
+    Out of range float values are not JSON compliant": a point's trust report named the bounds of regions on an
+    infinite axis (inf), which the points file refused; the record now follows the one JSON rule ("inf")."""
+    import json
+    import math
+
+    import numpy as np
+
+    import cubage
+    from cubage.session.scan import POINTS_FILE
+    from cubage.session.scan_follower import read_scan_points
+
+    def f(X, a):
+        return np.exp(-(X**2).sum(1)) * np.abs(X[:, 0] - a)
+    res = cubage.scan(f, cubage.Box([-np.inf, -np.inf], [np.inf, np.inf]), {"a": [0.3, 0.5]}, rel_tol=1e-6,
+                      run_dir=tmp_path)
+    lines = (tmp_path / POINTS_FILE).read_text().splitlines()
+    assert len(lines) == 2 and all(json.loads(line) for line in lines)
+    assert '"-inf"' in lines[0] or '"inf"' in lines[0]              # a worst region reaching infinity
+    json.dumps(res.to_json(), allow_nan=False)                     # what run --json prints
+    for p in read_scan_points(tmp_path).values():
+        a = p.constants["a"]
+        # sqrt(pi) (exp(-a^2) + a sqrt(pi) erf(a)): the Gaussian times |x - a|, integrated by parts (by hand)
+        exact = math.sqrt(math.pi) * (math.exp(-a * a) + a * math.sqrt(math.pi) * math.erf(a))
+        assert abs(float(p.value) - exact) <= max(float(p.error), 1e-6 * exact)

@@ -480,7 +480,7 @@ class PointResult:
         return self.status == "converged"
 
     def to_json(self) -> dict:
-        from cubage.session.jsonio import json_number  # the project's one rule for NaN/inf in JSON
+        from cubage.session.jsonio import json_number, json_safe  # the project's one rule for NaN/inf in JSON
 
         def num(v):
             a = np.asarray(v, dtype=float)
@@ -492,7 +492,7 @@ class PointResult:
                "status": self.status, "seconds": round(float(self.seconds), 6), "warm_from": self.warm_from,
                "message": self.message}
         if self.trust is not None:
-            rec["trust"] = self.trust
+            rec["trust"] = json_safe(self.trust)     # bounds of regions on an infinite axis are infinite
         return rec
 
     @classmethod
