@@ -288,3 +288,38 @@ def test_scan_on_an_unbounded_domain_records_infinite_trust_bounds(tmp_path):
         # sqrt(pi) (exp(-a^2) + a sqrt(pi) erf(a)): the Gaussian times |x - a|, integrated by parts (by hand)
         exact = math.sqrt(math.pi) * (math.exp(-a * a) + a * math.sqrt(math.pi) * math.erf(a))
         assert abs(float(p.value) - exact) <= max(float(p.error), 1e-6 * exact)
+
+
+def test_key_help_of_watch_lists_only_keys_that_work(tmp_path, cli):
+    """User pass: in ``cubage watch DIR`` the ``?`` screen listed g (go), e (goal editor) and b (back), which do
+    nothing there; the help now leaves out what the screen turns off, like the footer, and keeps h, w, a, v, q."""
+    import asyncio
+
+    from cubage.session.follower import RunFollower
+    from cubage.tui.app import CubageApp
+    from cubage.tui.key_help import KeyHelp, key_rows
+    from cubage.tui.problem_facts import ProblemFacts
+    from cubage.tui.run_view import RunView
+
+    f = tmp_path / "p.toml"
+    f.write_text('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\nexpr = "x * y"\n')
+    rd = tmp_path / "rd"
+    assert cli("run", f, "--run-dir", rd).returncode == 0
+
+    async def go():
+        app = CubageApp(follow=(RunFollower(rd), ProblemFacts.from_file(rd / "source.toml")))
+        async with app.run_test(size=(80, 24)) as pilot:
+            for _ in range(50):
+                if isinstance(app.screen, RunView):
+                    break
+                await pilot.pause(0.1)
+            view = app.screen
+            keys = {k for k, _ in key_rows(view)}
+            assert {"g", "e", "b"}.isdisjoint(keys), keys
+            assert {"w", "a", "v", "?, F1", "q"} <= keys, keys
+            await pilot.press("question_mark")
+            await pilot.pause(0.3)
+            assert isinstance(app.screen, KeyHelp)
+            await pilot.press("escape")
+            await pilot.press("q")
+    asyncio.run(go())

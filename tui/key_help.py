@@ -28,9 +28,20 @@ def key_label(key: str) -> str:
 def key_rows(screen: Screen) -> list[tuple[str, str]]:
     """(keys, what they do) per action of ``screen``'s bindings, in the order the screen declares them.
 
-    Keys bound to the same action share a row (``?, F1``).
+    Keys bound to the same action share a row (``?, F1``).  An action the screen turns off in its present mode
+    (``check_action`` returns False, as the footer hides it: going on or editing the goal while following
+    another process's run, going back when there is nothing to go back to) is left out, so every key listed
+    works; one that is only greyed for the moment (None) stays.
     """
     helps = getattr(screen, "KEY_HELP", {})
+
+    def offered(action: str) -> bool:
+        check = getattr(screen, "check_action", None)
+        try:
+            return check is None or check(action, ()) is not False
+        except Exception:  # noqa: BLE001 - a screen tearing down: list the key rather than fail the help
+            return True
+
     order: list[str] = []
     keys: dict[str, list[str]] = {}
     text: dict[str, str] = {}
@@ -38,6 +49,8 @@ def key_rows(screen: Screen) -> list[tuple[str, str]]:
         if not isinstance(b, Binding):
             continue
         action = b.action.split("(")[0].removeprefix("app.").removeprefix("screen.")
+        if not offered(action):
+            continue
         if action not in keys:
             order.append(action)
             keys[action] = []
