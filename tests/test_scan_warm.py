@@ -197,3 +197,31 @@ def test_moving_peak_warm_and_cold_agree_and_are_honest():
     for w, k in zip(warm.points, cold.points):
         assert abs(w.value - k.value) <= w.error + k.error
         assert abs(w.value - exact(w.constants["c"])) <= w.error
+
+
+def test_aligned_partitions_are_not_merged_across_break_values(monkeypatch):
+    """issue 14 item 3 with issue 13's breaks: a point that started from sub-boxes between declared break
+    values hands on a partition that never straddles a break, however generous the coarsening (equal
+    neighbours across a break look like dyadic siblings but are not); a scan with breaks meets its goal
+    at every point against the closed form 0.5 (e^(3a (3/4)) - e^(3a/4)) / (3a) / 16 (elementary)."""
+    dom = cubage.Box([0, 0, 0], [1, 0.25, 0.25])
+
+    def f(X, a):
+        return ((X[:, 0] > 0.25) & (X[:, 0] < 0.75)) * np.exp(3 * a * X[:, 0])
+
+    def exact(a):
+        return (math.exp(2.25 * a) - math.exp(0.75 * a)) / (3 * a) / 16
+    brk = [[0.25, 0.75], [], []]
+    monkeypatch.setattr("cubage.session.scan.COARSEN_CAP", math.inf)
+    monkeypatch.setattr("cubage.session.scan.COARSEN_SHARE", 1e300)
+    run = cubage.Run(lambda X: f(X, 1.0), dom, rel_tol=1e-10, breaks=brk)
+    run.run()
+    seed = _seed(run, None, None)
+    lo, hi = seed["centre"][:, 0] - seed["halfw"][:, 0], seed["centre"][:, 0] + seed["halfw"][:, 0]
+    for b in (0.25, 0.75):
+        assert not np.any((lo < b - 1e-12) & (hi > b + 1e-12))
+    monkeypatch.undo()
+    res = cubage.scan(f, dom, {"a": [1.0, 1.2, 1.4, 1.6]}, rel_tol=1e-8, breaks=brk)
+    assert res.converged
+    for p in res.points:
+        assert abs(p.value - exact(p.constants["a"])) <= p.error

@@ -93,6 +93,7 @@ from pathlib import Path
 import numpy as np
 
 from cubage.engine.checkpoint import CheckpointError, write_atomic
+from cubage.engine.geometry import BoxGeometry
 from cubage.engine.run import IntegrandError, Run
 from cubage.problem.scan_table import ScanGrid, grid_from_mapping
 
@@ -397,7 +398,9 @@ def _seed(run: Run, previous: np.ndarray | None = None, start: dict | None = Non
     part = run.partition()
     key = run.store["key"]
     err = np.where(np.isfinite(key), key, 0.0)
-    if run.geometry.kind != "box":                 # simplices: split ahead, no merging
+    if type(run.geometry) is not BoxGeometry:
+        # simplices, and boxes from a feature-aligned start (sub-boxes between break values, graded
+        # axes): split ahead, never merged -- a merge could straddle a break value
         return _refine_ahead(run, part, err, np.full(len(err), np.nan), start)[0]
     lo, hi = run.geometry.map_extent()
     now = float((run.goal() * run.key_weight).min())
