@@ -47,14 +47,16 @@ regions the next point evaluates first:
 The estimate stays the engine's: a warm-started point meets the same goal
 with the same checks as a cold one.  Error estimates are heuristic, not bounds.
 
-Where the warm start's evaluations go (``benchmarks/scan.py``, full scans): a
-cold run evaluates about 2N regions to end with N, a warm one at least the N it
-ends with, so 1/2 is the floor of reuse; on the smooth scan, which grows harder
-along its path, a warm point spent 0.51 of a cold one on its start partition,
-0.04 on refinement and 0.03 on the audit (0.58 in all), and no sibling pair of a
-converged partition could be merged without the merged box exceeding the error
-level the partition was refined to.  Merging pays only where the integrand got
-easier (a feature moving away, a goal loosening after a zero of the value).
+Where the warm start's evaluations go (``benchmarks/scan.py``, full scans, a
+shared 2-core machine; fractions of the cold scan's evaluations): a cold run
+evaluates about 2N regions to end with N, a warm one at least the N it ends
+with, so 1/2 is the floor of reuse.  Smooth scan (growing harder along its
+path): start partitions 0.51, refinement 0.07, audits 0.03 (0.61 in all; no
+sibling pair of a converged partition there could be merged without the merged
+box exceeding the error level the partition was refined to).  Through a zero:
+0.45, 0.17, 0.03 (0.65).  Moving peak: 0.55, 0.11, 0.03 (0.70).  Merging pays
+only where the integrand got easier (a feature moving away, a goal loosening
+after a zero of the value).
 
 What a warm start carries over (``Run.partition()`` -> ``Run(start=...)``):
 the regions' signature flags and the learnt wary-class counters.  Start
