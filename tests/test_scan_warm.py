@@ -225,3 +225,63 @@ def test_aligned_partitions_are_not_merged_across_break_values(monkeypatch):
     assert res.converged
     for p in res.points:
         assert abs(p.value - exact(p.constants["a"])) <= p.error
+
+
+# --------------------------------------------------------------------------
+# feature alignment in scans (issue 13's features at each point's constants)
+# --------------------------------------------------------------------------
+
+_KINK = """
+[domain]
+variables = ["x", "y", "z"]
+box = [[0, 1], [0, 1], [0, 1]]
+[integrand]
+expr = "abs(x - c) * exp(-a * y) * (1 + z)"
+constants = {{ a = 1.0, c = 0.5 }}
+[goal]
+rel_tol = 1e-8
+{method}
+[scan]
+{scan}
+"""
+
+
+def _kink_exact(a: float, c: float) -> float:
+    """int_0^1 |x - c| dx = (c^2 + (1 - c)^2) / 2, int_0^1 e^(-a y) dy = (1 - e^-a) / a, int_0^1 (1 + z) dz
+    = 3/2 (elementary)."""
+    return (c * c + (1 - c) ** 2) / 2 * (1 - math.exp(-a)) / a * 1.5
+
+
+def _scan_file(scan: str, method: str = ""):
+    from cubage.problem.problem_file import parse_problem
+    from cubage.session.prepare import scan_settings
+    from cubage.session.scan import ExprSource, run_scan
+    p = parse_problem(_KINK.format(scan=scan, method=method))
+    source = ExprSource.from_problem(p)
+    return source, run_scan(source, p.domain, p.scan, scan_settings(p))
+
+
+def test_scan_points_align_with_a_kink_that_moves_with_the_constant():
+    """issue 14 with issue 13 (scans used no alignment): a kink |x - c| that moves with the scanned c is
+    detected at each point's own constants and gets a region boundary there, so every point meets its
+    goal against the closed form (elementary) at a fraction of the unaligned cost; the partition moves
+    with it, so each point starts from its own aligned partition (no warm start across a moved feature)."""
+    source, res = _scan_file("c = [0.3137, 0.4211, 0.5477, 0.6903]")
+    assert source.features({"a": 1.0, "c": 0.3137}, cubage.Box([0, 0, 0], [1, 1, 1]))["breaks"][0] == [0.3137]
+    assert res.converged
+    for p in res.points:
+        assert abs(p.value - _kink_exact(1.0, p.constants["c"])) <= p.error
+        assert p.warm_from is None
+    _, off = _scan_file("c = [0.3137, 0.4211, 0.5477, 0.6903]", '[method]\nalign = "off"')
+    assert res.evaluations < off.evaluations / 5
+
+
+def test_scan_warm_starts_within_a_feature_that_stays_put():
+    """issue 14 item 3 with issue 13: scanning a with the kink fixed at c = 0.5 keeps the same aligned
+    partition from point to point, so points after the first start warm; every point against the closed
+    form (elementary)."""
+    _, res = _scan_file("a = [0.5, 1.0, 1.5, 2.0, 2.5]")
+    assert res.converged
+    assert [p.warm_from is not None for p in res.points] == [False, True, True, True, True]
+    for p in res.points:
+        assert abs(p.value - _kink_exact(p.constants["a"], 0.5)) <= p.error

@@ -92,7 +92,7 @@ class ScanThreadSource:
         self.problem = problem
         self.plan = plan if plan is not None else prepare_scan(problem)
         self.settings = self.plan.settings
-        self.source = ExprSource(problem.integrand_spec, problem.fingerprint())
+        self.source = ExprSource.from_problem(problem)
         self.stop = threading.Event()
         self._lock = threading.Lock()
         self._points: dict[int, PointResult] = {}

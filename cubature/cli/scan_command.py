@@ -121,7 +121,7 @@ def _execute(problem, args, *, name: str, settings: dict, rd, warm: bool, chains
         rows.header()
     flag = _StopFlag()
     every = args.checkpoint_every if args.checkpoint_every is not None else 60.0
-    source = ExprSource(problem.integrand_spec, problem.fingerprint())
+    source = ExprSource.from_problem(problem)
     try:
         with StopSignals() as sigs:
             sigs.attach(flag)

@@ -13,10 +13,12 @@ The order rule (documented, deterministic)
    The number of chains depends only on the number of points
    (:func:`default_chains`, one chain per :data:`POINTS_PER_CHAIN` points) or
    on the caller's choice — never on the number of workers.
-3. The first point of each chain starts cold (the whole domain).  Every other
-   point starts from the final partition of the point before it on the path
-   (its nearest finished neighbour on the chain) when that point converged,
-   after a coarsening step (:func:`coarsen`), and cold otherwise.  With
+3. The first point of each chain starts cold (the whole domain, or the
+   partition aligned with its features).  Every other point starts from the
+   final partition of the point before it on the path (its nearest finished
+   neighbour on the chain) when that point converged and had the same
+   features (issue 13: :meth:`ExprSource.features` at each point's own
+   constants), after shaping (:func:`_seed`), and cold otherwise.  With
    ``warm=False`` every point starts cold.
 
 So every point's result depends only on its constants and on the point before
@@ -148,10 +150,48 @@ LIVE_FILE = "scan-live-{chain}.json"
 
 @dataclass(frozen=True)
 class ExprSource:
-    """An expression integrand (``Problem.integrand_spec``) whose constants the scan sets."""
+    """An expression integrand (``Problem.integrand_spec``) whose constants the scan sets.
+
+    ``align`` (``"auto"``, ``"declared"``; None: no feature alignment) and ``feature_table`` (the
+    problem's ``[features]`` table) give each point the features of issue 13 at its own constants
+    (:meth:`features`); :meth:`from_problem` fills them in from a problem file.
+    """
 
     spec: dict
     base_fingerprint: str
+    align: str | None = None
+    feature_table: dict | None = None
+
+    @classmethod
+    def from_problem(cls, problem) -> ExprSource:
+        """The source of a problem file's scan, with the file's ``[features]`` and ``[method] align``."""
+        import tomllib
+        spec = getattr(problem, "spec", None)
+        try:
+            tables = tomllib.loads(spec.text) if spec is not None and spec.text else {}
+        except (tomllib.TOMLDecodeError, AttributeError):
+            tables = {}
+        align = (tables.get("method") or {}).get("align", "auto")
+        table = tables.get("features")
+        src = cls(dict(problem.integrand_spec), problem.fingerprint(),
+                  None if align == "off" else str(align), table if isinstance(table, dict) else None)
+        if src.align is None or not src._may_align():
+            return cls(dict(problem.integrand_spec), problem.fingerprint())
+        blob = json.dumps({"align": src.align, "features": src.feature_table}, sort_keys=True, default=str)
+        return dataclasses.replace(src, base_fingerprint=problem.fingerprint() + ":features:"
+                                   + hashlib.sha256(blob.encode()).hexdigest()[:16])
+
+    def _may_align(self) -> bool:
+        """Whether any point could have features: a [features] table, or switching functions or
+        singular factors in the expression (at any constants)."""
+        if self.feature_table:
+            return True
+        if self.align != "auto":
+            return False
+        from cubage.problem.features import analyse
+        s = self.spec
+        found = analyse(s["source"], list(s["variables"]), s.get("constants") or {})
+        return bool(found.planes or found.singular)
 
     def build(self, constants: dict) -> Callable:
         from cubage.problem.expr import compile_expression
@@ -160,6 +200,27 @@ class ExprSource:
 
     def fingerprint(self, constants: dict) -> str:
         return _point_fingerprint(self.base_fingerprint, constants)
+
+    def features(self, constants: dict, domain) -> dict:
+        """The engine's ``breaks``/``cuts``/``singular`` for the point with these constants: declared
+        ones (the ``[features]`` table, read with the point's constants) and, with ``align="auto"``,
+        the switching functions and singular factors of the expression at the point's constants.
+        Raises :class:`ValueError` when a declared feature does not fit the domain at this point."""
+        if self.align is None:
+            return {}
+        from cubage.engine.partition import normalise
+        from cubage.problem.features import analyse, merge, parse_feature_table, to_engine
+        s = self.spec
+        variables = list(s["variables"])
+        c = {**(s.get("constants") or {}), **constants}
+        declared: dict = {}
+        if self.feature_table:
+            declared, errors = parse_feature_table(dict(self.feature_table), variables, c)
+            if errors:
+                raise ValueError(f"[features] {errors[0][0]}: {errors[0][1]}")
+            normalise(domain, **declared)
+        detected = to_engine(analyse(s["source"], variables, c), domain)[0] if self.align == "auto" else {}
+        return merge(declared, detected)
 
 
 @dataclass(frozen=True)
@@ -609,18 +670,39 @@ def _trust(res) -> dict | None:
 
 def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Callable | None = None,
            evaluator=None):
-    """Integrate one point; returns (PointResult, seed partition or None, stopped flag)."""
+    """Integrate one point; returns (PointResult, seed partition or None, stopped flag).
+
+    A point whose features (issue 13: :meth:`ExprSource.features` at its constants) differ from those
+    its predecessor's partition was aligned with starts cold, from its own aligned partition.
+    """
     f = job.source.build(job.constants)
     fp = job.source.fingerprint(job.constants)
+    features_of = getattr(job.source, "features", None)
+    try:
+        feats = features_of(job.constants, job.domain) if features_of is not None else {}
+    except ValueError as exc:
+        nan = math.nan
+        return PointResult(job.index, job.constants, nan, nan, 0, 0, "failed", 0.0, None,
+                           f"features at this point: {exc}"), None, False
+    fkey = _features_key(feats)
+    if job.start is not None and not np.array_equal(np.asarray(job.start.get("features_key", _features_key({}))),
+                                                    fkey):
+        job = dataclasses.replace(job, start=None, warm_from=None)    # a feature moved: rebuild the partition
+    settings = {**job.settings, **feats}
     run = None
     if job.checkpoint and os.path.exists(job.checkpoint):
         try:
             run = Run.from_checkpoint(job.checkpoint, f, job.domain, evaluator=evaluator, fingerprint=fp,
-                                      **_goal_only(job.settings))
+                                      **_goal_only(settings))
         except CheckpointError:
             run = None                    # another point's or a damaged file: start this point afresh
     if run is None:
-        run = Run(f, job.domain, evaluator=evaluator, fingerprint=fp, start=job.start, **job.settings)
+        try:
+            run = Run(f, job.domain, evaluator=evaluator, fingerprint=fp, start=job.start, **settings)
+        except ValueError as exc:
+            nan = math.nan
+            return PointResult(job.index, job.constants, nan, nan, 0, 0, "failed", 0.0, None,
+                               f"features at this point: {exc}"), None, False
     last_ck = time.monotonic()
     last_poll = 0.0
     last_live = -math.inf
@@ -656,9 +738,17 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
                            "stopped", res.seconds, job.warm_from, res.message, _trust(res)), None, True
     res = run.result()
     seed = _seed(run, job.previous, job.start) if job.want_seed else None
+    if seed is not None:
+        seed["features_key"] = fkey
     pr = PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions, res.status,
                      res.seconds, job.warm_from, res.message, _trust(res))
     return pr, seed, False
+
+
+def _features_key(feats: dict) -> np.ndarray:
+    """A digest (uint8 array, kept in a seed file) of a point's features: equal digests, same alignment."""
+    blob = json.dumps(feats, sort_keys=True, default=float)
+    return np.frombuffer(hashlib.sha256(blob.encode()).digest(), np.uint8).copy()
 
 
 def _write_live(job: _Job, run: Run) -> None:
