@@ -323,3 +323,56 @@ def test_key_help_of_watch_lists_only_keys_that_work(tmp_path, cli):
             await pilot.press("escape")
             await pilot.press("q")
     asyncio.run(go())
+
+
+@pytest.mark.parametrize("text, words", [
+    ('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\nexpr = "x"\n[goal]\nrel_tol = 1e-6\n'
+     '[goal]\n', ("8:", "table [goal] is declared twice")),
+    ('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\nexpr = "x"\n'
+     'constants = { a = 1 }\nconstants.b = 2\n', ("7:", "[integrand.constants] was written inline")),
+])
+def test_toml_structure_errors_name_the_table_in_toml_words(tmp_path, cli, text, words):
+    """User pass: a table declared twice gave "TOML syntax error: Cannot declare ('goal',) twice", a Python
+    tuple in the message; it now names the table as the file writes it, with the line, in one line, exit 2."""
+    f = tmp_path / "p.toml"
+    f.write_text(text)
+    code, out, err = cli("check", f)
+    assert code == 2 and len((out + err).strip().splitlines()) == 1, out + err
+    line, phrase = words
+    assert f"p.toml:{line}" in out + err and phrase in out + err and "('" not in out + err
+
+
+def test_run_view_ready_line_shows_the_key_at_80_columns(tmp_path):
+    """User pass: at 80x24 the run view's ready line was cut before its last words, "press g to go", without a
+    sign that it was cut; the key now comes first and a cut line ends in an ellipsis."""
+    import asyncio
+    import html
+    import re
+
+    from cubage.tui.app import CubageApp
+    from cubage.tui.run_view import RunView
+
+    f = tmp_path / "p.toml"
+    f.write_text('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\nexpr = "x * y"\n'
+                 '[goal]\nbudget = 123_456_789\n')
+
+    async def go():
+        app = CubageApp([f])
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(0.3)
+            await pilot.press("enter")
+            for _ in range(50):
+                if isinstance(app.screen, RunView):
+                    break
+                await pilot.pause(0.1)
+            await pilot.pause(0.3)
+            text = html.unescape(re.sub(r"<[^>]+>", "", re.sub(r"<style.*?</style>", "", app.export_screenshot(),
+                                                                 flags=re.S))).replace("\xa0", " ")
+            assert "ready, press g to go" in text
+            app.screen.say("x" * 200)
+            await pilot.pause(0.2)
+            ticker = app.screen.query_one("#ticker")
+            line = "".join(seg.text for seg in ticker.render_line(0))
+            assert ticker.size.height == 1 and line.rstrip().endswith("x…"), line
+            await pilot.press("q")
+    asyncio.run(go())

@@ -185,7 +185,9 @@ class RunView(Screen):
         """A line in the message pane, and in the ticker above the panels."""
         self.notes.say(text, level)
         t = self.query_one("#ticker", Static)
-        t.update(Text(text))     # user text (paths, messages, expressions) is never markup (issue 10 item 18)
+        # user text (paths, messages, expressions) is never markup (issue 10 item 18); one line, and a cut one
+        # ends in an ellipsis (app.tcss; the whole line is in the notes tab)
+        t.update(Text(" ".join(text.split())))
         t.set_class(level == "warn", "warn")
         t.set_class(level == "error", "error")
 
@@ -229,8 +231,8 @@ class RunView(Screen):
         self._pending = self.run.snapshot()
         self._tick()
         s = self.run.settings
-        self.say(f"ready: rel_tol {s.rel_tol:g}, abs_tol {s.abs_tol:g}, budget {s.budget:,}, "
-                 f"{pr.method_text}; press g to go")
+        self.say(f"ready, press g to go: rel_tol {s.rel_tol:g}, abs_tol {s.abs_tol:g}, budget {s.budget:,}, "
+                 f"{pr.method_text}")
 
     @property
     def evaluator(self):

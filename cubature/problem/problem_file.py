@@ -557,8 +557,32 @@ class _Ctx:
 # parsing
 # --------------------------------------------------------------------------
 
+def _toml_words(msg: str) -> str:
+    """tomllib's messages that show a Python tuple of keys, in a problem file's words.
+
+    ``Cannot declare ('goal',) twice`` -> ``table [goal] is declared twice``; ``Cannot mutate immutable
+    namespace ('a', 'b')`` -> ``[a.b] was written inline ({ ... }) and cannot be extended``.
+    """
+    import ast
+    for head, tail, say in (("Cannot declare (", ") twice", "table [{}] is declared twice"),
+                            ("Cannot mutate immutable namespace (", ")",
+                             "[{}] was written inline ({{ ... }}) and cannot be extended")):
+        if msg.startswith(head):
+            end = msg.find(tail, len(head))
+            if end < 0:
+                continue
+            try:
+                keys = ast.literal_eval("(" + msg[len(head):end] + ")")
+            except (ValueError, SyntaxError, RecursionError, MemoryError):
+                continue
+            if isinstance(keys, tuple) and keys and all(isinstance(k, str) for k in keys):
+                return say.format(".".join(keys)) + msg[end + len(tail):]
+    return msg
+
+
 def _toml_position(msg: str, text: str) -> tuple[str, int | None]:
     """Split tomllib's "... (at line L, column C)" suffix off its message (no regular expression)."""
+    msg = _toml_words(msg)
     k = msg.rfind(" (at line ")
     if k >= 0 and msg.endswith(")"):
         line_s, _, col_s = msg[k + len(" (at line "):-1].partition(", column ")
