@@ -376,3 +376,16 @@ def test_run_view_ready_line_shows_the_key_at_80_columns(tmp_path):
             assert ticker.size.height == 1 and line.rstrip().endswith("x…"), line
             await pilot.press("q")
     asyncio.run(go())
+
+
+def test_plot_without_the_extra_says_so_on_stderr(tmp_path, cli, monkeypatch):
+    """User pass: ``cubage plot DIR`` in an installation without matplotlib printed its one-line reason on stdout
+    (where a script reading the command's output would take it for output); it goes to stderr."""
+    from cubage.cli import pictures
+
+    def missing():
+        raise pictures.PicturesUnavailable(pictures.EXTRA_HINT)
+    monkeypatch.setattr(pictures, "require", missing)
+    code, out, err = cli("plot", tmp_path)
+    assert code != 0 and out == ""
+    assert err.strip() == f"cubage: {pictures.EXTRA_HINT}"

@@ -17,6 +17,7 @@ Agg backend, so they work over SSH with no display.
 from __future__ import annotations
 
 import math
+import sys
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -208,7 +209,7 @@ def plot_command(args) -> int:
     try:
         require()
     except PicturesUnavailable as exc:
-        print(f"cubage: {exc}", flush=True)
+        print(f"cubage: {exc}", file=sys.stderr, flush=True)
         return EXIT_FAILED
     from cubage.session.scan import POINTS_FILE
     from cubage.session.scan_follower import read_scan_points
