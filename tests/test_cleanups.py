@@ -389,3 +389,15 @@ def test_plot_without_the_extra_says_so_on_stderr(tmp_path, cli, monkeypatch):
     code, out, err = cli("plot", tmp_path)
     assert code != 0 and out == ""
     assert err.strip() == f"cubage: {pictures.EXTRA_HINT}"
+
+
+@pytest.mark.parametrize("argv", [("run", "gaussian-overlap", "--workers", "99999999999"),
+                                  ("run", "gaussian-overlap", "--workers", "1025", "--backend", "processes")])
+def test_an_absurd_worker_count_is_refused_before_any_pool(cli, argv):
+    """User pass: ``--workers 99999999999`` was accepted (the command line's count is not capped at the cores),
+    so a problem costly enough for a pool would have tried to start that many processes; counts above
+    MAX_WORKERS are one line, exit 2."""
+    from cubage.session.prepare import MAX_WORKERS, check_workers
+    code, out, err = cli(*argv)
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "--workers" in err and "at most" in err, err
+    assert check_workers(MAX_WORKERS) == MAX_WORKERS and check_workers("auto") == "auto"

@@ -97,8 +97,13 @@ def check_time_limit(x, where: str = "") -> float | None:
     return float(x)
 
 
+#: Most workers a user may ask for: beyond it the number is a slip of the keyboard, and starting that many worker
+#: processes or threads would bring the machine down before the first step.
+MAX_WORKERS = 1024
+
+
 def check_workers(x, where: str = "") -> int | str:
-    """Workers: a whole number >= 1 or ``"auto"``."""
+    """Workers: a whole number from 1 to :data:`MAX_WORKERS`, or ``"auto"``."""
     if x == "auto":
         return "auto"
     if isinstance(x, str):
@@ -108,6 +113,9 @@ def check_workers(x, where: str = "") -> int | str:
             raise _where(where, f'must be a whole number >= 1 or "auto", got {x!r}') from None
     if not isinstance(x, int) or isinstance(x, bool) or x < 1:
         raise _where(where, f'must be a whole number >= 1 or "auto", got {x!r}')
+    if x > MAX_WORKERS:
+        raise _where(where, f"{x:,} workers is more than any machine runs (at most {MAX_WORKERS:,}; \"auto\" "
+                            "uses every core)")
     return x
 
 
