@@ -115,8 +115,9 @@ def test_pictures_without_matplotlib_say_which_extra(tmp_path, capsys, monkeypat
     bench.mkdir()
     (bench / "runs.csv").write_text("method,evaluations,true_error,exact\na,10,1e-3,1\n")
     assert main(["plot", str(bench)]) == 1
-    out = capsys.readouterr().out.strip().splitlines()
-    assert len(out) == 1 and "cubage[plot]" in out[0]
+    cap = capsys.readouterr()
+    err = cap.err.strip().splitlines()                           # a message, so on stderr (tests/test_cleanups.py)
+    assert cap.out == "" and len(err) == 1 and "cubage[plot]" in err[0]
 
 
 # --------------------------------------------------------------------------
