@@ -401,3 +401,20 @@ def test_an_absurd_worker_count_is_refused_before_any_pool(cli, argv):
     code, out, err = cli(*argv)
     assert code == 2 and len(err.strip().splitlines()) == 1 and "--workers" in err and "at most" in err, err
     assert check_workers(MAX_WORKERS) == MAX_WORKERS and check_workers("auto") == "auto"
+
+
+def test_watch_of_a_folder_that_is_not_a_run_directory(tmp_path, cli):
+    """User pass: ``cubage watch DIR --once`` on a folder of problem files said "waiting: no progress line yet" and
+    exited 0; a folder holding other files and no ledger is now one line, exit 2 (an empty one may be a run about
+    to start and is still waited for).  Errors of watch and list no longer say "cubage: cubage watch:"."""
+    (tmp_path / "notes.toml").write_text("")
+    code, out, err = cli("watch", tmp_path, "--once")
+    assert code == 2 and out == "" and err.count("\n") == 1
+    assert "not a run directory" in err and "cubage run FILE --run-dir DIR" in err
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    code, out, err = cli("watch", empty, "--once")
+    assert code == 0 and "waiting" in out
+    for argv in (("watch", tmp_path / "nope"), ("list", tmp_path / "nope")):
+        code, out, err = cli(*argv)
+        assert code == 2 and err.startswith("cubage: ") and "cubage: cubage" not in err, err

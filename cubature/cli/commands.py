@@ -653,7 +653,7 @@ def cmd_list(args) -> int:
     if args.dir:
         d = Path(args.dir)
         if not d.is_dir():
-            raise UsageError(f"cubage list: {d}: no such folder")
+            raise UsageError(f"{d}: no such folder")
         dirs = [d]
     else:
         dirs = problem_dirs()
@@ -690,14 +690,23 @@ def cmd_watch(args) -> int:
     from cubage.cli.terminal_display import PlainTicker
     from cubage.session.follower import RunFollower
     from cubage.session.jsonio import number_from_json
-    from cubage.session.run_directory import LEDGER, OLD_LAYOUT_FILES, RunDir
+    from cubage.session.run_directory import LEDGER, OLD_LAYOUT_FILES, OUR_FILES, RunDir
     from cubage.session.status import EXIT_SHORT as SHORT
     from cubage.session.status import exit_code
     d = Path(args.dir)
     if not d.is_dir():
-        raise UsageError(f"cubage watch: {d}: no such run directory")
+        raise UsageError(f"{d}: no such run directory")
     if not os.path.lexists(d / LEDGER) and any(os.path.lexists(d / n) for n in OLD_LAYOUT_FILES):
         RunDir(d)._refuse_old_layout(None)
+    if not os.path.lexists(d / LEDGER):
+        # an empty folder may be a run about to start (waited for); one holding other files is not a run directory
+        try:
+            others = sorted(n for n in os.listdir(d) if n not in OUR_FILES and not n.startswith("."))
+        except OSError:
+            others = []
+        if others:
+            raise UsageError(f"{d}: not a run directory (no {LEDGER}; it holds {others[0]}"
+                             f"{' and more' if len(others) > 1 else ''}); make one with: cubage run FILE --run-dir DIR")
     plain = args.plain or args.once or not (sys.stdout is not None and sys.stdout.isatty()
                                             and sys.stdin is not None and sys.stdin.isatty())
     if not plain:
