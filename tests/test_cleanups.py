@@ -418,3 +418,34 @@ def test_watch_of_a_folder_that_is_not_a_run_directory(tmp_path, cli):
     for argv in (("watch", tmp_path / "nope"), ("list", tmp_path / "nope")):
         code, out, err = cli(*argv)
         assert code == 2 and err.startswith("cubage: ") and "cubage: cubage" not in err, err
+
+
+def test_scan_view_shows_progress_while_points_are_quick():
+    """User pass: the UI's scan view said "no point running" for the whole of the bundled scan, because each point
+    finished within the view's refresh and cleared its progress; the newest progress now stays until the next
+    point's replaces it (and is cleared when the scan is over)."""
+    import time
+
+    from cubage.problem.problem_file import find_problem, load_problem
+    from cubage.tui.scan_view import ScanState, ScanThreadSource
+
+    src = ScanThreadSource(load_problem(find_problem("orbital-overlap-scan")))
+    st = ScanState()
+    for _ in range(600):
+        src.poll(st)
+        if st.over:
+            break
+        time.sleep(0.05)
+    assert st.over and len(st.points) == 21 and not st.note
+    assert st.live == []                                   # over: nothing is "current"
+    # a point finishing keeps the newest progress shown (it used to blank the panel until the next step)
+    rec = {"index": 3, "constants": {"R": 0.6}, "history": [[100, 1.0, 1e-3]]}
+    src._over, src._live = False, rec
+    src._on_point(st.points[3], 4, 21)
+    src.poll(st)
+    assert st.live == [rec]
+    # S(R) = (pi/(a+b))^(3/2) exp(-a b R^2/(a+b)), a = 1, b = 0.6 (Gaussian product theorem, Boys 1950)
+    import math
+    for p in st.points.values():
+        exact = (math.pi / 1.6) ** 1.5 * math.exp(-0.6 * p.constants["R"] ** 2 / 1.6)
+        assert abs(float(p.value) - exact) <= max(float(p.error), 1e-6 * exact) * 2

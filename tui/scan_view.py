@@ -105,8 +105,7 @@ class ScanThreadSource:
 
     def _on_point(self, pr, done, total) -> None:
         with self._lock:
-            self._points[pr.index] = pr
-            self._live = None
+            self._points[pr.index] = pr     # the newest progress stays shown until the next point's replaces it
 
     def _on_step(self, job, run, now) -> None:
         if now - self._last_live < POLL_SECONDS / 2:
@@ -140,7 +139,7 @@ class ScanThreadSource:
     def poll(self, state: ScanState) -> None:
         with self._lock:
             state.points = dict(self._points)
-            state.live = [self._live] if self._live is not None else []
+            state.live = [self._live] if self._live is not None and not self._over else []
         state.over = self._over
         if self._error or state.over:
             state.note = self._error
