@@ -174,11 +174,13 @@ PROBE_POSITION = 1.0 - 2.0 ** -20
 #: a probe value above this many times the magnitude of the integrand on the region's nodes (and on the first
 #: region's) is a singularity at the vertex, not data (its size says nothing about the region's error)
 PROBE_WILD = 1e4
-#: a probe deviates when |f - cubic extrapolation| > PROBE_TOLERANCE * (|quadratic| + |cubic| + PROBE_SLOPE *
-#: |linear| terms).  PROBE_SLOPE was 0.05: it hid kinks at 2-4 % of a region's width from a face (a C0 draw in
-#: 3-D converged 4x off, seed 7); 0 costs nothing measurable on smooth draws (seed 7: 24.0 M evaluations both)
+#: a probe deviates when |f - cubic extrapolation| > PROBE_TOLERANCE * (PROBE_CURVATURE |quadratic| + |cubic| +
+#: PROBE_SLOPE |linear| terms).  They were 1 and 0.05: that hid kinks at 2-4 % of a region's width from a face
+#: (a C0 draw in 3-D converged 4x off, seed 7).  0 and 0.25 cost +0.4 % / +2.6 % evaluations on smooth draws
+#: (seeds 7 and 8, 3 draws); a curvature term of 0 costs 5x (false alarms on peaks at coarse scales)
 PROBE_TOLERANCE = 1.0
 PROBE_SLOPE = 0.0
+PROBE_CURVATURE = 0.25
 #: splits of the wary class needed before its factor is learnt
 WARY_MIN_SPLITS = 16
 #: the convergence trend is "slow" when the value's change per doubling of evaluations shrinks by less than this
@@ -371,7 +373,8 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
     with np.errstate(invalid="ignore"):
         dev = np.abs(f_probe - pred)
-    allow = (PROBE_TOLERANCE * (np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3 + PROBE_SLOPE * np.abs(c[1]) * t)
+    allow = (PROBE_TOLERANCE * (PROBE_CURVATURE * np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3
+                                + PROBE_SLOPE * np.abs(c[1]) * t)
              + 1e3 * ROUNDING * scale[:, None, :])
     bad = ~np.isfinite(dev)                 # no finite value there (a vertex singularity): not data, no signature
     excess = np.where(bad, 0.0, np.maximum(dev - allow, 0.0))

@@ -65,6 +65,8 @@ AUDIT_COST = 0.05
 AUDIT_MIN = 2
 #: hidden error (extrapolated from the audit's sample) below this fraction of the goal passes the audit
 AUDIT_SMALL = 0.25
+#: failed audits that each double the next sample (at most 2^AUDIT_GROWTH times AUDIT_COST)
+AUDIT_GROWTH = 1
 
 
 @functools.lru_cache(maxsize=1)
@@ -1067,14 +1069,14 @@ class Run:
 
     def _replace(self, idx: np.ndarray, parents: dict, kids: dict, q: np.ndarray, absq: np.ndarray,
                  fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
-                 extra_flag: int) -> tuple[np.ndarray, np.ndarray, int]:
+                 extra_flag: int, nch: int | None = None) -> tuple[np.ndarray, np.ndarray, int]:
         """Write the children of the split parents ``idx`` into the store (the parent's row is reused,
         the other children appended) after the split check; returns (children's keys, appended rows,
         number of surprises: parents whose children disagreed with them beyond their estimate, plus
         children whose vertex probes raised their estimate)."""
         st = self.store
         k = len(idx)
-        nch = self.geometry.children_per_split
+        nch = nch or self.geometry.children_per_split
         m = q.shape[2]
         val, low = q[:, 0, :], q[:, 1, :]
         raw = self._errors(q, absq)
@@ -1161,7 +1163,10 @@ class Run:
         splittable: ``"converged"`` with the audit recorded as impossible).
         """
         st, s = self.store, self.settings
-        per = self._per_split()
+        # 2-D boxes are audited by a split along both axes (4 children): a bisection only measures the error
+        # along its own axis (splitting parallel to a kink, or across a smooth direction, leaves D = 0)
+        both = (self.geometry.kind == "box" and self.geometry.split_policy == "bisect" and self.domain.dim == 2)
+        per = self._per_split() * (2 if both else 1)
         afford = (s.budget - self.evaluations) // per
         if afford <= 0:
             self.message = ("the error estimate met the goal, but no budget was left to audit the partition "
@@ -1180,19 +1185,35 @@ class Run:
         cum = np.cumsum(w[order])
         # each failed audit doubles the next one's sample: a failure says the estimates of this run fall short
         # somewhere, and the next sample must reach further than the one that failed
-        failed = min(int(self.checks.get("audit_failed", 0)), 4)
+        failed = min(int(self.checks.get("audit_failed", 0)), AUDIT_GROWTH)
         share = 1.0 - (1.0 - AUDIT_VALUE_SHARE) / 2 ** failed
         want = int(np.searchsorted(cum, share * cum[-1], side="left")) + 1 if cum[-1] > 0 else 1
         cap = max(AUDIT_MIN, int(AUDIT_COST * 2 ** failed * self.evaluations) // per)
         k = max(1, min(want, cap, int(afford), order.size))
-        idx = np.sort(order[:k])
+        # besides the regions holding most of the value, those with a non-smooth signature holding most error:
+        # their estimates are the least certain (up to half of the sample)
+        flagged = order[(st["flags"][order] & _NON_SMOOTH) != 0]
+        if flagged.size and k >= 2:
+            e = st["error"][flagged]
+            e = e[:, 0] if self.m == 1 else (e * self.key_weight).max(axis=1)
+            worst = flagged[np.argsort(-e, kind="stable")[: k // 2]]
+            rest = order[~np.isin(order, worst)][: k - worst.size]
+            idx = np.sort(np.concatenate([worst, rest]))
+        else:
+            idx = np.sort(order[:k])
         parents = {name: st[name][idx] for name in st.columns}
-        if self.geometry.kind == "box" and self.geometry.split_policy == "bisect":
-            h = parents["halfw"]
-            rule_axis = parents["axis"].astype(np.intp)
-            pref = np.where(np.arange(h.shape[1])[None, :] != rule_axis[:, None], h, 0.0)
-            parents["axis"] = np.argmax(pref, axis=1).astype(np.int8)
-        kids = self.geometry.split(parents)
+        nch = self.geometry.children_per_split
+        if both:
+            first = self.geometry.split({**parents, "axis": np.zeros(k, np.int8)})
+            kids = self.geometry.split({**first, "axis": np.ones(2 * k, np.int8)})   # child j of i: row j k + i
+            nch = 4
+        else:
+            if self.geometry.kind == "box" and self.geometry.split_policy == "bisect":
+                h = parents["halfw"]
+                rule_axis = parents["axis"].astype(np.intp)
+                pref = np.where(np.arange(h.shape[1])[None, :] != rule_axis[:, None], h, 0.0)
+                parents["axis"] = np.argmax(pref, axis=1).astype(np.int8)
+            kids = self.geometry.split(parents)
         before = self.evaluations
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
         # the audit's children get vertex probes where they look resolved, unless their parent's vertices
@@ -1200,10 +1221,10 @@ class Run:
         # the mid-plane): a one-region run's audit then costs one split, not one split and 2^(d+1) probes
         probe = (np.ones(len(q), dtype=bool) if "diagonal" in self.rule.extra
                  else self._looks_resolved(q, absq)
-                 & ~np.tile((parents["flags"] & FLAG_PROBED) != 0, self.geometry.children_per_split))
+                 & ~np.tile((parents["flags"] & FLAG_PROBED) != 0, nch))
         pv = self._probe_values(kids, probe)
         w_sample = float(w[idx].sum())
-        _, _, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED)
+        _, _, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED, nch)
         self.queue.rebuild(st["key"], 1)
         self._exact_totals()
         # the sample's hidden error, extrapolated to the whole partition by value share, must fit in the goal
