@@ -18,16 +18,17 @@ the evaluations, and prints per family / tolerance:
 
 Seeds: the study's draws come from ``numpy.random.default_rng([seed, family,
 d])``.  Seeds 1 and 2 calibrated the first estimator, seed 11 is used by
-tests/test_reliability.py and seed 7 was used while tuning the discrepancy
-control and the audit; the figures in the README and in
-:mod:`cubage.engine.estimate` come from ``--seed 2026``, which was never used
-for tuning.
+tests/test_reliability.py; seeds 7 and 8 were used while tuning the
+discrepancy control, the vertex probes and the audit (and 2026 recorded the
+first version of them, so it has been seen too).  The figures in the README
+and in :mod:`cubage.engine.estimate` come from ``--seed 4099`` (the default),
+which was never used for tuning: use a new seed to check them again.
 
 Usage::
 
     python benchmarks/calibration.py --quick          # a few minutes
     python benchmarks/calibration.py                  # the full study (long)
-    python benchmarks/calibration.py --seed 2026 --draws 10 --json out.json
+    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 4099)
 
 ``--json`` writes every run (for comparing two versions run for run).
 """
@@ -219,7 +220,7 @@ def main(argv=None) -> int:
     p.add_argument("--cases", nargs="*", help="only these published cases (names); none: all")
     p.add_argument("--no-genz", action="store_true")
     p.add_argument("--no-cases", action="store_true")
-    p.add_argument("--seed", type=int, default=2026, help="draw seed (2026: the recorded, never tuned-on seed)")
+    p.add_argument("--seed", type=int, default=4099, help="draw seed (4099: the recorded, never tuned-on seed)")
     p.add_argument("--budget", type=int, help="evaluations per run (default 2e6; --quick 3e5)")
     p.add_argument("--json", help="write every run to this file")
     a = p.parse_args(argv)

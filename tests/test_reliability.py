@@ -271,3 +271,17 @@ def test_one_region_audit_costs_one_split():
     assert res.converged and res.trust["audit"] == "passed"
     assert res.trust["audit_evaluations"] == 2 * 149
     assert abs(res.value - exact) <= res.error
+
+
+@pytest.mark.parametrize("d", [2, 3])
+def test_support_missed_by_every_node_of_the_first_region(d):
+    """Issue 12 item 3: [x0 < 0.02][x1 < 0.03] exp(x0 + ... ) is 0 on every node of the first region, so its
+    rule estimate and the audit's split were 0 and the run 'converged' at 0 after 107 evaluations (Genz's
+    discontinuous family, 3-D, seed 4099).  The vertex probe at the origin sees the support; with no magnitude
+    on the nodes it must count as data, not as a singularity.  Closed form: (e^0.02 - 1)(e^0.03 - 1)(e - 1)^(d-2)
+    (product of 1-D integrals of exp)."""
+    exact = math.expm1(0.02) * math.expm1(0.03) * math.expm1(1.0) ** (d - 2)
+    f = lambda X: (X[:, 0] < 0.02) * (X[:, 1] < 0.03) * np.exp(X.sum(axis=1))
+    res = cubage.integrate(f, cubage.Box([0] * d, [1] * d), rel_tol=1e-4, budget=400_000)
+    assert res.value > 0.5 * exact
+    _honest(res, exact, 1e-4)

@@ -717,7 +717,10 @@ class Run:
         vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
         # a value far above the integrand's magnitude on the region's nodes and on the first region's is a
         # singularity at (just inside) the vertex: not data
-        big = _estimate.PROBE_WILD * np.maximum(np.abs(fp).max(axis=1), np.asarray(self.checks["f_scale"]))
+        # (an integrand that is 0 on every node has no magnitude to compare with: any finite value is data, as
+        # when a jump leaves the nodes outside a small support)
+        scale = np.maximum(np.abs(fp).max(axis=1), np.asarray(self.checks["f_scale"]))
+        big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)
         with np.errstate(invalid="ignore"):
             pv = np.where(np.abs(pv) <= big[:, None, :], pv, np.nan)
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
