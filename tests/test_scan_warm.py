@@ -148,7 +148,7 @@ def test_refine_ahead_splits_the_regions_with_the_largest_errors():
     assert n > n0                                             # the harder point had to split
     key = run.store["key"]
     err = np.where(np.isfinite(key), key, 0.0)
-    part, err2, trend2 = _refine_ahead(run, run.partition(), err, np.full(n, np.nan), start)
+    part, err2, trend2, _ = _refine_ahead(run, run.partition(), err, np.full(n, np.nan), start)
     k = int(REFINE_AHEAD * (n - n0))
     assert k > 0 and len(part["centre"]) == n + k
     assert np.isnan(err2).sum() == 2 * k and np.isnan(trend2).all()
@@ -285,3 +285,36 @@ def test_scan_warm_starts_within_a_feature_that_stays_put():
     assert [p.warm_from is not None for p in res.points] == [False, True, True, True, True]
     for p in res.points:
         assert abs(p.value - _kink_exact(p.constants["a"], 0.5)) <= p.error
+
+
+def test_audit_splits_are_merged_back_before_a_partition_is_handed_on():
+    """issue 14 item 3 (audits must not pile regions up along a chain): the sibling pairs an audit split
+    only to check the partition are merged back in the partition a point hands on, which still tiles
+    the cube; the next point audits its own partition again."""
+    from cubage.engine.run import _NON_SMOOTH, FLAG_AUDITED
+    run = cubage.Run(lambda X: _cloud(X, 6.0), CUBE, rel_tol=1e-8, start=_seed(_finished(3.0), None, None))
+    run.run()
+    assert run.status == "converged" and run.trust()["audit"] == "passed"
+    st = run.store
+    fl = st["flags"]
+    audited = ((fl & FLAG_AUDITED) != 0) & ((fl & _NON_SMOOTH) == 0)
+    boxes = {(tuple(c), tuple(h)) for c, h in zip(st["centre"][audited], st["halfw"][audited])}
+
+    def partners(c, h):          # audited boxes that fill the dyadic box one level up with (c, h)
+        out = []
+        for a in range(3):
+            first = round((c[a] - h[a]) / (2 * h[a])) % 2 == 0
+            other = list(c)
+            other[a] += 2 * h[a] if first else -2 * h[a]
+            if (tuple(other), h) in boxes:
+                out.append(tuple(other))
+        return out
+    pairs = [(c, p[0]) for c, h in boxes if len(p := partners(c, h)) == 1
+             and partners(p[0], h) == [c] and c < p[0]]
+    assert pairs                                  # the audit split some regions into sibling pairs
+    seed = _seed(run, None, None)
+    kept = {tuple(c) for c in seed["centre"]}
+    for a, b in pairs:
+        assert a not in kept and b not in kept
+        assert tuple((np.array(a) + np.array(b)) / 2) in kept
+    _tiles_the_cube(seed)

@@ -98,7 +98,7 @@ import numpy as np
 
 from cubage.engine.checkpoint import CheckpointError, write_atomic
 from cubage.engine.geometry import BoxGeometry
-from cubage.engine.run import IntegrandError, Run
+from cubage.engine.run import _NON_SMOOTH, FLAG_AUDITED, IntegrandError, Run
 from cubage.problem.scan_table import ScanGrid, grid_from_mapping
 
 __all__ = ["scan", "run_scan", "ScanResult", "PointResult", "ExprSource", "CallableSource", "scan_path",
@@ -292,7 +292,7 @@ def _row_keys(*cols: np.ndarray) -> np.ndarray:
 
 def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray, allowance: float, *,
             growth: float | None = None, passes: int = 64, cap: float = math.inf,
-            trend: np.ndarray | None = None) -> dict:
+            trend: np.ndarray | None = None, checked: np.ndarray | None = None) -> dict:
     """Merge pairs of sibling boxes whose errors were tiny, within an error allowance.
 
     Two boxes of the same shape that are neighbours along one axis and fill
@@ -326,6 +326,10 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         Each box's error now over its error at the previous point of the chain (NaN: unknown).  A
         scan growing harder along its path needs every box it has, while a feature moving away
         leaves boxes behind it whose errors fall from point to point.
+    checked : ndarray of bool, shape (n,), optional
+        Boxes an audit split only to check the partition (and that showed nothing): pairs of them are
+        merged back first, at no predicted cost beyond their own errors, so that audits do not pile
+        regions up along a chain.
 
     Returns
     -------
@@ -346,6 +350,7 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         down = np.isfinite(tr) & (tr <= 1.0)
         e = e * np.where(np.isfinite(tr), np.maximum(tr, 0.0), 1.0)
     le, le0 = e.copy(), e0.copy()                 # summed errors of the original boxes inside each box
+    chk = np.zeros(len(e), bool) if checked is None else np.asarray(checked, bool).copy()
     lower, upper = np.asarray(lower, float), np.asarray(upper, float)
     width = upper - lower
     unit = 2.0 ** 40
@@ -377,12 +382,13 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         if lo_i.size == 0:
             break
         both = down[lo_i] & down[hi_j]
-        gp = np.where(both, FALLING[0], growth)
+        undo = chk[lo_i] & chk[hi_j]
+        gp = np.where(undo, 1.0, np.where(both, FALLING[0], growth))
         with np.errstate(invalid="ignore"):
             pred = gp * (le[lo_i] + le[hi_j])
-            cost = np.maximum(pred - e[lo_i] - e[hi_j], 0.0)
+            cost = np.where(undo, 0.0, np.maximum(pred - e[lo_i] - e[hi_j], 0.0))
         o = np.lexsort((ax_a, lo_i, cost))
-        o = o[np.isfinite(pred[o]) & (pred[o] <= np.where(both[o], FALLING[1] * cap, cap))]
+        o = o[np.isfinite(pred[o]) & (undo[o] | (pred[o] <= np.where(both[o], FALLING[1] * cap, cap)))]
         lo_i, hi_j, ax_a, cost, pred, gp = lo_i[o], hi_j[o], ax_a[o], cost[o], pred[o], gp[o]
         used = np.zeros(n, bool)
         take = []
@@ -409,6 +415,7 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         e0 = np.concatenate([e0[keep], gp * (le0[lo_i] + le0[hi_j])])
         le0 = np.concatenate([le0[keep], le0[lo_i] + le0[hi_j]])
         down = np.concatenate([down[keep], down[lo_i] & down[hi_j]])
+        chk = np.concatenate([chk[keep], np.zeros(len(lo_i), bool)])
         dep = np.concatenate([dep[keep], np.maximum(dep[lo_i], dep[hi_j]) - 1])
         if fl is not None:
             fl = np.concatenate([fl[keep], fl[lo_i] | fl[hi_j]])
@@ -472,16 +479,19 @@ def _seed(run: Run, previous: np.ndarray | None = None, start: dict | None = Non
         s = run.settings
         guess = 2.0 * run.total_value - np.asarray(previous, float)
         goal = np.maximum(goal, np.maximum(s.abs_tol, s.rel_tol * np.abs(guess)))
-    allowance = COARSEN_SHARE * float((goal * run.key_weight).min())
-    loosen = allowance / (COARSEN_SHARE * now) if now > 0 else 1.0
+    nxt = float((goal * run.key_weight).min())
+    allowance = COARSEN_SHARE * nxt
+    loosen = nxt / now if now > 0 else 1.0
     cap = COARSEN_CAP * float(err.max(initial=0.0)) * loosen
     trend = _trend(run, start)
-    part, err, trend = _refine_ahead(run, part, err, trend, start)
-    return coarsen(part, err, lo, hi, allowance, cap=cap, trend=trend)
+    fl = run.store["flags"]
+    checked = ((fl & FLAG_AUDITED) != 0) & ((fl & _NON_SMOOTH) == 0)
+    part, err, trend, checked = _refine_ahead(run, part, err, trend, start, checked)
+    return coarsen(part, err, lo, hi, allowance, cap=cap, trend=trend, checked=checked)
 
 
-def _refine_ahead(run: Run, part: dict, err: np.ndarray, trend: np.ndarray,
-                  start: dict | None) -> tuple[dict, np.ndarray, np.ndarray]:
+def _refine_ahead(run: Run, part: dict, err: np.ndarray, trend: np.ndarray, start: dict | None,
+                  checked: np.ndarray | None = None) -> tuple[dict, np.ndarray, np.ndarray, np.ndarray | None]:
     """Split ahead, in the partition handed on, the regions the successor will most likely split.
 
     A point that started warm and then split ``s`` regions shows how fast the scan grows harder along
@@ -492,12 +502,12 @@ def _refine_ahead(run: Run, part: dict, err: np.ndarray, trend: np.ndarray,
     """
     first = next((name for name in ("centre", "verts") if name in (start or {})), None)
     if first is None or run.geometry.kind != ("box" if first == "centre" else "simplex"):
-        return part, err, trend
+        return part, err, trend, checked
     n0 = len(start[first])
     k = int(REFINE_AHEAD * max(0, run.store.n - n0) / max(1, run.geometry.children_per_split - 1))
     k = min(k, len(err))
     if k <= 0:
-        return part, err, trend
+        return part, err, trend, checked
     order = np.argsort(-err, kind="stable")[:k]
     pick = np.zeros(len(err), bool)
     pick[order] = True
@@ -512,7 +522,8 @@ def _refine_ahead(run: Run, part: dict, err: np.ndarray, trend: np.ndarray,
     if "wary" in part:
         out["wary"] = part["wary"]
     return (out, np.concatenate([err[~pick], np.full(nch * len(idx), np.nan)]),
-            np.concatenate([trend[~pick], np.full(nch * len(idx), np.nan)]))
+            np.concatenate([trend[~pick], np.full(nch * len(idx), np.nan)]),
+            None if checked is None else np.concatenate([checked[~pick], np.zeros(nch * len(idx), bool)]))
 
 
 # --------------------------------------------------------------------------
