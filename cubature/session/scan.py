@@ -40,7 +40,9 @@ regions the next point evaluates first:
   now against then: its trend) -- refinement that followed a feature (a peak
   moving with the parameter) would otherwise accumulate along the chain --
   while no merged box is predicted above a quarter of the largest error the
-  neighbour left unsplit (such a box would be split again at once);
+  neighbour left unsplit (such a box would be split again at once); and the
+  sibling pairs an audit split only to check the partition (issue 12), which
+  would otherwise pile up along the chain;
 * split ahead (:func:`_refine_ahead`): half as many regions as the neighbour
   had to split after its own start, those with the largest errors -- a scan
   growing harder along its path would otherwise evaluate each of them once
@@ -53,19 +55,13 @@ Where the warm start's evaluations go (``benchmarks/scan.py``, full scans, a
 shared 2-core machine; fractions of the cold scan's evaluations): a cold run
 evaluates about 2N regions to end with N, a warm one at least the N it ends
 with, so 1/2 is the floor of reuse.  Smooth scan (growing harder along its
-path): start partitions 0.51, refinement 0.07, audits 0.03 (0.61 in all; no
+path): start partitions 0.44, refinement 0.05, audits 0.02 (0.52 in all; no
 sibling pair of a converged partition there could be merged without the merged
-box exceeding the error level the partition was refined to).  Through a zero:
-0.45, 0.17, 0.03 (0.65).  Moving peak: 0.55, 0.11, 0.03 (0.70).  Merging pays
-only where the integrand got easier (a feature moving away, a goal loosening
-after a zero of the value).
-
-What a warm start carries over (``Run.partition()`` -> ``Run(start=...)``):
-the regions' signature flags and the learnt wary-class counters.  Start
-regions that were non-smooth at the neighbour's constants get vertex probes and
-join the wary class (as children of such regions do in a cold run); regions of
-a smooth lineage are not probed again (a cold run does not probe children of
-smooth regions either).  The split check and the audit apply as usual.
+box exceeding the error level the partition was refined to, but the pairs an
+audit split only to check are merged back -- kept, they piled up along the
+chain: 0.61).  Through a zero: 0.45, 0.14, 0.03 (0.61).  Moving peak: 0.56,
+0.08, 0.03 (0.68).  Merging pays only where the integrand got easier (a
+feature moving away, a goal loosening after a zero of the value).
 
 Checkpoints (run directories)
 -----------------------------
@@ -103,7 +99,7 @@ from cubage.problem.scan_table import ScanGrid, grid_from_mapping
 
 __all__ = ["scan", "run_scan", "ScanResult", "PointResult", "ExprSource", "CallableSource", "scan_path",
            "plan_chains", "default_chains", "coarsen", "POINTS_PER_CHAIN", "COARSEN_SHARE", "COARSEN_GROWTH",
-           "COARSEN_CAP", "FALLING", "REFINE_AHEAD", "POINTS_FILE", "CSV_FILE", "SCAN_JSON", "LIVE_FILE"]
+           "COARSEN_CAP", "FALLING", "FALL_BELOW", "REFINE_AHEAD", "POINTS_FILE", "CSV_FILE", "SCAN_JSON", "LIVE_FILE"]
 
 #: One chain per this many points by default (see the order rule).
 POINTS_PER_CHAIN = 50
@@ -115,20 +111,24 @@ COARSEN_SHARE = 3.0
 #: along the merged axis, and a factor compounding per level would keep them.  Measured ratio
 #: parent/children on smooth and peaked 3-D integrands: median 9-13, 95th percentile 100-1000.
 COARSEN_GROWTH = 32.0
-#: Pairs whose errors both fell since the previous point (a feature moving away): growth factor and
-#: multiple of the cap used for them instead.
+#: Pairs whose errors both fell since the previous point to at most FALL_BELOW times what they were (a
+#: feature moving away): growth factor and multiple of the cap used for them instead.
 FALLING = (2.0, 16.0)
+FALL_BELOW = 0.7
 #: A merged box may be estimated at most this multiple of the largest error its run left unsplit
 #: (scaled by how much looser the next point's goal is expected to be).
 COARSEN_CAP = 0.25
 #: Share of the regions a warm point split after its start that its successor gets split ahead.
 REFINE_AHEAD = 0.5
-#: (These five were chosen on benchmarks/scan.py's full scans, warm/cold evaluations smooth; through a
-#: zero; moving peak; and on a moving kink |x - c| e^y, 50 points, where cold runs stop at ~10 regions:
-#: the earlier rule, share and growth alone, (3, 8): 0.74; 0.72; 0.76 -- a cap of 0.25 added: 0.61;
-#: 0.60; 0.77 -- trends, a growth compounding per merged level, 32: 0.58; 0.64; 0.71; kink 1.57 --
-#: the same, growth not compounding (chosen): 0.58; 0.64; 0.70; kink 1.17 -- growth 64: 0.57; 0.65;
-#: 0.71; kink 1.27 -- no coarsening at all: 0.61; 0.73; 1.70.)
+#: (These were chosen on benchmarks/scan.py's full scans, warm/cold evaluations smooth; through a zero;
+#: moving peak; and on a moving kink |x - c| e^y, 50 points, where cold runs stop at ~10 regions: the
+#: earlier rule, share and growth alone, (3, 8): 0.74; 0.72; 0.76 -- a cap of 0.25 added: 0.61; 0.60;
+#: 0.77 -- trends, a growth compounding per merged level, 32: 0.58; 0.64; 0.71; kink 1.57 -- the same,
+#: growth not compounding: 0.58; 0.64; 0.70; kink 1.17 -- growth 64: 0.57; 0.65; 0.71; kink 1.27 -- no
+#: coarsening at all: 0.61; 0.73; 1.70.  After the engine's probe changes and with audit splits merged
+#: back: growth 32: 0.53; 0.64; 0.67; kink 1.33 -- growth 64: 0.52; 0.65; 0.68; kink 1.50 -- FALL_BELOW
+#: 0.7 (chosen): 0.52; 0.61; 0.68 -- FALL_BELOW 0.4: 0.53; 0.60; 0.73 -- REFINE_AHEAD 0, 0.25, 0.5
+#: (chosen), 1 on the smooth scan: 0.54; 0.53; 0.53; 0.55.)
 
 #: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
 LIVE_INTERVAL = 1.0
@@ -347,7 +347,7 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
     down = np.zeros(len(e), bool)                 # errors falling from point to point
     if trend is not None:
         tr = np.asarray(trend, float)
-        down = np.isfinite(tr) & (tr <= 1.0)
+        down = np.isfinite(tr) & (tr <= FALL_BELOW)
         e = e * np.where(np.isfinite(tr), np.maximum(tr, 0.0), 1.0)
     le, le0 = e.copy(), e0.copy()                 # summed errors of the original boxes inside each box
     chk = np.zeros(len(e), bool) if checked is None else np.asarray(checked, bool).copy()
