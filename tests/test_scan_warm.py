@@ -318,3 +318,34 @@ def test_audit_splits_are_merged_back_before_a_partition_is_handed_on():
         assert a not in kept and b not in kept
         assert tuple((np.array(a) + np.array(b)) / 2) in kept
     _tiles_the_cube(seed)
+
+
+def test_aligned_scan_resumed_mid_way_gives_the_same_table(tmp_path):
+    """issue 14 item 5 with issue 13's features: a scan whose points are aligned with a kink (fixed at
+    c = 0.5, so points warm-start from aligned partitions), stopped inside a point and resumed, gives the
+    same table bit for bit as one that ran through; every point within its error of the closed form
+    (elementary)."""
+    import threading
+
+    from cubage.problem.problem_file import parse_problem
+    from cubage.session.prepare import scan_settings
+    from cubage.session.scan import ExprSource, run_scan
+    p = parse_problem(_KINK.format(scan="a = [0.5, 1.0, 1.5, 2.0, 2.5, 3.0]", method=""))
+    src, settings = ExprSource.from_problem(p), scan_settings(p)
+    straight = run_scan(src, p.domain, p.scan, settings)
+    stop = threading.Event()
+    done = []
+
+    def on_step(job, run, now):       # stop inside the third point
+        if len(done) >= 2 and run.step_count >= 3:
+            stop.set()
+    part = run_scan(src, p.domain, p.scan, settings, run_dir=tmp_path, on_step=on_step,
+                    on_point=lambda pt, k, n: done.append(pt), stop_event=stop, checkpoint_every=0)
+    assert part.stopped and 0 < len(part.points) < 6
+    resumed = run_scan(src, p.domain, p.scan, settings, run_dir=tmp_path)
+    assert resumed.converged
+    key = lambda pts: [(q.index, float(q.value), float(q.error), q.evaluations, q.status, q.warm_from)
+                       for q in pts]
+    assert key(resumed.points) == key(straight.points)
+    for q in straight.points:
+        assert abs(q.value - _kink_exact(q.constants["a"], 0.5)) <= q.error
