@@ -449,3 +449,13 @@ def test_scan_view_shows_progress_while_points_are_quick():
     for p in st.points.values():
         exact = (math.pi / 1.6) ** 1.5 * math.exp(-0.6 * p.constants["R"] ** 2 / 1.6)
         assert abs(float(p.value) - exact) <= max(float(p.error), 1e-6 * exact) * 2
+
+
+def test_a_file_that_is_not_utf8_names_the_line(tmp_path, cli):
+    """User pass: a problem file saved in Latin-1 gave "not UTF-8 text (byte 57)" without a line; the message now
+    names the line of the first bad byte, like every other problem-file error (one line, exit 2)."""
+    f = tmp_path / "latin1.toml"
+    f.write_bytes(b'title = "ok"\n[domain]\nvariables = ["x", "y"]\nnotes = "caf\xe9"\n')
+    code, out, err = cli("check", f)
+    assert code == 2 and len((out + err).strip().splitlines()) == 1
+    assert f"{f}:4: not UTF-8 text" in out + err

@@ -1243,7 +1243,8 @@ def load_problem_spec(path) -> ProblemSpec:
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
-        raise ProblemError(f"not UTF-8 text (byte {exc.start})", path=str(p)) from None
+        line = raw.count(b"\n", 0, exc.start) + 1
+        raise ProblemError(f"not UTF-8 text (byte {exc.start}, on this line)", path=str(p), line=line) from None
     return read_problem_spec(text, path=p)
 
 
