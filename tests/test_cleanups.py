@@ -459,3 +459,14 @@ def test_a_file_that_is_not_utf8_names_the_line(tmp_path, cli):
     code, out, err = cli("check", f)
     assert code == 2 and len((out + err).strip().splitlines()) == 1
     assert f"{f}:4: not UTF-8 text" in out + err
+
+
+def test_scan_description_never_shows_an_unordered_list_as_a_range():
+    """User pass: ``a = [2.0, 1.5, 0.5, 3.0]`` was described as "4 values 2 .. 3", a range that leaves out 0.5;
+    an unordered list now shows its values, a monotone axis its first and last."""
+    from cubage.problem.scan_table import parse_scan_table
+    assert parse_scan_table({"a": [2.0, 1.5, 0.5, 3.0]}, {"a": 1.0}).describe() == \
+        "a: 4 values 2, 1.5, 0.5, ... (4 points)"
+    assert parse_scan_table({"a": {"lin": [0, 1], "count": 11}}, {"a": 1.0}).describe() == \
+        "a: 11 values 0 .. 1 (11 points)"
+    assert parse_scan_table({"a": [3.0, 2.0, 1.0]}, {"a": 1.0}).describe() == "a: 3 values 3 .. 1 (3 points)"

@@ -85,11 +85,22 @@ class ScanGrid:
         return cls(tuple(obj["names"]), tuple(np.array(a, dtype=np.float64) for a in obj["axes"]))
 
     def describe(self) -> str:
-        """One line: ``a: 11 values 0.5 .. 3; k: 9 values 0.01 .. 100 (99 points)``."""
+        """One line: ``a: 11 values 0.5 .. 3; k: 9 values 0.01 .. 100 (99 points)``.
+
+        ``first .. last`` for a monotone axis (the order the values are scanned in); an unordered list shows its
+        first values (``R: 4 values 2, 1.5, 0.5, ...``) so that it never reads as a range it is not.
+        """
         parts = []
         for n, a in zip(self.names, self.axes):
-            parts.append(f"{n}: {len(a)} value{'s' if len(a) != 1 else ''} "
-                         + (f"{a[0]:g} .. {a[-1]:g}" if len(a) > 1 else f"{a[0]:g}"))
+            d = np.diff(np.asarray(a, dtype=float))
+            monotone = bool((d > 0).all() or (d < 0).all())
+            if len(a) == 1:
+                shown = f"{a[0]:g}"
+            elif monotone or len(a) <= 3:
+                shown = f"{a[0]:g} .. {a[-1]:g}" if monotone else ", ".join(f"{x:g}" for x in a)
+            else:
+                shown = ", ".join(f"{x:g}" for x in a[:3]) + ", ..."
+            parts.append(f"{n}: {len(a)} value{'s' if len(a) != 1 else ''} {shown}")
         return "; ".join(parts) + f" ({self.size:,} point{'s' if self.size != 1 else ''})"
 
 
