@@ -470,3 +470,17 @@ def test_scan_description_never_shows_an_unordered_list_as_a_range():
     assert parse_scan_table({"a": {"lin": [0, 1], "count": 11}}, {"a": 1.0}).describe() == \
         "a: 11 values 0 .. 1 (11 points)"
     assert parse_scan_table({"a": [3.0, 2.0, 1.0]}, {"a": 1.0}).describe() == "a: 3 values 3 .. 1 (3 points)"
+
+
+def test_plain_lines_word_a_goal_beyond_the_budget_and_a_final_status():
+    """User pass: log lines of a run whose goal lay far beyond its budget read "eta 5659.0 days (beyond the budget)",
+    and the last line of a run that had ended still gave one ("eta 10370.4 days ... [budget-spent]"); they now say
+    how many evaluations the goal needs, and "-" once the run has ended (the UI's words)."""
+    import math
+
+    from cubage.session.forecast import Forecast, eta_text
+    assert eta_text(Forecast(2.1e9, 5e8, True), "running") == "beyond the budget (~2.1e+09 evaluations)"
+    assert eta_text(Forecast(2.1e9, 5e8, True), "budget-spent") == "-"
+    assert eta_text(Forecast(math.inf, math.inf, True), "running") == "out of reach"
+    assert eta_text(Forecast(1e6, 31.0, False), "running") == "31.0 s"
+    assert eta_text(Forecast(), "running") == "-"

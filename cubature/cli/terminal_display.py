@@ -30,7 +30,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from cubage.session.forecast import duration_text as fmt_duration
-from cubage.session.forecast import forecast
+from cubage.session.forecast import eta_text, forecast
 from cubage.session.status import meaning
 
 __all__ = ["CAUTION", "PlainTicker", "LivePanel", "summary_lines", "fmt_duration", "fmt_count", "fmt_rate",
@@ -107,9 +107,8 @@ class PlainTicker:
             parts.append(part(lambda i=i, tag=tag: f"{tag}={snap.value[i]:.9e} ~{fmt_err(snap.error[i])}"))
         parts.append(part(lambda: "goal " + ",".join(fmt_err(x) for x in np.atleast_1d(snap.goal))))
         parts.append(part(lambda: f"{snap.rate:.1e}/s" if snap.rate > 0 else "-/s"))
-        fc = part(lambda: forecast(snap.history, snap.goal, snap.rate, budget=snap.budget))
-        eta = "-" if fc == "-" else fmt_duration(fc.seconds) + (" (beyond the budget)" if fc.beyond_budget else "")
-        parts.append("eta " + eta)
+        parts.append("eta " + part(lambda: eta_text(forecast(snap.history, snap.goal, snap.rate, budget=snap.budget),
+                                                    getattr(snap, "status", None))))
         ref = reference_array(self.reference, snap.components)
         if ref is not None:
             parts.append(part(lambda: "true-err " + ",".join(fmt_err(abs(a - b)) for a, b in zip(snap.value, ref))))
@@ -209,8 +208,8 @@ class LivePanel:
         t.add_row("evaluations", f"{fmt_count(snap.evaluations)}{budget}   at {fmt_rate(snap.rate)}")
         t.add_row("regions", fmt_count(snap.regions))
         try:
-            fc = forecast(snap.history, snap.goal, snap.rate, budget=snap.budget)
-            eta = fmt_duration(fc.seconds) + ("  (beyond the budget)" if fc.beyond_budget else "")
+            eta = eta_text(forecast(snap.history, snap.goal, snap.rate, budget=snap.budget),
+                           getattr(snap, "status", None))
         except Exception:  # noqa: BLE001 - a forecast must never end a run
             eta = "-"
         t.add_row("elapsed", f"{fmt_duration(snap.elapsed)}   to goal ≈ {eta}")

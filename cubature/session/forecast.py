@@ -132,6 +132,20 @@ def time_to_goal(history, goal, rate: float, *, window: int = WINDOW, min_points
     return forecast(history, goal, rate, window=window, min_points=min_points).seconds
 
 
+def eta_text(fc: Forecast, status: str | None = None) -> str:
+    """The time to the goal in words, for lines of text: ``31.0 s``; ``beyond the budget (~2.1e9 evaluations)``
+    (a goal past the budget is a matter of evaluations, not of days at the current rate); ``out of reach``; ``-``
+    when unknown or when ``status`` is final (the run will not go on by itself)."""
+    from cubage.session.status import is_final
+    if status is not None and is_final(status):
+        return "-"
+    if fc.evaluations is not None and not math.isfinite(fc.evaluations):
+        return "out of reach"
+    if fc.beyond_budget:
+        return f"beyond the budget (~{fc.evaluations:.1e} evaluations)"
+    return duration_text(fc.seconds)
+
+
 def duration_text(seconds: float | None) -> str:
     """The one duration format of cubage: ``850 ms``, ``12.3 s``, ``4 min 05 s``, ``2 h 10 min``, ``3.5 days``.
 
