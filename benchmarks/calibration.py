@@ -20,15 +20,18 @@ Seeds: the study's draws come from ``numpy.random.default_rng([seed, family,
 d])``.  Seeds 1 and 2 calibrated the first estimator, seed 11 is used by
 tests/test_reliability.py; seeds 7 and 8 were used while tuning the
 discrepancy control, the vertex probes and the audit (and 2026 recorded the
-first version of them, so it has been seen too).  The figures in the README
-and in :mod:`cubage.engine.estimate` come from ``--seed 4099`` (the default),
-which was never used for tuning: use a new seed to check them again.
+first version of them, so it has been seen too).  Seed 4099 was drawn fresh
+for the current version and showed one defect (a run converging at 0 when
+every node of the first region missed a small support), fixed before the
+record, so it has been seen too.  The figures in the README and in
+:mod:`cubage.engine.estimate` come from ``--seed 5227`` (the default), which
+was never used for tuning: use a new seed to check them again.
 
 Usage::
 
     python benchmarks/calibration.py --quick          # a few minutes
     python benchmarks/calibration.py                  # the full study (long)
-    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 4099)
+    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 5227)
 
 ``--json`` writes every run (for comparing two versions run for run).
 """
@@ -220,7 +223,7 @@ def main(argv=None) -> int:
     p.add_argument("--cases", nargs="*", help="only these published cases (names); none: all")
     p.add_argument("--no-genz", action="store_true")
     p.add_argument("--no-cases", action="store_true")
-    p.add_argument("--seed", type=int, default=4099, help="draw seed (4099: the recorded, never tuned-on seed)")
+    p.add_argument("--seed", type=int, default=5227, help="draw seed (5227: the recorded, never tuned-on seed)")
     p.add_argument("--budget", type=int, help="evaluations per run (default 2e6; --quick 3e5)")
     p.add_argument("--json", help="write every run to this file")
     a = p.parse_args(argv)
