@@ -484,3 +484,42 @@ def test_plain_lines_word_a_goal_beyond_the_budget_and_a_final_status():
     assert eta_text(Forecast(math.inf, math.inf, True), "running") == "out of reach"
     assert eta_text(Forecast(1e6, 31.0, False), "running") == "31.0 s"
     assert eta_text(Forecast(), "running") == "-"
+
+
+def test_scan_view_of_a_stopped_scan_says_stopped_and_offers_no_halt(tmp_path, cli):
+    """User pass: after ``h`` in ``cubage watch`` on a scan, the scan stopped but the view kept saying "halting",
+    offered h again, and its status line was cut mid-sentence; it now says "stopped" with the command that
+    continues it, h is off, and a cut line ends in an ellipsis."""
+    import asyncio
+
+    from textual.app import App
+
+    from cubage.tui.scan_view import follow_view
+
+    f = tmp_path / "s.toml"
+    f.write_text('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\nexpr = "a * x * y"\n'
+                 'constants = { a = 1.0 }\n[scan]\na = [1.0, 2.0, 3.0]\n')
+    rd = tmp_path / "a-rather-long-folder-name-for-the-scan-run-directory"
+    assert cli("run", f, "--run-dir", rd).returncode == 0
+    (rd / "verdict.json").unlink()                      # as a halted (or killed) scan leaves it: no verdict
+    view = follow_view(rd)
+
+    class Host(App):
+        def on_mount(self):
+            self.push_screen(view)
+
+    async def go():
+        app = Host()
+        async with app.run_test(size=(80, 24)) as pilot:
+            await pilot.pause(1.0)
+            assert view.state.gone and not view.state.over
+            line = view._status_line()
+            assert "stopped" in line and "halting" not in line and f"cubage resume {rd}" in line
+            assert view.check_action("halt", ()) is False
+            status = view.query_one("#scan-status")
+            shown = "".join(seg.text for seg in status.render_line(0)).rstrip()
+            assert shown.endswith("…"), shown
+            # a (x y) over the unit square is a/4 (by hand)
+            assert sorted(round(float(p.value), 12) for p in view.state.points.values()) == [0.25, 0.5, 0.75]
+            await pilot.press("q")
+    asyncio.run(go())

@@ -51,6 +51,8 @@ class ScanState:
         self.live: list[dict] = []
         self.over = False
         self.note = ""
+        #: The scan's process is gone without a verdict (stopped, halted or killed): nothing more will come.
+        self.gone = False
 
 
 class ScanDirSource:
@@ -64,9 +66,9 @@ class ScanDirSource:
     def poll(self, state: ScanState) -> None:
         state.points = dict(self.follower.poll())
         state.over = self.follower.verdict is not None
-        state.live = [] if state.over else self.follower.live()
-        state.note = "" if state.over or self.runner_alive() is not False else \
-            f"the scan's process is gone; continue it with: cubage resume {self.path}"
+        state.gone = not state.over and self.runner_alive() is False
+        state.live = [] if state.over or state.gone else self.follower.live()
+        state.note = f"continue with: cubage resume {self.path}" if state.gone else ""
 
     def runner_alive(self) -> bool | None:
         return self.follower.runner_alive()
@@ -335,7 +337,8 @@ class ScanView(Screen):
     ScanView #scan-top { height: 1fr; min-height: 12; }
     ScanView #scan-curve { width: 3fr; height: 1fr; }
     ScanView #scan-point { width: 2fr; height: 1fr; }
-    ScanView #scan-status { height: 1; padding: 0 1; color: #8fa3bf; background: #1f2630; }
+    ScanView #scan-status { height: 1; padding: 0 1; color: #8fa3bf; background: #1f2630;
+                            text-wrap: nowrap; text-overflow: ellipsis; }
     ScanView #scan-table { height: 1fr; }
     """
 
@@ -385,7 +388,7 @@ class ScanView(Screen):
                 self.query_one("#scan-curve", ScanCurve).show(st.points)
                 self._add_rows()
             self.query_one("#scan-point", PointConvergence).show(st.live)
-            self.query_one("#scan-status", Static).update(self._status_line())
+            self.query_one("#scan-status", Static).update(Text(self._status_line()))    # paths are not markup
         except Exception:  # noqa: BLE001 - the screen may be tearing down
             return
 
@@ -407,13 +410,13 @@ class ScanView(Screen):
         short = sum(p.status != "converged" for p in st.points.values())
         evals = sum(p.evaluations for p in st.points.values())
         self.refresh_bindings()
-        word = "done" if st.over else ("halting" if self._halted else "running")
+        word = "done" if st.over else ("stopped" if st.gone else ("halting" if self._halted else "running"))
         text = f"{bar} {n}/{total} points · {evals:,} evaluations · {word}"
         if short:
             text += f" · {short} short of the goal"
         if st.note:
             text += f" · {st.note}"
-        elif self._halted:
+        elif self._halted and not st.gone:
             text += f" · {self._halted}"
         return text
 
@@ -421,7 +424,7 @@ class ScanView(Screen):
         if action == "back":
             return self.can_go_back
         if action == "halt":
-            return not self.state.over
+            return not (self.state.over or self.state.gone)
         return True
 
     def action_keys(self) -> None:
