@@ -819,15 +819,20 @@ class Run:
             cols["tol"] = ((), np.float64)
         return cols
 
-    def _carried(self, n: int) -> np.ndarray | None:
-        """Warm start (issue 14 item 3): which of the ``n`` start regions carried a non-smooth signature
-        (or were in the wary class) in the run they come from; None when the start carries no flags.
+    def _carried(self, g: dict, n: int) -> tuple[np.ndarray, np.ndarray] | None:
+        """Warm start (issue 14 item 3): what the ``n`` start regions ``g`` carry from the run they come
+        from (None when the start carries no flags): which had a non-smooth signature there, and which
+        had one, were children of one (``FLAG_WARY``) or touch such a region.
 
-        A warm start carries what its predecessor measured at nearby constants: such regions are
-        probed and join the wary class (as a child of a non-smooth region does), and the class's
-        learnt factor (the predecessor's counters) applies to their children from the first split.
-        Regions whose lineage was smooth are not probed again (a cold run does not probe the
-        children of smooth regions either); the split check and the audit still apply to them.
+        A warm start carries what its predecessor measured at nearby constants: the regions with a
+        signature join the wary class (as a child of a non-smooth region does), and the class's learnt
+        factor (the predecessor's counters) applies to their children from the first split.  A feature
+        that moves with the scanned constant moves into the regions next to where it was, so those
+        regions and their neighbours (boxes sharing a face, edge or corner) are probed: on a kink
+        moving along x, probing only the regions with a signature doubled the silent wrong answers,
+        and probing these ones left as few as probing every region.  Regions far from any signature
+        are not probed again (a cold run does not probe the children of smooth regions either); the
+        split check and the audit still apply to them.
         """
         part = self._start_partition
         if part is None or "flags" not in part:
@@ -835,15 +840,26 @@ class Run:
         fl = np.asarray(part["flags"], np.uint8)
         if fl.shape != (n,):
             return None
-        return (fl & _NON_SMOOTH) != 0
+        carried = (fl & _NON_SMOOTH) != 0
+        src = np.nonzero((fl & (_NON_SMOOTH | FLAG_WARY)) != 0)[0]
+        near = np.zeros(n, dtype=bool)
+        if src.size:
+            lo, hi = self.geometry.engine_bounds(g)
+            slo, shi = lo[src][None], hi[src][None]
+            step = max(1, 4_000_000 // max(1, src.size * lo.shape[1]))
+            for i in range(0, n, step):               # closed boxes that meet: neighbours and the regions
+                a, b = lo[i:i + step, None, :], hi[i:i + step, None, :]
+                near[i:i + step] = ((a <= shi) & (b >= slo)).all(axis=2).any(axis=1)
+        return carried, near
 
     def _start(self) -> None:
         g, q, absq, fr, depth = self._evaluate_start()
         probe = (np.ones(len(q), dtype=bool) if len(q) == 1 or "diagonal" in self.rule.extra
                  else self._looks_resolved(q, absq))
-        carried = self._carried(len(q))
+        carried = self._carried(g, len(q))
         if carried is not None:
-            probe &= carried
+            carried, near = carried
+            probe &= near
             wary = np.asarray(self._start_partition.get("wary", ()), np.float64)
             if wary.shape == (3,) and np.all(np.isfinite(wary)) and np.all(wary >= 0):
                 self.checks["wary_splits"] = int(wary[0])
