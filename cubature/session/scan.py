@@ -55,13 +55,25 @@ Where the warm start's evaluations go (``benchmarks/scan.py``, full scans, a
 shared 2-core machine; fractions of the cold scan's evaluations): a cold run
 evaluates about 2N regions to end with N, a warm one at least the N it ends
 with, so 1/2 is the floor of reuse.  Smooth scan (growing harder along its
-path): start partitions 0.44, refinement 0.05, audits 0.02 (0.52 in all; no
+path): start partitions 0.46, refinement 0.05, audits 0.02 (0.54 in all; no
 sibling pair of a converged partition there could be merged without the merged
 box exceeding the error level the partition was refined to, but the pairs an
 audit split only to check are merged back -- kept, they piled up along the
-chain: 0.61).  Through a zero: 0.45, 0.14, 0.03 (0.61).  Moving peak: 0.56,
-0.08, 0.03 (0.68).  Merging pays only where the integrand got easier (a
-feature moving away, a goal loosening after a zero of the value).
+chain: 0.61).  Through a zero: 0.45, 0.14, 0.03 (0.62).  Moving peak: 0.62,
+0.08, 0.03 (0.74).  Merging pays only where the integrand got easier (a
+feature moving away, a goal loosening after a zero of the value).  The start
+partitions include the vertex probes of the regions next to the neighbour's
+signatures (``Run._carried``; without them 0.52 / 0.61 / 0.68, but a moving
+kink was missed).
+
+What a warm start carries over (``Run.partition()`` -> ``Run(start=...)``):
+the regions' signature flags and the learnt wary-class counters.  Start
+regions that were non-smooth at the neighbour's constants join the wary class
+(as children of such regions do in a cold run); they, their wary children and
+the regions touching them get vertex probes (a moving feature moves into
+them); regions far from any signature are not probed again (a cold run does
+not probe children of smooth regions either).  The split check and the audit
+apply as usual.
 
 Checkpoints (run directories)
 -----------------------------
@@ -128,7 +140,8 @@ REFINE_AHEAD = 0.5
 #: coarsening at all: 0.61; 0.73; 1.70.  After the engine's probe changes and with audit splits merged
 #: back: growth 32: 0.53; 0.64; 0.67; kink 1.33 -- growth 64: 0.52; 0.65; 0.68; kink 1.50 -- FALL_BELOW
 #: 0.7 (chosen): 0.52; 0.61; 0.68 -- FALL_BELOW 0.4: 0.53; 0.60; 0.73 -- REFINE_AHEAD 0, 0.25, 0.5
-#: (chosen), 1 on the smooth scan: 0.54; 0.53; 0.53; 0.55.)
+#: (chosen), 1 on the smooth scan: 0.54; 0.53; 0.53; 0.55.  With the warm start's probes of the
+#: regions next to a signature (for honesty, Run._carried): 0.54; 0.62; 0.74.)
 
 #: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
 LIVE_INTERVAL = 1.0
