@@ -92,9 +92,11 @@ measurements that subdivision produces anyway, and corrects it:
    ``PROBE_GATE`` times ``|Q|``) whose parent showed a non-smooth signature
    or is *watched* (a descendant of such a region not yet cleared by its own
    probes); audit children whose parent was not probed.  Non-finite values
-   (a corner singularity) and values above :data:`PROBE_WILD` times the
-   integrand's magnitude on the nodes (a singularity just inside the
-   vertex) are no data and no signature; where every node is 0, any finite
+   (a corner singularity) are no data and no signature; values above
+   :data:`PROBE_WILD` times the integrand's magnitude on the nodes (a
+   singularity just inside the vertex, or a thin layer along a face that no
+   node reaches) are clipped to that bound, so they raise the estimate by a
+   bounded amount and are never dropped; where every node is 0, any finite
    value is data.  Vertices at the end of an infinite axis are not
    evaluated.
 4. **Convergence trend** (:func:`trend_floor`): when the run's value
@@ -203,7 +205,8 @@ CALIBRATION_LIMIT = 1e3
 #: jump exactly on a face, as on a declared break or at x < 0.5, is not mistaken for one inside)
 PROBE_POSITION = 1.0 - 2.0 ** -20
 #: a probe value above this many times the magnitude of the integrand on the region's nodes (and on the first
-#: region's) is a singularity at the vertex, not data (its size says nothing about the region's error)
+#: region's) is clipped to it: a singularity at the vertex says nothing about the region's error beyond that, but
+#: dropping such values hid thin layers along faces (exp(-xy) on [0, 1e6] x [0, 1] converged 34 % off)
 PROBE_WILD = 1e4
 #: a probe deviates when |f - cubic extrapolation| > PROBE_TOLERANCE * (PROBE_CURVATURE |quadratic| + |cubic| +
 #: PROBE_SLOPE |linear| terms).  They were 1 and 0.05: that hid kinks at 2-4 % of a region's width from a face

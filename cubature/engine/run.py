@@ -715,14 +715,16 @@ class Run:
             return floor, deviates
         fp = fr[probe]
         vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
-        # a value far above the integrand's magnitude on the region's nodes and on the first region's is a
-        # singularity at (just inside) the vertex: not data
+        # a value far above the integrand's magnitude on the region's nodes and on the first region's is clipped
+        # to PROBE_WILD times that magnitude: a singularity just inside the vertex then costs a bounded floor
+        # instead of an unbounded one, and a thin layer along a face that no node reaches (a value of 1 where
+        # every node reads 1e-14) still raises the region's estimate
         # (an integrand that is 0 on every node has no magnitude to compare with: any finite value is data, as
         # when a jump leaves the nodes outside a small support)
         scale = np.maximum(np.abs(fp).max(axis=1), np.asarray(self.checks["f_scale"]))
         big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)
         with np.errstate(invalid="ignore"):
-            pv = np.where(np.abs(pv) <= big[:, None, :], pv, np.nan)
+            pv = np.clip(pv, -big[:, None, :], big[:, None, :])
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
             diag = self.rule.extra["diagonal"]
             fl, dv = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
