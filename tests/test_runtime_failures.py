@@ -343,3 +343,28 @@ def test_every_worker_pool_writes_nothing_to_cubages_pipes():
     ex = _executor(2)
     outs += [ex.submit(_output_targets).result(timeout=60) for _ in range(4)]
     assert outs and all(o == (os.devnull, os.devnull) for o in outs)
+
+
+def test_nan_message_names_both_ways_to_declare_a_singular_point():
+    """Review of issue 12's probes (user pass): the message for a NaN at a node told command-line users to write
+    a Python keyword; it names the problem file's [features] table too."""
+    import numpy as np
+
+    import cubage
+    f = lambda X: np.where(np.all(np.abs(X - 0.5) < 1e-12, axis=1), np.nan, 1.0)     # NaN at the centre node
+    with pytest.raises(cubage.IntegrandError, match=r"\[features\] singular.*singular=\["):
+        cubage.integrate(f, cubage.Box([0, 0, 0], [1, 1, 1]), rel_tol=1e-6)
+
+
+def test_jacobian_overflow_is_one_error_without_numpy_warnings():
+    """User pass: an integrand that is finite but does not decay on an infinite axis overflowed in f * Jacobian
+    with a numpy RuntimeWarning before the one-line error."""
+    import warnings
+
+    import numpy as np
+
+    import cubage
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with pytest.raises(cubage.IntegrandError, match="Jacobian of the variable map overflows"):
+            cubage.integrate(lambda X: np.full(len(X), 1e300), cubage.Box([0.0], [np.inf]), rel_tol=1e-6)

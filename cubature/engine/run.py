@@ -597,9 +597,11 @@ class Run:
             pt = ", ".join(f"{v:.17g}" for v in x[i])
             raise IntegrandError(f"integrand returned {fx[i][bad[i]][0]} at x = ({pt}); if that point is a "
                                  "removable singularity give the integrand its limit there (expressions: "
-                                 "sin_over_x), or declare it singular=[{'point': [...]}] so that no node lies on it")
+                                 "sin_over_x), or declare it singular so that no node lies on it (problem files: "
+                                 "[features] singular; Python: singular=[{'point': [...]}])")
         if jac is not None:
-            fx = fx * jac[:, None]
+            with np.errstate(over="ignore", invalid="ignore"):      # reported below in one line
+                fx = fx * jac[:, None]
             if not np.isfinite(fx).all():
                 i = int(np.nonzero(~np.isfinite(fx).all(axis=1))[0][0])
                 pt = ", ".join(f"{v:.17g}" for v in x[i])
@@ -722,8 +724,8 @@ class Run:
         # (an integrand that is 0 on every node has no magnitude to compare with: any finite value is data, as
         # when a jump leaves the nodes outside a small support)
         scale = np.maximum(np.abs(fp).max(axis=1), np.asarray(self.checks["f_scale"]))
-        big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)
-        with np.errstate(invalid="ignore"):
+        with np.errstate(over="ignore", invalid="ignore"):     # a bound beyond the float range is no bound
+            big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)
             pv = np.clip(pv, -big[:, None, :], big[:, None, :])
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
             diag = self.rule.extra["diagonal"]
