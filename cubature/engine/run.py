@@ -1217,9 +1217,7 @@ class Run:
         # their estimates are the least certain (up to half of the sample)
         flagged = order[(st["flags"][order] & _NON_SMOOTH) != 0]
         if flagged.size and k >= 2:
-            e = st["error"][flagged]
-            e = e[:, 0] if self.m == 1 else (e * self.key_weight).max(axis=1)
-            worst = flagged[np.argsort(-e, kind="stable")[: k // 2]]
+            worst = flagged[: k // 2]                   # order is by |value|, descending
             rest = order[~np.isin(order, worst)][: k - worst.size]
             idx = np.sort(np.concatenate([worst, rest]))
         else:
