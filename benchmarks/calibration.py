@@ -23,15 +23,17 @@ discrepancy control, the vertex probes and the audit (and 2026 recorded the
 first version of them, so it has been seen too).  Seed 4099 was drawn fresh
 for the current version and showed one defect (a run converging at 0 when
 every node of the first region missed a small support), fixed before the
-record, so it has been seen too.  The figures in the README and in
-:mod:`cubage.engine.estimate` come from ``--seed 5227`` (the default), which
-was never used for tuning: use a new seed to check them again.
+record, so it has been seen too, and so has 5227 (the record of the version
+before the audit sampled flagged regions by value; seed 9 tuned that).  The
+figures in the README and in :mod:`cubage.engine.estimate` come from
+``--seed 6311`` (the default), which was never used for tuning: use a new
+seed to check them again.
 
 Usage::
 
     python benchmarks/calibration.py --quick          # a few minutes
     python benchmarks/calibration.py                  # the full study (long)
-    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 5227)
+    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 6311)
 
 ``--json`` writes every run (for comparing two versions run for run).
 """
@@ -223,7 +225,7 @@ def main(argv=None) -> int:
     p.add_argument("--cases", nargs="*", help="only these published cases (names); none: all")
     p.add_argument("--no-genz", action="store_true")
     p.add_argument("--no-cases", action="store_true")
-    p.add_argument("--seed", type=int, default=5227, help="draw seed (5227: the recorded, never tuned-on seed)")
+    p.add_argument("--seed", type=int, default=6311, help="draw seed (6311: the recorded, never tuned-on seed)")
     p.add_argument("--budget", type=int, help="evaluations per run (default 2e6; --quick 3e5)")
     p.add_argument("--json", help="write every run to this file")
     a = p.parse_args(argv)
