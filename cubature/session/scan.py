@@ -60,7 +60,7 @@ sibling pair of a converged partition there could be merged without the merged
 box exceeding the error level the partition was refined to, but the pairs an
 audit split only to check are merged back -- kept, they piled up along the
 chain: 0.61).  Through a zero: 0.45, 0.14, 0.03 (0.62).  Moving peak: 0.62,
-0.08, 0.03 (0.74).  Merging pays only where the integrand got easier (a
+0.08, 0.03 (0.75).  Merging pays only where the integrand got easier (a
 feature moving away, a goal loosening after a zero of the value).  The start
 partitions include the vertex probes of the regions next to the neighbour's
 signatures (``Run._carried``; without them 0.52 / 0.61 / 0.68, but a moving
@@ -141,7 +141,7 @@ REFINE_AHEAD = 0.5
 #: back: growth 32: 0.53; 0.64; 0.67; kink 1.33 -- growth 64: 0.52; 0.65; 0.68; kink 1.50 -- FALL_BELOW
 #: 0.7 (chosen): 0.52; 0.61; 0.68 -- FALL_BELOW 0.4: 0.53; 0.60; 0.73 -- REFINE_AHEAD 0, 0.25, 0.5
 #: (chosen), 1 on the smooth scan: 0.54; 0.53; 0.53; 0.55.  With the warm start's probes of the
-#: regions next to a signature (for honesty, Run._carried): 0.54; 0.62; 0.74.)
+#: regions next to a signature (for honesty, Run._carried): 0.54; 0.62; 0.75.)
 
 #: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
 LIVE_INTERVAL = 1.0
