@@ -124,3 +124,18 @@ def test_non_finite_vertex_values_are_not_data():
     probe[:] = np.nan
     floor, dev = E.probe_errors(f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
     assert not dev[0] and floor[0, 0] == 0.0
+
+
+def test_probe_axis_points_at_the_face_the_deviating_probes_share():
+    """Issue 12 item 3 (probes steer the split): excess on the two vertices of the face y = -1 of a square points
+    to axis 1; one deviating corner or a balanced pattern points to none.  Vertex order: itertools.product((1,
+    -1), repeat=2) = (+,+), (+,-), (-,+), (-,-) (common practice: the order the probes are made in)."""
+    from cubage.engine.geometry import vertex_signs
+    signs = vertex_signs(2)
+    assert signs.tolist() == [[1, 1], [1, -1], [-1, 1], [-1, -1]]
+    excess = np.array([[0.0, 1.0, 0.0, 0.9],        # the face y = -1
+                       [0.0, 0.0, 0.0, 1.0],        # one corner: sided along both axes alike
+                       [1.0, 1.0, 1.0, 1.0],        # everywhere
+                       [0.0, 0.0, 0.0, 0.0],        # nothing
+                       [1.0, 1.0, 0.0, 0.0]])       # the face x = +1
+    assert E.probe_axis(excess, signs).tolist() == [1, -1, -1, -1, 0]

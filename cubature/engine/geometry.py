@@ -29,6 +29,12 @@ def has_probes(rule) -> bool:
     return "groups" in rule.extra or "diagonal" in rule.extra
 
 
+
+def vertex_signs(d: int) -> np.ndarray:
+    """Sign vectors of a box's ``2^d`` vertices in ``itertools.product((1, -1), repeat=d)`` order: the order
+    of the vertex probes, of Genz–Malik's corner nodes and of the Gauss–Kronrod ``"diagonal"``."""
+    return np.array(list(itertools.product((1.0, -1.0), repeat=d)))
+
 class BoxGeometry:
     """Boxes as (centre, half-width) rows; nodes ``c + h * u`` for rule nodes ``u``."""
 
@@ -80,7 +86,7 @@ class BoxGeometry:
         None when the rule has no nodes along the diagonals to compare them with."""
         if not has_probes(self.rule):
             return None
-        signs = np.array(list(itertools.product((1.0, -1.0), repeat=self.dim)))
+        signs = vertex_signs(self.dim)
         pts = g["centre"][:, None, :] + position * g["halfw"][:, None, :] * signs[None]
         return pts.reshape(-1, self.dim)
 

@@ -32,7 +32,7 @@ import numpy as np
 from cubage.engine import estimate as _estimate
 from cubage.engine.abandon import AbandonableCaller, Abandoned, CallFailed
 from cubage.engine.domains import Box, DomainError, Simplex
-from cubage.engine.geometry import BoxGeometry, SimplexGeometry, has_probes
+from cubage.engine.geometry import BoxGeometry, SimplexGeometry, has_probes, vertex_signs
 from cubage.engine.regions import RegionStore
 from cubage.engine.rules import box_rule, default_rule, simplex_rule
 from cubage.engine.statuses import STATUSES as STATUSES  # re-exported: cubage.STATUSES
@@ -758,13 +758,15 @@ class Run:
         return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
 
     def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
-                     probe: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Error floors (k, m) and deviation flags (k,) from the vertex probes of the regions ``probe``."""
+                     probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Error floors (k, m), deviation flags (k,) and the axis the deviating probes point to (k,; -1
+        for none, :func:`~cubage.engine.estimate.probe_axis`) from the vertex probes of the regions ``probe``."""
         k, m = fr.shape[0], fr.shape[2]
         floor = np.zeros((k, m))
         deviates = np.zeros(k, dtype=bool)
+        steer = np.full(k, -1, dtype=np.intp)
         if pv is None:
-            return floor, deviates
+            return floor, deviates, steer
         fp = fr[probe]
         vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
         # a value far above the integrand's magnitude on the region's nodes and on the first region's is clipped
@@ -779,16 +781,27 @@ class Run:
             pv = np.clip(pv, -big[:, None, :], big[:, None, :])
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
             diag = self.rule.extra["diagonal"]
-            fl, dv = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
-                                                    np.abs(fp).max(axis=1))
+            fl, dv, ex = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
+                                                        np.abs(fp).max(axis=1), by_vertex=True)
         else:
             grp = self.rule.extra["groups"]["corner5"]
             fc = fp[:, grp[0]:grp[1], :]
             a = float(np.abs(self.rule.nodes[grp[0]]).max())
-            fl, dv = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv, a, vol, np.abs(fp).max(axis=1))
+            fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv, a, vol,
+                                                np.abs(fp).max(axis=1), by_vertex=True)
         floor[probe] = fl
         deviates[probe] = dv
-        return floor, deviates
+        steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
+        return floor, deviates, steer
+
+    def _steer_axes(self, g: dict, steer: np.ndarray, floor: np.ndarray, raw: np.ndarray) -> None:
+        """Bisect along the axis the probes point to where their floor, not the rule, sets the estimate:
+        the rule chose its axis from node values that do not see the feature."""
+        if "axis" not in g:
+            return
+        use = (steer >= 0) & (floor > raw).any(axis=1)
+        if use.any():
+            g["axis"][use] = steer[use].astype(g["axis"].dtype)
 
     def _wary_factor(self) -> float:
         """The learnt factor by which the rule estimates of the wary class fell short (>= 1)."""
@@ -920,12 +933,13 @@ class Run:
         self.checks["f_scale"] = [float(v) for v in np.abs(fr).max(axis=(0, 1))]
         pv = self._probe_values(g, probe)
         raw = self._errors(q, absq)
-        floor, deviates = self._probe_floor(g, fr, pv, probe)
+        floor, deviates, steer = self._probe_floor(g, fr, pv, probe)
         err = np.maximum(raw, floor)
         val = q[:, 0, :]
         scale = np.maximum(np.abs(val.sum(axis=0)), np.maximum(err.sum(axis=0), 1e-300))
         self.key_weight = (1.0 / scale) if self.m > 1 else np.ones(1)
         self.geometry.set_split_axes(g, self._axis_values(fr, err))
+        self._steer_axes(g, steer, floor, raw)
         self.store = RegionStore(self.region_columns(), capacity=1024)
         g["raw"] = raw
         g["low"] = q[:, 1, :]
@@ -1171,7 +1185,7 @@ class Run:
         factor = self._wary_factor()
         if factor > 1.0 and wary.any():
             err = np.where(wary[:, None], np.maximum(err, raw * factor), err)
-        floor, deviates = self._probe_floor(kids, fr, pv, probe)
+        floor, deviates, steer = self._probe_floor(kids, fr, pv, probe)
         raised = (floor > err).any(axis=1)
         # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
         # what the vertex probes added on top of the children's corrected estimates
@@ -1194,6 +1208,7 @@ class Run:
         self.checks["disagreed"] += int(pd.sum())
         self.checks["lower_closer"] += int(pl.sum())
         self.geometry.set_split_axes(kids, self._axis_values(fr, err))
+        self._steer_axes(kids, steer, floor, raw)
         tol = None
         if self.settings.queue == "local":
             tol = np.tile(parents["tol"] / nch, nch)
