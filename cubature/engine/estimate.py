@@ -132,31 +132,34 @@ family (d = 2..6, 10 draws)  tol    runs  held before -> after  silent before ->
 oscillatory                  1e-04    50  100 % -> 100 %          0 -> 0                 100 %      1.29
 oscillatory                  1e-06    50  100 % -> 100 %          0 -> 0                 100 %      1.05
 oscillatory                  1e-08    50  100 % -> 100 %          0 -> 0                  72 %      1.01
-product-peak                 1e-04    50  100 % -> 100 %          0 -> 0                 100 %      2.24
-product-peak                 1e-06    50  100 % -> 100 %          0 -> 0                 100 %      1.54
+product-peak                 1e-04    50  100 % -> 100 %          0 -> 0                 100 %      1.93
+product-peak                 1e-06    50  100 % -> 100 %          0 -> 0                 100 %      1.16
 product-peak                 1e-08    50  100 % -> 100 %          0 -> 0                  80 %      1.04
 corner-peak                  1e-04    50  100 % -> 100 %          0 -> 0                 100 %      2.41
 corner-peak                  1e-06    50  100 % -> 100 %          0 -> 0                 100 %      1.08
 corner-peak                  1e-08    50  100 % -> 100 %          0 -> 0                  84 %      1.02
-gaussian                     1e-04    50  100 % -> 100 %          0 -> 0                 100 %      3.24
+gaussian                     1e-04    50  100 % -> 100 %          0 -> 0                 100 %      3.17
 gaussian                     1e-06    50  100 % -> 100 %          0 -> 0                 100 %      1.27
 gaussian                     1e-08    50  100 % -> 100 %          0 -> 0                  92 %      1.05
-c0                           1e-04    50   84 % -> 100 %          2 -> 0                  56 %      1.34
-c0                           1e-06    50   64 % ->  96 %         11 -> 2                  34 %      1.27
-c0                           1e-08    50   60 % ->  88 %          8 -> 1                  30 %      1.17
-discontinuous                1e-04    50   72 % -> 100 %         12 -> 0                  56 %      66.08
-discontinuous                1e-06    50   50 % -> 100 %         21 -> 0                  38 %      43.73
-discontinuous                1e-08    50   40 % -> 100 %         30 -> 0                  36 %      18.49
+c0                           1e-04    50   84 % -> 100 %          2 -> 0                  58 %      1.37
+c0                           1e-06    50   64 % ->  96 %         11 -> 2                  40 %      1.17
+c0                           1e-08    50   60 % ->  88 %          8 -> 2                  32 %      1.14
+discontinuous                1e-04    50   72 % -> 100 %         12 -> 0                  84 %      25.39
+discontinuous                1e-06    50   50 % -> 100 %         21 -> 0                  84 %      14.50
+discontinuous                1e-08    50   40 % -> 100 %         30 -> 0                  72 %      9.43
 
-Smooth: 132.5 M evaluations against 124.7 M before (1.06x in total; median
-run 1.22x: small runs at 1e-4, where probes and the audit's one or two splits
+Smooth: 130.2 M evaluations against 124.7 M before (1.04x in total; median
+run 1.21x: small runs at 1e-4, where probes and the audit's one or two splits
 weigh most, cost 1.3-3x of a few thousand evaluations).  C0 and
 discontinuous together: true error within the reported one on 97.3 % of 300
-runs (before 62 %), 3 silent wrong answers (before 84), all C0 in d = 2 (two
-at 1e-6, the worst 88x its reported error; one at 1e-8): a kink across the
-middle of a tensor Gauss-Kronrod region biases its 15-, 7- and 8-point rules
-alike, so their differences understate the error, and only a split across
-the kink (an audit's, when the region is sampled) measures it.  Earlier
+runs (before 62 %), 4 silent wrong answers (before 84), all C0: three in
+d = 2 (two at 1e-6, the worst 88x its reported error; one at 1e-8), one in
+d = 3 at 1e-8.  A kink across the middle of a tensor Gauss-Kronrod region
+biases its 15-, 7- and 8-point rules alike, so their differences understate
+the error, and only a split across the kink (an audit's, when the region is
+sampled) measures it.  (Measured with the split steered by the probes,
+:func:`probe_axis`; without it, the same seed gave 3 silent and
+discontinuous runs converged 56/38/36 % instead of 84/84/72 %.)  Earlier
 records: seed 5227, before the audit sampled flagged regions by value: 95.7 %
 and 5 silent; the version before this one's probes (0.99 of the way to the
 vertices, Genz-Malik only): 81 % and 22 on seed 5227.  Seeds 2026, 4099 and
