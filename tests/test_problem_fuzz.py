@@ -7,9 +7,11 @@ keep the test fast) must exit 0 or 2 and never print a traceback or an
 
 from __future__ import annotations
 
+import atexit
 import contextlib
 import io
 import json
+import shutil
 import tempfile
 from pathlib import Path
 
@@ -22,6 +24,7 @@ FUZZ = settings(max_examples=50, deadline=None, derandomize=True,
                 suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 
 _DIR = Path(tempfile.mkdtemp(prefix="cubage-fuzz-"))
+atexit.register(shutil.rmtree, _DIR, True)      # every run used to leave its folder behind in the temp dir
 
 
 def _check(text: str, *extra: str) -> tuple[int, str, str]:
