@@ -5,6 +5,8 @@ Every expected value is computed by hand from the constructed numbers (named bes
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 
@@ -139,3 +141,32 @@ def test_probe_axis_points_at_the_face_the_deviating_probes_share():
                        [0.0, 0.0, 0.0, 0.0],        # nothing
                        [1.0, 1.0, 0.0, 0.0]])       # the face x = +1
     assert E.probe_axis(excess, signs).tolist() == [1, -1, -1, -1, 0]
+
+
+def test_mid_probe_sees_a_kink_near_the_face_and_stays_quiet_on_smooth_functions():
+    """Issue 12 item 3: the box [0, 0.5] x [0, 1]^2 with f = |x - c| e^(y + z/2).  With c = 0.4918 the kink lies
+    1.6 % of the box's x-width from its face, beyond the Genz-Malik corner nodes (at 0.688 of the half-width) and
+    inside the probes (just inside the vertices): the long-gap check's allowance hides it, the second probe at
+    PROBE_MID shows it.  With c = 0.6 the kink is outside the box and f is smooth there: no check fires.  Nodes
+    and probes placed by hand (Genz & Malik 1980 for the corner node)."""
+    import itertools
+    a = math.sqrt(9 / 19)
+    signs = np.array(list(itertools.product((1.0, -1.0), repeat=3)))
+    ctr, h = np.array([0.25, 0.5, 0.5]), np.array([0.25, 0.5, 0.5])
+
+    def checks(c):
+        f = lambda X: np.abs(X[:, 0] - c) * np.exp(X[:, 1] + 0.5 * X[:, 2])
+        f0 = f(ctr[None]).reshape(1, 1)
+        fp = f(ctr + a * h * signs)[None, :, None]
+        fprobe = f(ctr + E.PROBE_POSITION * h * signs)[None, :, None]
+        fmid = f(ctr + E.PROBE_MID * h * signs)[None, :, None]
+        args = (f0, fp, fp[:, ::-1, :], fprobe, a, np.array([0.25]), np.abs(fp).max(axis=1))
+        return E.probe_errors(*args), E.probe_errors(*args, f_mid=fmid)
+
+    (_, dev_long), (floor, dev_mid) = checks(0.4918)
+    assert not dev_long[0] and dev_mid[0]
+    # the floor is of the size of the true error of the rule there, 2 (0.5 - c)^2/2 x (e - 1) 2 (e^(1/2) - 1)
+    # ~ 1.5e-4 (product formula): within a factor 10
+    assert 1.5e-5 < floor[0, 0] < 1.5e-3
+    (_, dev_long), (floor, dev_mid) = checks(0.6)
+    assert not dev_long[0] and not dev_mid[0] and floor[0, 0] == 0.0

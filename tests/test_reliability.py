@@ -309,3 +309,15 @@ def test_support_missed_by_every_node_of_the_first_region(d):
     res = cubage.integrate(f, cubage.Box([0] * d, [1] * d), rel_tol=1e-4, budget=400_000)
     assert res.value > 0.5 * exact
     _honest(res, exact, 1e-4)
+
+
+@pytest.mark.parametrize("c", [0.2469387755102041, 0.4918367346938776])
+def test_kink_near_a_face_of_a_genz_malik_child_3d(c):
+    """Issue 12 item 3 (regression, found by a scan): |x - c| e^(y + z/2) on [0,1]^3 at 1e-6 (Python integrand, no
+    alignment) claimed convergence after 189-263 evaluations, 200-1400x off: the split at 0.5 leaves the kink
+    1.6 % of a region's width from its face, where the probes' long-gap allowance hid it.  Closed form (product of
+    1-D integrals): (c^2 + (1 - c)^2)/2 (e - 1) 2 (e^(1/2) - 1)."""
+    exact = (c * c + (1 - c) ** 2) / 2 * (math.e - 1) * 2 * (math.exp(0.5) - 1)
+    f = lambda X: np.abs(X[:, 0] - c) * np.exp(X[:, 1] + 0.5 * X[:, 2])
+    res = cubage.integrate(f, cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6, budget=2_000_000, raise_on_failure=False)
+    _honest(res, exact, 1e-6)

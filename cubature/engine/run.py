@@ -673,15 +673,20 @@ class Run:
         absq *= vol[:, None]
         return q, np.abs(absq), fr
 
-    def _probe_values(self, g: dict, probe: np.ndarray) -> np.ndarray | None:
+    def _probe_values(self, g: dict, probe: np.ndarray, mid: bool = False) -> np.ndarray | None:
         """Integrand values (kp, v, m) at the vertex probes of the regions ``probe`` (a boolean mask)
         of ``g``, in a second call; a non-finite value there is a signature (NaN), not a failure.
         None when the rule has no corner nodes or no region is selected."""
         if not probe.any():
             return None
-        t = self.geometry.probe_points({name: a[probe] for name, a in g.items()}, _estimate.PROBE_POSITION)
+        sub = {name: a[probe] for name, a in g.items()}
+        t = self.geometry.probe_points(sub, _estimate.PROBE_POSITION)
         if t is None:
             return None
+        if mid and "diagonal" not in self.rule.extra:   # Genz-Malik: a second probe per vertex, node to probe
+            kp, d = int(probe.sum()), t.shape[1]
+            tm = self.geometry.probe_points(sub, _estimate.PROBE_MID)
+            t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d)], axis=1).reshape(-1, d)
         n, m = t.shape[0], self.m or 1
         out = np.full((n, m), np.nan)
         # a vertex at the end of an infinite axis (engine t = +-1) maps to infinity: no value there is data
@@ -787,8 +792,10 @@ class Run:
             grp = self.rule.extra["groups"]["corner5"]
             fc = fp[:, grp[0]:grp[1], :]
             a = float(np.abs(self.rule.nodes[grp[0]]).max())
-            fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv, a, vol,
-                                                np.abs(fp).max(axis=1), by_vertex=True)
+            nv = grp[1] - grp[0]
+            fmid = pv[:, nv:] if pv.shape[1] == 2 * nv else None
+            fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
+                                                np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid)
         floor[probe] = fl
         deviates[probe] = dv
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
@@ -976,6 +983,8 @@ class Run:
     def _per_split(self) -> int:
         """Most evaluations one split can cost (children's nodes and vertex probes)."""
         v = 2 ** self.domain.dim if has_probes(self.rule) else 0
+        if "diagonal" not in self.rule.extra:
+            v *= 2                                  # Genz-Malik regions get a second probe per vertex
         return self.geometry.children_per_split * (self.rule.size + v)
 
     def _choose(self) -> int:
@@ -1143,7 +1152,7 @@ class Run:
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
         # children that look resolved although their parent showed a non-smooth signature: probe their vertices
         suspect = self._suspects(parents, q, absq)
-        pv = self._probe_values(kids, suspect)    # may raise: nothing changed yet
+        pv = self._probe_values(kids, suspect, mid=True)    # may raise: nothing changed yet
         self.queue.pop(k)
         key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0)
         if disagreed and np.any(self._hidden > 0.1 * self.goal()):
