@@ -524,17 +524,8 @@ def extrapolation_errors(f_diag: np.ndarray, xs: np.ndarray, f_vertex: np.ndarra
     the smooth case's error (e.g. Abramowitz & Stegun 25.2.3).
     """
     t = PROBE_POSITION if position is None else float(position)
-
-    def lagrange_at(x):
-        # weights w with sum_j w_j p(x_j) = p(t) for every polynomial p of degree < len(x)
-        w = np.ones(len(x))
-        for j in range(len(x)):
-            for i in range(len(x)):
-                if i != j:
-                    w[j] *= (t - x[i]) / (x[j] - x[i])
-        return w
     xs = np.asarray(xs, dtype=float)
-    w3, w2 = lagrange_at(xs[:4]), lagrange_at(xs[:3])
+    w3, w2 = _lagrange_weights(xs[:4], t), _lagrange_weights(xs[:3], t)
     p3 = np.einsum("j,kvjm->kvm", w3, f_diag[:, :, :4, :])
     p2 = np.einsum("j,kvjm->kvm", w2, f_diag[:, :, :3, :])
     with np.errstate(invalid="ignore"):
