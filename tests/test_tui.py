@@ -30,7 +30,7 @@ from cubage.session.follower import RunFollower
 from cubage.session.progress_records import map_record, new_rows, trail_line
 from cubage.tui.app import CubageApp, collect_files, main
 from cubage.tui.confirm import AskModal
-from cubage.tui.drawing import density_grid
+from cubage.tui.drawing import density_grid, round_ticks
 from cubage.tui.goal_editor import GoalEditor, parse_goal
 from cubage.tui.key_help import KeyHelp
 from cubage.tui.picker import PickerScreen, parse_overrides
@@ -406,6 +406,24 @@ def test_density_grid_counts_points():
     g = density_grid(pts, [0, 0], [1, 1], 2, 2)
     assert g.tolist() == [[1, 2], [1, 1]]      # row 0 is the top of the picture
     assert g.sum() == 5
+
+
+def test_round_ticks_are_evenly_spaced_round_values():
+    """Scan chart labels (noted in issue 14's review: y labels such as 0.74, 0.61, 0.49 read unevenly)."""
+    # expected ticks counted by hand: steps of 1, 2 or 5 times a power of ten, inside the range
+    ticks, labels = round_ticks(0.013, 0.741, 8)
+    assert labels == ["0.1", "0.2", "0.3", "0.4", "0.5", "0.6", "0.7"]
+    assert np.allclose(np.diff(ticks), 0.1)
+    ticks, labels = round_ticks(0.155891, 0.155923, 5)
+    assert labels == ["0.15590", "0.15591", "0.15592"]
+    ticks, labels = round_ticks(-1e-7, 3e-6, 5)
+    assert labels == ["0", "1e-06", "2e-06", "3e-06"]
+    for lo, hi, most in [(0.0, 3.0, 5), (-0.3, 0.3, 5), (1.2e6, 3.4e6, 4), (1.0, 1000.0, 4)]:
+        ticks, labels = round_ticks(lo, hi, most)
+        assert 1 <= len(ticks) <= most and lo <= ticks[0] and ticks[-1] <= hi
+        assert len(set(np.round(np.diff(ticks), 12))) <= 1          # one step throughout
+    assert round_ticks(2.0, 2.0, 4) == ([2.0], ["2"])
+    assert round_ticks(0.0, math.inf, 4) == ([], [])
 
 
 def test_main_bad_input_exit_2(tmp_path, capsys):

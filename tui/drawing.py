@@ -1,9 +1,12 @@
-"""Small drawing helpers of the run view: density grids, thinning of long histories, short counts.
+"""Small drawing helpers of the run and scan views: density grids, thinning of long histories, short counts,
+round tick values.
 
 The time-to-goal forecast and the duration format are the session layer's
 (:mod:`cubage.session.forecast`), shared with the command line."""
 
 from __future__ import annotations
+
+import math
 
 import numpy as np
 
@@ -50,3 +53,34 @@ def fmt_count(n: float) -> str:
         if abs(n) >= div:
             return f"{n / div:.3g}{unit}"
     return f"{n:.0f}"
+
+
+def round_ticks(lo: float, hi: float, most: int) -> tuple[list[float], list[str]]:
+    """At most ``most`` tick positions at round values (1, 2 or 5 times a power of ten) within [lo, hi].
+
+    Labels share one number of decimals, so a column of them reads evenly (scientific notation when the values
+    are very large or very small).  A degenerate or non-finite range gives its one value.
+    """
+    most = max(2, int(most))
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        return [], []
+    if hi < lo:
+        lo, hi = hi, lo
+    if hi == lo:
+        return [lo], [f"{lo:.4g}"]
+    e = math.floor(math.log10((hi - lo) / (most - 1)))
+    for step in (m * 10.0 ** k for k in (e - 1, e, e + 1) for m in (1, 2, 5)):
+        first, last = math.ceil(lo / step - 1e-9), math.floor(hi / step + 1e-9)
+        if last - first + 1 <= most:
+            break
+    ticks = [k * step for k in range(first, last + 1)]
+    if not ticks:
+        return [lo], [f"{lo:.4g}"]
+    big = max(abs(ticks[0]), abs(ticks[-1]))
+    if big >= 1e5 or big < 1e-3:
+        digits = max(0, int(math.floor(math.log10(big))) - int(math.floor(math.log10(step))))
+        labels = [f"{t:.{digits}e}" for t in ticks]
+    else:
+        digits = max(0, -int(math.floor(math.log10(step))))
+        labels = [f"{t:.{digits}f}" for t in ticks]
+    return ticks, ["0" if t == 0 else lab for t, lab in zip(ticks, labels)]

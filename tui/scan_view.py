@@ -33,6 +33,7 @@ from cubage.session.run_directory import LEDGER, SOURCE
 from cubage.session.scan import POINTS_FILE, PointResult
 from cubage.session.scan_follower import ScanFollower
 
+from .drawing import round_ticks
 from .widgets.guard import guarded
 from .widgets.readout import status_style
 
@@ -216,6 +217,13 @@ class ScanCurve(PlotextPlot):
             bad = [(xx, yy) for xx, yy, p in zip(x, y, pts) if p.status != "converged"]
             if bad:
                 plt.scatter([b[0] for b in bad], [b[1] for b in bad], color="red", marker="x")
+            finite = [(yy - ee, yy + ee) for yy, ee in zip(y, e) if math.isfinite(yy) and math.isfinite(ee)]
+            if finite:
+                plt.yticks(*round_ticks(min(f[0] for f in finite), max(f[1] for f in finite),
+                                        max(2, self.size.height // 3)))
+            fx = [xx for xx in x if math.isfinite(xx)]
+            if fx:
+                plt.xticks(*round_ticks(min(fx), max(fx), max(2, self.size.width // 12)))
             plt.xlabel(name)
             more = "" if len(g.names) == 1 else f" (all values of {', '.join(g.names[1:])})"
             plt.title(f"value ± reported error against {name}{more}")
