@@ -170,3 +170,47 @@ def test_mid_probe_sees_a_kink_near_the_face_and_stays_quiet_on_smooth_functions
     assert 1.5e-5 < floor[0, 0] < 1.5e-3
     (_, dev_long), (floor, dev_mid) = checks(0.6)
     assert not dev_long[0] and not dev_mid[0] and floor[0, 0] == 0.0
+
+
+def _gk_box(f, lo, hi):
+    """Values of f at the 2-D tensor K15 nodes of the box [lo, hi] (shape (1, 225, 1)) and the box's volume."""
+    from cubage.engine.rules.gauss_kronrod import gauss_kronrod_rule
+    rule = gauss_kronrod_rule(2)
+    lo, hi = np.asarray(lo, float), np.asarray(hi, float)
+    X = (lo + hi) / 2 + (hi - lo) / 2 * rule.nodes
+    return rule, f(X)[None, :, None], np.array([np.prod(hi - lo)])
+
+
+def test_axis_decay_sees_a_kink_across_the_middle_of_a_box():
+    """Issue 12 item 3: exp(-0.577|x - 0.7235| - 19.8|y - 0.3952|) on [0.5, 1] x [0.40625, 0.4375] (Genz's C0
+    family, seed 6311): the kink in x at 45 % of the width biases K15, G7 and the 8-point rule alike (|K15 - G7| =
+    1.4e-8 against a true error of 2.45e-6, product of the 1-D closed forms, Genz 1984).  The x-marginal's Legendre
+    coefficients decay algebraically: the floor must cover the true error, within a factor 50, and point to x."""
+    a, u = np.array([0.57665252, 19.82334748]), np.array([0.72349488, 0.39517654])
+    lo, hi = np.array([0.5, 0.40625]), np.array([1.0, 0.4375])
+    rule, fn, vol = _gk_box(lambda X: np.exp(-(np.abs(X - u) @ a)), lo, hi)
+    floor, flagged, per_axis = E.axis_kink_errors(fn, rule.extra["nodes_1d"], rule.extra["wk_1d"], vol,
+                                                  np.abs(fn).max(axis=1))
+    true = abs(float(fn[0, :, 0] @ rule.weights) * vol[0] - _c0_box(a, u, lo, hi))
+    assert true > 1e-6                                   # the case: a large error the rule's differences miss
+    assert flagged[0] and true <= floor[0, 0] <= 50 * true
+    assert np.argmax(per_axis[0]) == 0
+
+
+@pytest.mark.parametrize("f", [lambda X: np.exp(X[:, 0] + 2 * X[:, 1]), lambda X: np.cos(3 * X[:, 0] - X[:, 1]),
+                               lambda X: np.exp(-10 * ((X - 0.3) ** 2).sum(axis=1)),
+                               lambda X: 1.0 / (1.1 + X[:, 0] + X[:, 1]) ** 3])
+def test_axis_decay_quiet_on_smooth_functions(f):
+    """Issue 12 item 6: functions analytic around the box have geometrically decaying Legendre coefficients
+    (Trefethen, Approximation Theory and Approximation Practice, ch. 8): no floor, no flag."""
+    rule, fn, vol = _gk_box(f, [0.0, 0.0], [1.0, 1.0])
+    floor, flagged, _ = E.axis_kink_errors(fn, rule.extra["nodes_1d"], rule.extra["wk_1d"], vol,
+                                           np.abs(fn).max(axis=1))
+    assert not flagged[0] and floor[0, 0] == 0.0
+
+
+def _c0_box(a, u, lo, hi):
+    """Integral of exp(-sum a_i |x_i - u_i|) over the box [lo, hi]: product of 1-D closed forms (Genz 1984)."""
+    def prim(x, ai, ui):        # an antiderivative of exp(-ai |x - ui|)
+        return math.exp(-ai * (ui - x)) / ai if x < ui else 2 / ai - math.exp(-ai * (x - ui)) / ai
+    return math.prod(prim(hi[i], a[i], u[i]) - prim(lo[i], a[i], u[i]) for i in range(len(a)))

@@ -764,6 +764,24 @@ class Run:
 
     def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
                      probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Error floors (k, m), signature flags (k,) and the axis to bisect (k,; -1 for the rule's choice)
+        from what the rule's differences miss: the vertex probes of the regions ``probe``
+        (:meth:`_vertex_floor`) and, for tensor Gauss–Kronrod boxes, every box's per-axis decay check
+        (:func:`~cubage.engine.estimate.axis_kink_errors`: a kink across the middle of a box biases its
+        15-, 7- and 8-point rules alike, and no probe sees it).  Where the decay check sets the larger
+        floor, the box is bisected across the axis it points to."""
+        floor, deviates, steer = self._vertex_floor(g, fr, pv, probe)
+        if "diagonal" not in self.rule.extra or fr.shape[0] == 0:
+            return floor, deviates, steer
+        vol = self.geometry.volume(g)
+        kf, kinked, per_axis = _estimate.axis_kink_errors(fr, self.rule.extra["nodes_1d"], self.rule.extra["wk_1d"],
+                                                          vol, np.abs(fr).max(axis=1))
+        own = kinked & (kf > floor).any(axis=1)
+        steer = np.where(own, np.argmax(per_axis, axis=1), steer)
+        return np.maximum(floor, kf), deviates | kinked, steer
+
+    def _vertex_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
+                      probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Error floors (k, m), deviation flags (k,) and the axis the deviating probes point to (k,; -1
         for none, :func:`~cubage.engine.estimate.probe_axis`) from the vertex probes of the regions ``probe``."""
         k, m = fr.shape[0], fr.shape[2]
