@@ -140,6 +140,27 @@ def test_bundled_scan_every_point_against_closed_form():
         assert abs(pt.value - exact) <= pt.error, (pt.constants, pt.value, exact, pt.error)
 
 
+def test_bundled_scan_warm_and_cold_agree_within_their_errors():
+    """issue 14 item 3: on the bundled orbital-overlap scan (its first 11 separations, R = 0 .. 2), warm
+    and cold agree within the sum of their error estimates at every point, and each is within its error
+    of S(R) = (pi/(a+b))^{3/2} exp(-ab R^2/(a+b)) (Gaussian product theorem, Boys 1950; mpmath)."""
+    from cubage.problem.scan_table import grid_from_mapping
+    p = load_problem(bundled_problem_dir() / "orbital-overlap-scan.toml")
+    c = p.integrand_spec["constants"]
+    a, b = mpmath.mpf(c["a"]), mpmath.mpf(c["b"])
+    source = ExprSource(p.integrand_spec, p.fingerprint())
+    grid = grid_from_mapping({"R": [p.scan.point(k)["R"] for k in range(11)]})
+    warm = run_scan(source, p.domain, grid, {"rel_tol": p.goal.rel_tol})
+    cold = run_scan(source, p.domain, grid, {"rel_tol": p.goal.rel_tol}, warm=False)
+    assert warm.converged and cold.converged and sum(q.warm_from is not None for q in warm.points) == 10
+    for w, k in zip(warm.points, cold.points):
+        assert w.constants == k.constants
+        assert abs(w.value - k.value) <= w.error + k.error
+        R = mpmath.mpf(w.constants["R"])
+        exact = float((mpmath.pi / (a + b)) ** mpmath.mpf(1.5) * mpmath.exp(-a * b * R**2 / (a + b)))
+        assert abs(w.value - exact) <= w.error and abs(k.value - exact) <= k.error
+
+
 def test_warm_and_cold_agree_within_their_errors():
     """issue 14 item 3: every point, warm and cold, within the sum of their error estimates; both against
     the closed form of _gauss_cube (erf, A&S 7.1.1)."""

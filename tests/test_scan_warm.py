@@ -398,3 +398,102 @@ def test_touching_finds_every_box_that_meets_one_of_a_set():
             far = ~(((lo[:, None, :] <= shi[None] + 2 * cell) & (hi[:, None, :] >= slo[None] - 2 * cell))
                     .all(axis=2).any(axis=1))
             assert not (got & far).any()
+
+
+# --------------------------------------------------------------------------
+# a cheaper check where the neighbour's partition passed its own (issue 14 target: smooth scans)
+# --------------------------------------------------------------------------
+
+def test_warm_start_from_a_clean_audit_takes_part_of_the_audit_sample():
+    """issue 14 item 3 (the warm point's audit): a warm start from a partition that passed its own audit
+    with no non-smooth signature audits :data:`WARM_AUDIT_SHARE` of the usual sample (said in the trust
+    report); the same start marked not audited takes the whole sample.  Both meet their goal against the
+    closed form (erf, A&S 7.1.1)."""
+    from cubage.engine.run import WARM_AUDIT_SHARE
+    assert 0 < WARM_AUDIT_SHARE < 1
+    part = _finished(3.0).partition()
+    assert part["audited"].tolist() == [1]
+    runs = {}
+    for mark in (1, 0):
+        start = {**part, "audited": np.array([mark], np.int8)}
+        run = cubage.Run(lambda X: _cloud(X, 3.2), CUBE, rel_tol=1e-8, start=start)
+        res = run.run()
+        assert res.status == "converged" and abs(res.value - _cloud_exact(3.2)) <= res.error
+        runs[mark] = res.trust
+    assert runs[1]["audit"] == "passed" and runs[1]["audit_reduced"] == 1
+    assert "audit_reduced" not in runs[0]
+    assert runs[1]["audit_regions"] < runs[0]["audit_regions"]
+
+
+def test_warm_audit_keeps_the_whole_sample_where_a_signature_shows():
+    """issue 14 item 3 (never a cheaper audit next to a non-smooth signature): a clean, audited partition
+    of a smooth integrand used to start |x - 0.37| e^(y + z/2) (a kink the partition knows nothing of):
+    regions show non-smooth signatures, so the audit takes the whole sample, and the run meets its goal
+    honestly or does not claim convergence.  Closed form: int_0^1 |x - c| dx = (c^2 + (1 - c)^2) / 2 (elementary), times
+    e - 1 and 2 (e^(1/2) - 1)."""
+    part = _finished(3.0).partition()
+    assert part["audited"].tolist() == [1]
+    c = 0.37
+    run = cubage.Run(lambda X: np.abs(X[:, 0] - c) * np.exp(X[:, 1] + 0.5 * X[:, 2]), CUBE, rel_tol=1e-6,
+                     start=part, budget=3_000_000)
+    res = run.run()
+    exact = (c * c + (1 - c) ** 2) / 2 * (math.e - 1) * 2 * (math.exp(0.5) - 1)
+    t = res.trust
+    assert (t["disagreed"] or t["lower_closer"] or t["flagged_regions"]) and "audit_reduced" not in t
+    assert not res.converged or abs(res.value - exact) <= res.error
+    # a partition that carries a signature is not marked audited
+    bad = dict(part, flags=part["flags"] | np.where(np.arange(len(part["flags"])) == 0, FLAG_DISAGREED, 0)
+               .astype(np.uint8))
+    warm = cubage.Run(lambda X: _cloud(X, 3.2), CUBE, rel_tol=1e-8, start=bad)
+    warm.run()
+    assert warm.status == "converged" and "audit_reduced" not in warm.trust()
+    assert warm.partition()["audited"].tolist() == [1]       # ... but its own clean run is
+
+
+def test_wary_regions_cleared_by_their_own_probes_are_not_probed_again():
+    """issue 14 item 3 (the warm start's probes): a start region that was a child of a non-smooth region
+    (``FLAG_WARY``) is a reason to probe its neighbourhood only while its own vertices were not probed;
+    probed and agreeing (``FLAG_PROBED``), it showed no feature at its scale.  Both runs meet their goal
+    against the closed form (erf, A&S 7.1.1)."""
+    from cubage.engine.run import FLAG_PROBED
+    part = _finished(3.0).partition()
+    n = len(part["depth"])
+    marked = np.zeros(n, bool)
+    marked[::7] = True
+    evals = {}
+    for extra in (0, FLAG_PROBED):
+        start = dict(part, flags=np.where(marked, FLAG_WARY | extra, 0).astype(np.uint8))
+        run = cubage.Run(lambda X: _cloud(X, 3.2), CUBE, rel_tol=1e-8, start=start)
+        run.step()
+        evals[extra] = run.evaluations
+        res = run.run()
+        assert res.status == "converged" and abs(res.value - _cloud_exact(3.2)) <= res.error
+    size = cubage.Run(lambda X: _cloud(X, 3.2), CUBE).rule.size
+    assert evals[FLAG_PROBED] == n * size < evals[0]
+
+
+def test_scan_with_reduced_audits_resumed_mid_point_is_bit_identical(tmp_path):
+    """issue 14 item 5 with the warm audit share: a smooth scan whose warm points audit part of the sample,
+    stopped inside a warm point and resumed from its checkpoint, gives the same points bit for bit as one
+    that ran through (the share is decided by what the checkpoint keeps); every point within its error of
+    the closed form (erf, A&S 7.1.1)."""
+    import threading
+
+    from cubage.session.scan import CallableSource, grid_from_mapping, run_scan
+    src, g = CallableSource(_cloud), grid_from_mapping({"a": np.linspace(3.0, 4.0, 5)})
+    straight = run_scan(src, CUBE, g, {"rel_tol": 1e-8}, chains=1)
+    assert sum(bool((p.trust or {}).get("audit_reduced")) for p in straight.points) >= 3
+    stop = threading.Event()
+    done = []
+
+    def on_step(job, run, now):       # stop inside the third point, after its start
+        if len(done) >= 2 and run.step_count >= 3:
+            stop.set()
+    part = run_scan(src, CUBE, g, {"rel_tol": 1e-8}, chains=1, run_dir=tmp_path, on_step=on_step,
+                    on_point=lambda pt, k, n: done.append(pt), stop_event=stop, checkpoint_every=0)
+    assert part.stopped and len(part.points) == 2 and list(tmp_path.glob("scan-current-*.npz"))
+    resumed = run_scan(src, CUBE, g, {"rel_tol": 1e-8}, chains=1, run_dir=tmp_path)
+    strip = lambda pts: [p.to_json() | {"seconds": 0} for p in pts]
+    assert resumed.converged and strip(resumed.points) == strip(straight.points)
+    for p in straight.points:
+        assert abs(p.value - _cloud_exact(p.constants["a"])) <= p.error

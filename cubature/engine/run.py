@@ -67,6 +67,11 @@ AUDIT_MIN = 2
 AUDIT_SMALL = 0.25
 #: failed audits that each double the next sample (at most 2^AUDIT_GROWTH times AUDIT_COST)
 AUDIT_GROWTH = 1
+#: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
+#: neighbouring constants and neither run shows a non-smooth signature (:meth:`Run._warm_audit_share`).
+#: Chosen on benchmarks/scan.py's smooth scan (warm/cold 0.517 with 1, 0.491 with 0.5, 0.476 with 0.25,
+#: every point within its error of the closed form in each case); 0.5 keeps the top half of the sample.
+WARM_AUDIT_SHARE = 0.5
 
 
 @functools.lru_cache(maxsize=1)
@@ -464,9 +469,11 @@ class Run:
         :meth:`partition` of another run over the same domain with the same
         rule and split policy) to begin from instead of the whole domain.
         Every region is evaluated with this run's integrand; the same error
-        control follows.  Optional ``flags`` (the regions' signatures) and
-        ``wary`` (the learnt wary-class counters), as :meth:`partition` gives
-        them, carry what the previous run measured (see :meth:`_carried`).
+        control follows.  Optional ``flags`` (the regions' signatures),
+        ``wary`` (the learnt wary-class counters) and ``audited`` (the
+        partition passed its audit with no non-smooth signature), as
+        :meth:`partition` gives them, carry what the previous run measured
+        (see :meth:`_carried` and :meth:`_warm_audit_share`).
         Used by parameter scans (:mod:`cubage.session.scan`).
     **settings
         Fields of :class:`Settings`.
@@ -875,8 +882,9 @@ class Run:
         return fr[np.arange(fr.shape[0]), :, j]
 
     def partition(self) -> dict[str, np.ndarray]:
-        """Copies of the regions' geometry, depth and signature flags, and the learnt wary-class
-        counters: the ``start`` of a warm-started run (see :meth:`_start`)."""
+        """Copies of the regions' geometry, depth and signature flags, the learnt wary-class counters
+        and whether the partition passed its audit with no non-smooth signature (``audited``): the
+        ``start`` of a warm-started run (see :meth:`_start`)."""
         with self._lock:
             if self.store is None:
                 g = self.geometry.root()
@@ -884,6 +892,11 @@ class Run:
             part = {name: self.store[name].copy() for name in (*self.geometry.columns, "depth", "flags")}
             c = self.checks
             part["wary"] = np.array([c["wary_splits"], c["wary_measured"], c["wary_estimated"]], np.float64)
+            # whether this partition passed its audit with no non-smooth signature anywhere in the run
+            clean = (c["audit"] == "passed" and not c.get("audit_failed", 0) and not c["audit_disagreed"]
+                     and not c["disagreed"] and not c["lower_closer"]
+                     and not ((self.store["flags"] & _NON_SMOOTH) != 0).any())
+            part["audited"] = np.array([1 if clean else 0], np.int8)
             return part
 
     def _evaluate_start(self) -> tuple[dict, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -937,12 +950,29 @@ class Run:
         if fl.shape != (n,):
             return None
         carried = (fl & _NON_SMOOTH) != 0
-        src = np.nonzero((fl & (_NON_SMOOTH | FLAG_WARY)) != 0)[0]
+        # a child of a non-smooth region whose own vertices were probed there and agreed showed no feature
+        # at its scale: the feature sits in a sibling that carries a signature itself
+        cleared = ((fl & FLAG_WARY) != 0) & ((fl & FLAG_PROBED) != 0)
+        src = np.nonzero(((fl & _NON_SMOOTH) != 0) | (((fl & FLAG_WARY) != 0) & ~cleared))[0]
         near = np.zeros(n, dtype=bool)
         if src.size:
             lo, hi = self.geometry.engine_bounds(g)
             near = touching(lo, hi, lo[src], hi[src])
         return carried, near
+
+    def _warm_audit_share(self) -> float:
+        """The share of the usual audit sample (:data:`AUDIT_COST`) this run's audit takes: a warm start
+        from a partition whose own audit passed at the neighbouring constants, with no non-smooth signature
+        there, takes :data:`WARM_AUDIT_SHARE` while this run shows none either (no split disagreed with
+        its parent or was won by the lower-degree rule, no live region is flagged, no audit failed);
+        every other run takes the whole sample."""
+        c = self.checks
+        if not c.get("warm_audit") or c.get("audit_failed", 0) or c["disagreed"] or c["lower_closer"]:
+            return 1.0
+        if ((self.store["flags"] & _NON_SMOOTH) != 0).any():
+            return 1.0
+        c["audit_reduced"] = int(c.get("audit_reduced", 0)) + 1
+        return WARM_AUDIT_SHARE
 
     def _start(self) -> None:
         g, q, absq, fr, depth = self._evaluate_start()
@@ -952,6 +982,8 @@ class Run:
         if carried is not None:
             carried, near = carried
             probe &= near
+            if np.asarray(self._start_partition.get("audited", 0)).ravel()[:1].tolist() == [1] and not carried.any():
+                self.checks["warm_audit"] = 1            # the start passed its audit, smooth (see partition)
             wary = np.asarray(self._start_partition.get("wary", ()), np.float64)
             if wary.shape == (3,) and np.all(np.isfinite(wary)) and np.all(wary >= 0):
                 self.checks["wary_splits"] = int(wary[0])
@@ -1303,7 +1335,7 @@ class Run:
         failed = min(int(self.checks.get("audit_failed", 0)), AUDIT_GROWTH)
         share = 1.0 - (1.0 - AUDIT_VALUE_SHARE) / 2 ** failed
         want = int(np.searchsorted(cum, share * cum[-1], side="left")) + 1 if cum[-1] > 0 else 1
-        cap = max(AUDIT_MIN, int(AUDIT_COST * 2 ** failed * self.evaluations) // per)
+        cap = max(AUDIT_MIN, int(AUDIT_COST * self._warm_audit_share() * 2 ** failed * self.evaluations) // per)
         k = max(1, min(want, cap, int(afford), order.size))
         # besides the regions holding most of the value, those with a non-smooth signature holding most error:
         # their estimates are the least certain (up to half of the sample)
@@ -1397,6 +1429,9 @@ class Run:
             ``"passed"``, ``"failed, refining"``, ``"not run"`` or why impossible.
         audits, audit_regions, audit_evaluations : int
             Audits done, regions they split, evaluations they cost.
+        audit_reduced : int
+            Only for a warm start (scans) whose start partition passed its own audit, smooth: audits
+            that took :data:`WARM_AUDIT_SHARE` of the usual sample (absent otherwise).
         splits : int
             Splits done (each one compares the parent with its children).
         disagreed : int
@@ -1424,6 +1459,8 @@ class Run:
                "disagreed": int(c["disagreed"]), "lower_closer": int(c["lower_closer"]),
                "flagged_regions": 0, "flagged_error_share": 0.0, "smooth": True, "worst": [],
                "note": "error estimates are heuristic, not guaranteed bounds"}
+        if c.get("audit_reduced"):
+            out["audit_reduced"] = int(c["audit_reduced"])
         if self.store is None:
             return out
         fl, e = self._flagged()

@@ -438,6 +438,8 @@ def coarsen(part: dict, error: np.ndarray, lower: np.ndarray, upper: np.ndarray,
         out["flags"] = fl
     if "wary" in part:
         out["wary"] = np.asarray(part["wary"], np.float64).copy()
+    if "audited" in part:
+        out["audited"] = np.asarray(part["audited"]).copy()
     return out
 
 
@@ -534,6 +536,8 @@ def _refine_ahead(run: Run, part: dict, err: np.ndarray, trend: np.ndarray, star
         out["flags"] = np.concatenate([part["flags"][~pick], np.tile(part["flags"][idx], nch)]).astype(np.uint8)
     if "wary" in part:
         out["wary"] = part["wary"]
+    if "audited" in part:
+        out["audited"] = part["audited"]
     return (out, np.concatenate([err[~pick], np.full(nch * len(idx), np.nan)]),
             np.concatenate([trend[~pick], np.full(nch * len(idx), np.nan)]),
             None if checked is None else np.concatenate([checked[~pick], np.zeros(nch * len(idx), bool)]))
