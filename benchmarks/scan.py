@@ -150,9 +150,10 @@ def main() -> None:
             kink, kink_exact, {"c": np.linspace(0.1, 0.9, n)}, 1e-6)
     print(f"\ntargets: smooth warm/cold <= 0.5 (measured {r1:.3f}; through a zero {r0:.3f}); "
           f"moving <= 0.8 (measured {r2:.3f})")
-    print("  (a cold run evaluates 2N - 1 regions to end with N; a warm one at least the N it ends with, so\n"
-          "   0.5 is the floor of reuse when neighbouring points need the same partition, and a scan growing\n"
-          "   harder along its path pays twice for every region it adds)")
+    print("  (a cold run evaluates 2N - 1 regions to end with N, and audits; a warm one at least the N it ends\n"
+          "   with, so about 0.5 is the floor of reuse when neighbouring points need the same partition, and a\n"
+          "   scan growing harder along its path pays twice for every region it adds; below it, a warm point\n"
+          "   audits half the usual sample when its start passed its own audit smooth and it shows no signature)")
 
     cheap = lambda X, a: np.exp(-a * (X**2).sum(axis=1))
     grid = {"a": np.linspace(0.1, 5.0, 200)}

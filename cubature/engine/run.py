@@ -930,7 +930,8 @@ class Run:
     def _carried(self, g: dict, n: int) -> tuple[np.ndarray, np.ndarray] | None:
         """Warm start (issue 14 item 3): what the ``n`` start regions ``g`` carry from the run they come
         from (None when the start carries no flags): which had a non-smooth signature there, and which
-        had one, were children of one (``FLAG_WARY``) or touch such a region.
+        had one, were children of one (``FLAG_WARY``, unless their own vertex probes agreed there:
+        ``FLAG_PROBED``) or touch such a region.
 
         A warm start carries what its predecessor measured at nearby constants: the regions with a
         signature join the wary class (as a child of a non-smooth region does), and the class's learnt
@@ -939,7 +940,10 @@ class Run:
         regions and their neighbours (boxes sharing a face, edge or corner, found conservatively by
         :func:`touching`) are probed: on a kink
         moving along x, probing only the regions with a signature doubled the silent wrong answers,
-        and probing these ones left as few as probing every region.  Regions far from any signature
+        and probing these ones left as few as probing every region.  A wary child whose own probes
+        cleared it showed no feature at its scale (the feature sits in a sibling with a signature of its
+        own): its neighbourhood is not probed for it (smooth scan of ``benchmarks/scan.py``: warm/cold
+        0.532 -> 0.517; the moving kink's points kept their honesty).  Regions far from any signature
         are not probed again (a cold run does not probe the children of smooth regions either); the
         split check and the audit still apply to them.
         """

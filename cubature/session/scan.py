@@ -53,27 +53,32 @@ with the same checks as a cold one.  Error estimates are heuristic, not bounds.
 
 Where the warm start's evaluations go (``benchmarks/scan.py``, full scans, a
 shared 2-core machine; fractions of the cold scan's evaluations): a cold run
-evaluates about 2N regions to end with N, a warm one at least the N it ends
-with, so 1/2 is the floor of reuse.  Smooth scan (growing harder along its
-path): start partitions 0.46, refinement 0.05, audits 0.02 (0.54 in all; no
-sibling pair of a converged partition there could be merged without the merged
-box exceeding the error level the partition was refined to, but the pairs an
-audit split only to check are merged back -- kept, they piled up along the
-chain: 0.61).  Through a zero: 0.45, 0.14, 0.03 (0.62).  Moving peak: 0.62,
-0.08, 0.03 (0.75).  Merging pays only where the integrand got easier (a
-feature moving away, a goal loosening after a zero of the value).  The start
-partitions include the vertex probes of the regions next to the neighbour's
-signatures (``Run._carried``; without them 0.52 / 0.61 / 0.68, but a moving
-kink was missed).
+evaluates about 2N regions to end with N (2.09 N on the smooth scan, with its
+audit), a warm one at least the N it ends with, so about 1/2 is the floor of
+reuse.  Smooth scan (growing harder along its path): start partitions 0.43,
+refinement 0.05, audits 0.01 (0.49 in all; no sibling pair of a converged
+partition there could be merged without the merged box exceeding the error
+level the partition was refined to, but the pairs an audit split only to check
+are merged back -- kept, they piled up along the chain: 0.61).  Through a
+zero: 0.44, 0.14, 0.02 (0.60).  Moving peak: 0.55, 0.07, 0.02 (0.66).  Merging
+pays only where the integrand got easier (a feature moving away, a goal
+loosening after a zero of the value).  What brought the smooth scan under 1/2
+is the cheaper audit below (0.517 with the whole sample, 0.491 with half).
 
 What a warm start carries over (``Run.partition()`` -> ``Run(start=...)``):
-the regions' signature flags and the learnt wary-class counters.  Start
-regions that were non-smooth at the neighbour's constants join the wary class
-(as children of such regions do in a cold run); they, their wary children and
-the regions touching them get vertex probes (a moving feature moves into
-them); regions far from any signature are not probed again (a cold run does
-not probe children of smooth regions either).  The split check and the audit
-apply as usual.
+the regions' signature flags, the learnt wary-class counters and whether the
+partition passed its audit with no non-smooth signature.  Start regions that
+were non-smooth at the neighbour's constants join the wary class (as children
+of such regions do in a cold run); they, the wary children whose own vertex
+probes did not clear them, and the regions touching either get vertex probes
+(a moving feature moves into them); regions far from any signature are not
+probed again (a cold run does not probe children of smooth regions either).
+The split check applies as usual, and so does the audit, with one exception:
+a point that started from a partition which passed its audit smooth, and that
+shows no signature itself (no split disagreeing with its parent or won by the
+lower-degree rule, no flagged region, no failed audit), audits
+``WARM_AUDIT_SHARE`` (half) of the usual sample -- the regions holding the
+most value, as always; its trust report says ``audit_reduced``.
 
 Checkpoints (run directories)
 -----------------------------
@@ -141,7 +146,10 @@ REFINE_AHEAD = 0.5
 #: back: growth 32: 0.53; 0.64; 0.67; kink 1.33 -- growth 64: 0.52; 0.65; 0.68; kink 1.50 -- FALL_BELOW
 #: 0.7 (chosen): 0.52; 0.61; 0.68 -- FALL_BELOW 0.4: 0.53; 0.60; 0.73 -- REFINE_AHEAD 0, 0.25, 0.5
 #: (chosen), 1 on the smooth scan: 0.54; 0.53; 0.53; 0.55.  With the warm start's probes of the
-#: regions next to a signature (for honesty, Run._carried): 0.54; 0.62; 0.75.)
+#: regions next to a signature (for honesty, Run._carried): 0.54; 0.62; 0.75.  Not probing around wary regions
+#: their own probes cleared: 0.517; 0.602; 0.658 -- with the warm audit share (Run._warm_audit_share): 0.491;
+#: 0.600; 0.658 -- and then REFINE_AHEAD 0.75 or 1 (largest errors, or errors times trends) on the smooth scan:
+#: 0.492 to 0.514; counting only the splits that were not the audit's: 0.491.)
 
 #: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
 LIVE_INTERVAL = 1.0
