@@ -363,3 +363,65 @@ def test_a_points_own_evaluation_in_parallel_gives_the_same_table():
     assert _strip(par.points) == _strip(here.points) and here.converged
     with pytest.raises(ValueError, match="workers=1"):
         cubage.scan(f, dom, grid, evaluator=lambda g, X: g(X), workers=2)
+
+
+# --------------------------------------------------------------------------
+# declared features that do not fit the domain at one scan point
+# --------------------------------------------------------------------------
+
+_MISFIT = """
+[domain]
+variables = ["x", "y"]
+box = {box}
+[integrand]
+expr = "{expr}"
+constants = {{ c = {c0} }}
+[goal]
+rel_tol = 1e-6
+[features]
+{features}
+[scan]
+c = {values}
+"""
+
+
+@pytest.mark.parametrize("box,expr,c0,features,values,words", [
+    # slanted at c = 1 on an unbounded box (axis-parallel, a break value, at the file's own c = 0)
+    ("[[0, inf], [0, inf]]", "exp(-x-y) / sqrt(abs(x + c*y - 0.5))", "0.0",
+     'singular = [{ plane = "x + c*y = 0.5", power = -0.5 }]', "[0.0, 0.5, 1.0]",
+     "at scan point c = 0.5: cut planes and slanted singular planes need a bounded box"),
+    # no variable left at c = 0
+    ("[[0, 1], [0, 1]]", "abs(x - 0.5) * exp(y)", "1.0", 'cuts = ["c*x = 0.5"]', "[1.0, 2.0, 0.0]",
+     "at scan point c = 0: 'c*x = 0.5' does not involve any variable"),
+])
+def test_declared_feature_that_misfits_one_scan_point_is_a_one_line_error(tmp_path, capsys, box, expr, c0,
+                                                                          features, values, words):
+    """issue 14 item 1 with issue 13's [features] (a point whose declared feature did not fit the domain
+    ended `failed` with a bare engine message after the points before it had run): the file is refused up
+    front with one line naming the key and the scan point, exit 2."""
+    f = tmp_path / "misfit.toml"
+    f.write_text(_MISFIT.format(box=box, expr=expr, c0=c0, features=features, values=values))
+    with pytest.raises(ProblemError) as e:
+        load_problem(f)
+    assert words in str(e.value) and "\n" not in str(e.value) and "[features]" in str(e.value)
+    capsys.readouterr()
+    assert main(["run", str(f)]) == 2
+    err = capsys.readouterr().err
+    assert words in err and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+
+
+def test_point_whose_features_misfit_is_failed_with_a_message_naming_it():
+    """issue 14 (the scan API, where no problem file was checked): a point whose declared cut does not
+    fit the domain at its constants ends `failed` with a message naming its constants and why; the other
+    points integrate |x - 1/2| e^y on the unit square to (e - 1)/4 (elementary) within their errors."""
+    spec = {"source": "abs(x - 0.5) * exp(y)", "variables": ["x", "y"], "constants": {"c": 1.0}}
+    src = ExprSource(spec, "misfit-test", align="declared", feature_table={"cuts": ["c*x = 0.5"]})
+    res = run_scan(src, cubage.Box([0, 0], [1, 1]), cubage.session.scan.grid_from_mapping({"c": [1.0, 0.0, 2.0]}),
+                   {"rel_tol": 1e-8})
+    bad = res.points[1]
+    assert bad.status == "failed" and bad.evaluations == 0 and math.isnan(bad.value)
+    assert "c = 0" in bad.message and "does not involve any variable" in bad.message
+    assert "not integrated" in bad.message
+    for p in (res.points[0], res.points[2]):
+        assert p.converged and abs(p.value - (math.e - 1) / 4) <= p.error
+    assert not res.converged

@@ -753,6 +753,52 @@ def parse_feature_table(tbl: dict, variables: list[str], constants: dict | None 
     return out, []
 
 
+#: Most combinations of scanned constants whose declared features :func:`scan_misfit` reads up front.
+SCAN_CHECK_LIMIT = 10_000
+
+
+def declared_misfit(table: dict, variables: list[str], constants: dict, domain) -> tuple[str | None, str] | None:
+    """Why the declared ``[features]`` table, read with ``constants``, does not fit ``domain``: a
+    ``(key, message)`` pair, or None when it fits.  The checks :func:`problem_features` makes at the
+    file's own constants."""
+    from cubage.engine.partition import FeatureError, needs_simplices, normalise
+    declared, errors = parse_feature_table(dict(table), variables, constants)
+    if errors:
+        return errors[0]
+    try:
+        normalise(domain, **declared)
+    except FeatureError as exc:
+        return None, str(exc)
+    if needs_simplices(domain, declared.get("cuts"), declared.get("singular")) and isinstance(domain, Box) \
+            and not domain.bounded:
+        return ("cuts" if declared.get("cuts") else "singular",
+                "cut planes and slanted singular planes need a bounded box (infinite axes take break values only)")
+    return None
+
+
+def scan_misfit(table: dict, variables: list[str], constants: dict, grid, domain) -> tuple[str | None, str] | None:
+    """The first point of a scan (issue 14) at which the declared ``[features]`` table does not fit the
+    domain (:func:`declared_misfit` at that point's constants): ``(key, message)`` naming the point, or
+    None.  Only the scanned constants the table's plane equations mention are varied (break values and
+    singular points are numbers); beyond :data:`SCAN_CHECK_LIMIT` combinations of them nothing is
+    checked here, and such a point ends ``failed`` with the same message when it runs."""
+    import re
+    text = repr([table.get("cuts"), table.get("singular")])
+    names = [n for n in grid.names if re.search(rf"(?<![A-Za-z0-9_]){re.escape(n)}(?![A-Za-z0-9_])", text)]
+    if not names:
+        return None
+    axes = [np.unique(np.asarray(grid.axes[grid.names.index(n)], float)) for n in names]
+    if math.prod(len(a) for a in axes) > SCAN_CHECK_LIMIT:
+        return None
+    for values in itertools.product(*axes):
+        point = dict(zip(names, (float(v) for v in values)))
+        why = declared_misfit(table, variables, {**constants, **point}, domain)
+        if why is not None:
+            where = ", ".join(f"{n} = {v:.10g}" for n, v in point.items())
+            return why[0], f"at scan point {where}: {why[1]} (declared features must fit every point of the scan)"
+    return None
+
+
 def merge(declared: dict, detected: dict) -> dict:
     """Declared and detected engine keywords together (the engine removes duplicates)."""
     out: dict = {}

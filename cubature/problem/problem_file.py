@@ -745,6 +745,12 @@ def _read_spec(ctx: _Ctx, text: str, pstr: str | None) -> ProblemSpec:
     kind_spec = {"kind": "expr" if expr is not None else "python", "constants": constants}
     scan = _parse_scan(ctx, data["scan"], kind_spec) if "scan" in data else None
     features, feature_lines = _parse_features(ctx, tables, {**kind_spec, "source": expr}, variables, domain)
+    if scan is not None and isinstance(tables.get("features"), dict) \
+            and tables.get("method", {}).get("align", "auto") != "off":
+        from cubage.problem.features import scan_misfit
+        why = scan_misfit(tables["features"], list(variables), constants or {}, scan, domain)
+        if why is not None:
+            raise ctx.error("features", why[0], why[1])
     return ProblemSpec(path=Path(pstr) if pstr is not None else None, text=text, title=title, notes=notes,
                        variables=tuple(variables), domain=domain, expr=expr, python=python, base_dir=base_dir,
                        constants=constants, components=components, goal=goal, method=method,

@@ -719,7 +719,7 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
     except ValueError as exc:
         nan = math.nan
         return PointResult(job.index, job.constants, nan, nan, 0, 0, "failed", 0.0, None,
-                           f"features at this point: {exc}"), None, False
+                           _misfit_message(job.constants, exc)), None, False
     fkey = _features_key(feats)
     if job.start is not None and not np.array_equal(np.asarray(job.start.get("features_key", _features_key({}))),
                                                     fkey):
@@ -738,7 +738,7 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
         except ValueError as exc:
             nan = math.nan
             return PointResult(job.index, job.constants, nan, nan, 0, 0, "failed", 0.0, None,
-                               f"features at this point: {exc}"), None, False
+                               _misfit_message(job.constants, exc)), None, False
     last_ck = time.monotonic()
     last_poll = 0.0
     last_live = -math.inf
@@ -779,6 +779,13 @@ def _solve(job: _Job, stop_event: threading.Event | None = None, observer: Calla
     pr = PointResult(job.index, job.constants, res.value, res.error, res.evaluations, res.regions, res.status,
                      res.seconds, job.warm_from, res.message, _trust(res))
     return pr, seed, False
+
+
+def _misfit_message(constants: dict, exc: Exception) -> str:
+    """The message of a point whose features do not fit the domain at its constants (it is not integrated)."""
+    where = ", ".join(f"{n} = {float(v):.10g}" for n, v in constants.items())
+    return (f"not integrated: the features at {where} do not fit the domain ({exc}); declare features that fit "
+            "every point of the scan")
 
 
 def _features_key(feats: dict) -> np.ndarray:
