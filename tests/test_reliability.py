@@ -344,3 +344,21 @@ def test_kink_across_the_middle_of_a_gauss_kronrod_box_2d(a, u, tol):
                            raise_on_failure=False)
     _honest(res, exact, tol)
     assert abs(res.value - exact) <= res.error
+
+
+def test_audit_cut_short_by_the_budget_cannot_pass_after_a_failure_3d():
+    """Issue 12 target "no silent wrong answer" (Genz's C0 family, 3-D, seed 8329 draw 5, 1e-6): the kink in x sits
+    2 % of a region's width from the face x = 0.125 of every region [0.125, 0.25] x ..., whose splits along y and z
+    measure nothing of it.  Seven audits failed; the eighth, with the budget nearly spent, could afford one region,
+    found nothing and passed: converged with 7.7e-8 true against 1.1e-8 reported.  Now an audit after a failure
+    needs its full sample, and a run that ends without passing one reports what the last audit extrapolated.
+    Closed form: product of the 1-D integrals of exp(-a|x - u|) (Genz 1984; cubage.bench.genz_families.exact)."""
+    a = np.array([2.177409635709675, 9.609701671541098, 8.612888692749229])
+    u = np.array([0.12753609169709523, 0.49205756061536665, 0.3994801755296057])
+    exact = genz.exact("c0", a, u)
+    res = cubage.integrate(genz.integrand("c0", a, u), cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6,
+                           budget=2_000_000, raise_on_failure=False)
+    _honest(res, exact, 1e-6)
+    assert abs(res.value - exact) <= res.error
+    if not res.converged:
+        assert res.message                                  # says why it stopped short

@@ -1340,6 +1340,13 @@ class Run:
         share = 1.0 - (1.0 - AUDIT_VALUE_SHARE) / 2 ** failed
         want = int(np.searchsorted(cum, share * cum[-1], side="left")) + 1 if cum[-1] > 0 else 1
         cap = max(AUDIT_MIN, int(AUDIT_COST * self._warm_audit_share() * 2 ** failed * self.evaluations) // per)
+        if self.checks.get("audit_failed", 0) and afford < min(want, cap, order.size):
+            # after a failed audit, a sample cut short by the budget cannot pass: a one-region sample at the end
+            # of the budget passed after seven failures (Genz C0, 3-D, converged 7x beyond its reported error)
+            self.message = ("the error estimate met the goal, but an earlier audit found error the estimates had "
+                            "missed and the budget left cannot pay for a full audit; raise the budget to complete "
+                            "the check")
+            return "budget-spent"
         k = max(1, min(want, cap, int(afford), order.size))
         # besides the regions holding most of the value, those with a non-smooth signature holding most error:
         # their estimates are the least certain (up to half of the sample)
@@ -1391,6 +1398,8 @@ class Run:
         c["audit"] = "passed" if self._audit_ok else "failed, refining"
         if not self._audit_ok:
             c["audit_failed"] = int(c.get("audit_failed", 0)) + 1
+        # what the last failed audit extrapolated: part of the error of a run that ends before passing one
+        c["audit_hidden"] = [0.0] * self.m if self._audit_ok else [float(v) for v in hidden]
         return None
 
     def _depth_add(self, depth: np.ndarray, key: np.ndarray) -> None:
@@ -1526,6 +1535,8 @@ class Run:
                               self.elapsed(), 0, self.rule_name, self.message, v, v, self.trust())
             vals = self.store["value"].sum(axis=0)
             errs = np.maximum(self.store["error"].sum(axis=0), self._trend())
+            if self.done and self.status != "converged" and "audit_hidden" in self.checks:
+                errs = np.maximum(errs, np.asarray(self.checks["audit_hidden"], dtype=float))
             status = self.status if self.done else ("paused" if self.paused else "running")
             scalar = self.m == 1
             return Result(float(vals[0]) if scalar else vals.copy(), float(errs[0]) if scalar else errs.copy(),
