@@ -128,7 +128,9 @@ measurements that subdivision produces anyway, and corrects it:
    (their error estimates are the least certain; at most 5 % of the evaluations so far, 10 % after a failed audit) are
    split: 2-D boxes along both axes (a bisection measures only the error
    along its own axis: split parallel to a kink, ``D`` is 0), other boxes
-   along the widest axis other than the rule's.  What each audited parent's
+   along the widest axis other than the rule's; the region with the largest
+   error estimate joins every sample of two or more, split along the rule's
+   axis (where its error comes from).  What each audited parent's
    estimate missed (``D`` beyond it), extrapolated to the whole partition by
    value share, must fit in the goal, or the run goes on refining and
    audits again.
