@@ -240,3 +240,15 @@ def test_probe_quiet_where_log_f_is_smooth_and_loud_on_a_kink_of_a_positive_func
     floor, dev = E.probe_errors(f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
     assert dev[0]
 
+
+def test_trend_floor_on_a_power_law_sampled_at_uneven_points():
+    """Issue 12 item 7 (the 3-D Dirichlet case, x^-1/2 on every face of a simplex): a value converging like
+    V(N) = V - C N^-0.2 (slow, as next to face singularities) has remaining error C N^-0.2, and the geometric tail
+    of the changes per doubling, Delta rho / (1 - rho) with rho = 2^-0.2, is exactly that (sum of a geometric
+    series).  The history points lie where steps ended, not at doublings: the run's points 193375, 468195, 992355,
+    1999935 gave a floor 1.5x too small when the changes were not taken per doubling."""
+    evals = np.array([1000.0, 5000.0, 20000.0, 60000.0, 193375.0, 468195.0, 992355.0, 1999935.0])
+    values = (1.0 - 5.0 * evals ** -0.2)[:, None]
+    remaining = 5.0 * evals[-1] ** -0.2
+    floor = E.trend_floor(evals, values)[0]
+    assert 0.85 * remaining <= floor <= 1.5 * remaining
