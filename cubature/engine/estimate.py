@@ -651,16 +651,20 @@ def trend_floor(evals: np.ndarray, values: np.ndarray) -> np.ndarray:
     if pos[0] < 0 or len({*pos, evals.size - 1}) < 4:
         return out
     v = values[pos + [evals.size - 1]]
-    # Δ0, Δ1, Δ2 per doubling: the history points lie where the steps ended, not at exact doublings (the 3-D
-    # Dirichlet case's Δ0 spanned 2.4 doublings and Δ2 one: ratio 0.80 instead of 0.86, a tail 1.5x too short)
+    raw = np.abs(np.diff(v, axis=0))                  # Δ0, Δ1, Δ2
+    # and per doubling: the history points lie where the steps ended, not at exact doublings (the 3-D Dirichlet
+    # case's Δ0 spanned 2.4 doublings and Δ2 one: ratio 0.80 instead of 0.86, a tail 1.5x too short); the slower
+    # reading of the two is used
     span = np.diff(np.log2(evals[pos + [evals.size - 1]].astype(float)))
-    d = np.abs(np.diff(v, axis=0)) / span[:, None]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        r1 = np.where(d[0] > 0, d[1] / d[0], 0.0)
-        r2 = np.where(d[1] > 0, d[2] / d[1], 0.0)
-    slow = (r1 > TREND_SLOW) & (r2 > TREND_SLOW)
-    rho = np.minimum(np.maximum(r1, r2), TREND_CAP)    # the slower of the two: the tail of N^-a is not geometric
-    return np.where(slow, d[2] * rho / (1.0 - rho), 0.0)
+    floor = out
+    for d in (raw, raw / span[:, None]):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            r1 = np.where(d[0] > 0, d[1] / d[0], 0.0)
+            r2 = np.where(d[1] > 0, d[2] / d[1], 0.0)
+        slow = (r1 > TREND_SLOW) & (r2 > TREND_SLOW)
+        rho = np.minimum(np.maximum(r1, r2), TREND_CAP)    # the slower of the two: the tail of N^-a is not geometric
+        floor = np.maximum(floor, np.where(slow, d[2] * rho / (1.0 - rho), 0.0))
+    return floor
 
 
 def axis_kink_errors(f_nodes: np.ndarray, nodes_1d: np.ndarray, weights_1d: np.ndarray, volume: np.ndarray,
