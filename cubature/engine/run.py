@@ -995,7 +995,9 @@ class Run:
                 self.checks["wary_estimated"] = float(wary[2])
         self.m = q.shape[2]
         self.checks["f_scale"] = [float(v) for v in np.abs(fr).max(axis=(0, 1))]
-        pv = self._probe_values(g, probe)
+        # carried regions are probed for the reason a cold run probes the children of a non-smooth region:
+        # they get the same second probe per vertex (a feature moving into one may sit near its face)
+        pv = self._probe_values(g, probe, mid=carried is not None)
         raw = self._errors(q, absq)
         floor, deviates, steer = self._probe_floor(g, fr, pv, probe)
         err = np.maximum(raw, floor)
