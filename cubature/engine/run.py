@@ -938,7 +938,8 @@ class Run:
         factor (the predecessor's counters) applies to their children from the first split.  A feature
         that moves with the scanned constant moves into the regions next to where it was, so those
         regions and their neighbours (boxes sharing a face, edge or corner, found conservatively by
-        :func:`touching`) are probed: on a kink
+        :func:`touching`) are probed, with the second probe per vertex that a cold run gives the children
+        of a non-smooth region (a kink just inside a carried region's face escaped the first): on a kink
         moving along x, probing only the regions with a signature doubled the silent wrong answers,
         and probing these ones left as few as probing every region.  A wary child whose own probes
         cleared it showed no feature at its scale (the feature sits in a sibling with a signature of its

@@ -60,7 +60,7 @@ refinement 0.05, audits 0.01 (0.49 in all; no sibling pair of a converged
 partition there could be merged without the merged box exceeding the error
 level the partition was refined to, but the pairs an audit split only to check
 are merged back -- kept, they piled up along the chain: 0.61).  Through a
-zero: 0.44, 0.14, 0.02 (0.60).  Moving peak: 0.55, 0.07, 0.02 (0.66).  Merging
+zero: 0.45, 0.14, 0.02 (0.60).  Moving peak: 0.58, 0.08, 0.03 (0.69).  Merging
 pays only where the integrand got easier (a feature moving away, a goal
 loosening after a zero of the value).  What brought the smooth scan under 1/2
 is the cheaper audit below (0.517 with the whole sample, 0.491 with half).
@@ -70,8 +70,9 @@ the regions' signature flags, the learnt wary-class counters and whether the
 partition passed its audit with no non-smooth signature.  Start regions that
 were non-smooth at the neighbour's constants join the wary class (as children
 of such regions do in a cold run); they, the wary children whose own vertex
-probes did not clear them, and the regions touching either get vertex probes
-(a moving feature moves into them); regions far from any signature are not
+probes did not clear them, and the regions touching either get vertex probes,
+two per vertex as the children of a non-smooth region get in a cold run (a
+moving feature moves into them, and may sit just inside a face); regions far from any signature are not
 probed again (a cold run does not probe children of smooth regions either).
 The split check applies as usual, and so does the audit, with one exception:
 a point that started from a partition which passed its audit smooth, and that
@@ -149,7 +150,9 @@ REFINE_AHEAD = 0.5
 #: regions next to a signature (for honesty, Run._carried): 0.54; 0.62; 0.75.  Not probing around wary regions
 #: their own probes cleared: 0.517; 0.602; 0.658 -- with the warm audit share (Run._warm_audit_share): 0.491;
 #: 0.600; 0.658 -- and then REFINE_AHEAD 0.75 or 1 (largest errors, or errors times trends) on the smooth scan:
-#: 0.492 to 0.514; counting only the splits that were not the audit's: 0.491.)
+#: 0.492 to 0.514; counting only the splits that were not the audit's: 0.491.  After the probes' log|f| check,
+#: with the second probe per vertex at a warm start (for honesty: a moving kink claimed convergence 30x off
+#: without it): 0.492; 0.604; 0.693; kink 0.76.)
 
 #: Seconds between updates of a current point's live file (``scan-live-<chain>.json``).
 LIVE_INTERVAL = 1.0
