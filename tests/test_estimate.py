@@ -252,3 +252,19 @@ def test_trend_floor_on_a_power_law_sampled_at_uneven_points():
     remaining = 5.0 * evals[-1] ** -0.2
     floor = E.trend_floor(evals, values)[0]
     assert 0.85 * remaining <= floor <= 1.5 * remaining
+
+
+def test_trend_floor_when_the_changes_grow():
+    """Issue 12 (smooth cost): only changes that shrink or stay level form a geometric tail.  Changes per
+    doubling of 1e-8, 2e-8 and 1e-7 (ratios 2 and 5) are no tail: the floor is the last change, 1e-7 (it used
+    to be 19 times that, the cap 0.95 / 0.05, and held a smooth 6-D run back to twice the evaluations it
+    needed).  Changes of 1e-8, 8e-9, 1.6e-8 (ratios 0.8 and 2): the shrinking one, 0.8, gives
+    1.6e-8 * 0.8 / 0.2 (geometric series, by hand)."""
+    evals = 100.0 * 2.0 ** np.arange(4)
+    grow = np.cumsum([1.0, 1e-8, 2e-8, 1e-7])[:, None]
+    assert E.trend_floor(evals, grow)[0] == pytest.approx(1e-7, rel=1e-6)
+    mixed = np.cumsum([1.0, 1e-8, 8e-9, 1.6e-8])[:, None]
+    assert E.trend_floor(evals, mixed)[0] == pytest.approx(1.6e-8 * 0.8 / 0.2, rel=1e-6)
+    # ratios 1.1 and 0.8: level changes are slow convergence (a face singularity's), the cap 0.95 applies
+    level = np.cumsum([1.0, 1e-8, 1.1e-8, 8.8e-9])[:, None]
+    assert E.trend_floor(evals, level)[0] == pytest.approx(8.8e-9 * 0.95 / 0.05, rel=1e-6)

@@ -256,6 +256,9 @@ PROBE_CURVATURE = 0.25
 WARY_MIN_SPLITS = 16
 #: the convergence trend is "slow" when the value's change per doubling of evaluations shrinks by less than this
 TREND_SLOW = 0.5
+#: ratios of successive changes up to this count as slow convergence (noise around 1); larger ones, changes that
+#: grew, are no geometric tail (:func:`trend_floor`)
+TREND_GROW = 1.25
 #: largest ratio of successive changes used to extrapolate the remaining error (a ratio of 0.95 gives 19x)
 TREND_CAP = 0.95
 #: a region "looks resolved" (and its vertices are probed when its parent showed a non-smooth signature, or
@@ -626,9 +629,12 @@ def trend_floor(evals: np.ndarray, values: np.ndarray) -> np.ndarray:
     value converges slowly, as next to singularities and kinks where
     splitting a region barely reduces its error, so each split's
     parent/children discrepancy understates the error), the remaining error
-    of a geometric tail ``Δ2 ρ / (1 - ρ)`` with ``ρ = min(max(Δ1/Δ0, Δ2/Δ1), TREND_CAP)``
-    is a floor for the total error estimate.  Fast (smooth) convergence
-    gives no floor.
+    of a geometric tail ``Δ2 ρ / (1 - ρ)`` is a floor for the total error
+    estimate, with ``ρ`` the larger of the two ratios that do not exceed
+    :data:`TREND_GROW` (changes that shrink, or stay level), at most
+    :data:`TREND_CAP`; where both changes grew beyond that (no tail to
+    extrapolate), the floor is the last change ``Δ2`` itself.  Fast (smooth)
+    convergence gives no floor.
 
     Parameters
     ----------
@@ -662,8 +668,16 @@ def trend_floor(evals: np.ndarray, values: np.ndarray) -> np.ndarray:
             r1 = np.where(d[0] > 0, d[1] / d[0], 0.0)
             r2 = np.where(d[1] > 0, d[2] / d[1], 0.0)
         slow = (r1 > TREND_SLOW) & (r2 > TREND_SLOW)
-        rho = np.minimum(np.maximum(r1, r2), TREND_CAP)    # the slower of the two: the tail of N^-a is not geometric
-        floor = np.maximum(floor, np.where(slow, d[2] * rho / (1.0 - rho), 0.0))
+        # the slower of the ratios that show slow convergence (<= TREND_GROW): the tail of N^-a is not geometric.
+        # A ratio well above 1 (the value moved much more in the later doubling) is no tail: an adaptive run's
+        # value often stays put for a while and then moves by about its earlier error (a smooth 6-D product peak
+        # at 1e-6 refined to 2x the evaluations it needed on ratios of 1.5-9, capped at TREND_CAP: 19 times the
+        # last change); next to face singularities the ratios hover around 1 (the 3-D Dirichlet case: 1.01, 0.81)
+        c1 = np.where(r1 <= TREND_GROW, r1, 0.0)
+        c2 = np.where(r2 <= TREND_GROW, r2, 0.0)
+        rho = np.minimum(np.maximum(c1, c2), TREND_CAP)
+        tail = np.where(rho > 0, d[2] * rho / (1.0 - rho), d[2])    # neither converges: the last change itself
+        floor = np.maximum(floor, np.where(slow, tail, 0.0))
     return floor
 
 
