@@ -376,3 +376,29 @@ def test_audit_cut_short_by_the_budget_cannot_pass_after_a_failure_3d():
     assert abs(res.value - exact) <= res.error
     if not res.converged:
         assert res.message                                  # says why it stopped short
+
+
+def test_non_asymptotic_signature_must_show_in_log_f_too():
+    """Issue 12 (smooth cost): a coarse Genz-Malik region of a narrow peak or a Gaussian fails the ratio test in f
+    (|q7 - q5| > RATIO_LIMIT |q5 - q3|), and every such region had its resolved children probed, twice per vertex;
+    its logarithm is smooth (a Gaussian's is a quadratic, integrated exactly by all three rules, Genz & Malik
+    1980), so the region is not flagged.  A kink of a positive function crossing the region is one of log f: still
+    flagged; so is a sign-changing function (no logarithm), judged on f alone."""
+    box = cubage.Box([0] * 3, [1] * 3)
+
+    def flagged(f, lo=(0, 0, 0), hi=(1, 1, 1)):
+        run = cubage.Run(f, box)
+        run.m = 1
+        g = run.geometry.root()
+        g["centre"][:] = (np.array(lo) + np.array(hi)) / 2
+        g["halfw"][:] = (np.array(hi) - np.array(lo)) / 2
+        q, absq, fr = run._evaluate(g)
+        return bool(run._non_asymptotic(q, absq)[0]), bool(run._non_asymptotic(q, absq, g, fr)[0])
+
+    gauss = lambda X: np.exp(-25 * ((X - 0.3) ** 2).sum(axis=1))
+    assert flagged(gauss) == (True, False)                          # f alone flags it; log f clears it
+    peak = lambda X: np.prod(1.0 / (0.01 + (X - 0.4) ** 2), axis=1)   # Genz's product peak
+    assert flagged(peak) == (True, False)
+    kink = lambda X: np.exp(-8 * np.abs(X[:, 0] - 0.37) - X[:, 1])     # Genz's C0 family: a kink at x = 0.37
+    assert flagged(kink) == (True, True)
+    assert flagged(lambda X: gauss(X) - 0.5) == (True, True)

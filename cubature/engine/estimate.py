@@ -230,6 +230,9 @@ CALIBRATION_LIMIT = 1e3
 #: jump or kink crossing a box always separates some vertex from the centre, however close to a face it lies; a
 #: jump exactly on a face, as on a declared break or at x < 0.5, is not mistaken for one inside)
 PROBE_POSITION = 1.0 - 2.0 ** -20
+#: the non-asymptotic signature of a region whose values share one sign must show in log|f| too, with this ratio
+#: limit (:func:`non_asymptotic`)
+LOG_RATIO_LIMIT = 0.1
 #: a probe value above this many times the magnitude of the integrand on the region's nodes (and on the first
 #: region's) is clipped to it: a singularity at the vertex says nothing about the region's error beyond that, but
 #: dropping such values hid thin layers along faces (exp(-xy) on [0, 1e6] x [0, 1] converged 34 % off)
@@ -302,14 +305,25 @@ def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: n
     return np.maximum(err, ROUNDING * absq)
 
 
-def non_asymptotic(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: np.ndarray) -> np.ndarray:
+def non_asymptotic(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: np.ndarray,
+                   log_rules: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """Regions whose rule differences do not shrink with degree (per region, any component).
 
     The signature is ``|q7 - q5| > RATIO_LIMIT * |q5 - q3|`` with ``|q7 - q5|``
     above rounding: the sharp estimate then already falls back to the plain
     ``|q7 - q5|`` (it never scales such a region's estimate down); the flag
-    is recorded for the trust report.  Without a third member no region is
-    flagged here.
+    is recorded for the trust report, and the region's resolved children
+    get vertex probes.  Without a third member no region is flagged here.
+
+    ``log_rules`` = (rules applied to ``log|f|`` (k, 3, m), the rule applied
+    to its magnitude (k, m), where the values share one sign (k, m)): there
+    the signature must show in ``log|f|`` too, with :data:`LOG_RATIO_LIMIT`.
+    A peak or Gaussian at coarse scale fails the test in ``f`` but its
+    logarithm is smooth and slowly varying; a kink of ``f`` is one of
+    ``log|f|``.  Measured on tuning seed 7 (Genz families, d = 3..6, 1e-4
+    and 1e-6): of the smooth families' flagged regions 5.4 % keep the flag
+    (2.6 % at 0.25, 19 % at 0.05); of C0 regions a kink crosses, 97.8 %
+    (93.5 % at 0.25, 98.8 % at 0.05); of C0 regions no kink crosses, none.
 
     Returns
     -------
@@ -319,7 +333,15 @@ def non_asymptotic(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: 
         return np.zeros(q7.shape[0], dtype=bool)
     n1 = np.abs(q7 - q5)
     n2 = np.abs(q5 - q3)
-    return ((n1 > RATIO_LIMIT * n2) & (n1 > 16 * ROUNDING * absq)).any(axis=1)
+    na = (n1 > RATIO_LIMIT * n2) & (n1 > 16 * ROUNDING * absq)
+    if log_rules is not None:
+        ql, absl, one = log_rules
+        m1 = np.abs(ql[:, 0] - ql[:, 1])
+        m2 = np.abs(ql[:, 1] - ql[:, 2])
+        with np.errstate(invalid="ignore"):
+            na_log = (m1 > LOG_RATIO_LIMIT * m2) & (m1 > 16 * ROUNDING * absl)
+        na &= na_log | ~one
+    return na.any(axis=1)
 
 
 def split_check(parent_value: np.ndarray, parent_low: np.ndarray, parent_raw: np.ndarray, child_sum: np.ndarray,

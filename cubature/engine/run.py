@@ -861,13 +861,38 @@ class Run:
             suspect &= self._looks_resolved(q, absq)
         return suspect
 
+    def _log_rules(self, fr: np.ndarray, vol: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """The rule and its embedded rules applied to ``log|f|`` (k, r, m), the rule applied to its magnitude
+        (k, m), and where all of a region's node values share one sign (k, m; elsewhere the values are NaN).
+        A smooth positive integrand is often far closer to ``exp(polynomial)`` than to a polynomial at coarse
+        scales (a Gaussian's logarithm is a quadratic), while a kink or jump of ``f`` is one of ``log|f|`` too."""
+        one = np.all(fr > 0, axis=1) | np.all(fr < 0, axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            lg = np.where(one[:, None, :], np.log(np.abs(fr)), np.nan)
+        ql = np.einsum("rp,kpm->krm", self._w, lg) * vol[:, None, None]
+        absl = np.einsum("p,kpm->km", self.rule.weights, np.abs(lg)) * vol[:, None]
+        return ql, np.abs(absl), one
+
     def _looks_resolved(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
         """Regions whose rule estimate is tiny against their size (candidates for a vertex probe)."""
         return (self._errors(q, absq) <= _estimate.PROBE_GATE * absq).all(axis=1)
 
-    def _non_asymptotic(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
+    def _non_asymptotic(self, q: np.ndarray, absq: np.ndarray, g: dict | None = None,
+                        fr: np.ndarray | None = None) -> np.ndarray:
+        """Regions whose rule differences do not shrink with degree
+        (:func:`~cubage.engine.estimate.non_asymptotic`).  On Genz–Malik regions (``g``, node values ``fr``)
+        whose values share one sign, the signature must show in ``log|f|`` too: coarse smooth regions
+        (peaks, Gaussians) show it in ``f`` alone, and each one flagged had its resolved children probed."""
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
-        return _estimate.non_asymptotic(q[:, 0, :], q[:, 1, :], q3, absq)
+        na = _estimate.non_asymptotic(q[:, 0, :], q[:, 1, :], q3, absq)
+        if (fr is None or q3 is None or not na.any() or self.geometry.kind != "box"
+                or "diagonal" in self.rule.extra):
+            return na
+        sub = np.nonzero(na)[0]
+        ql, absl, one = self._log_rules(fr[sub], self.geometry.volume({k: a[sub] for k, a in g.items()}))
+        na[sub] = _estimate.non_asymptotic(q[sub, 0, :], q[sub, 1, :], q3[sub], absq[sub],
+                                           log_rules=(ql, absl, one))
+        return na
 
     def _keys(self, err: np.ndarray, tol: np.ndarray | None = None) -> np.ndarray:
         key = err[:, 0] if self.m == 1 else (err * self.key_weight).max(axis=1)
@@ -1010,7 +1035,7 @@ class Run:
         self.store = RegionStore(self.region_columns(), capacity=1024)
         g["raw"] = raw
         g["low"] = q[:, 1, :]
-        g["flags"] = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
+        g["flags"] = (np.where(self._non_asymptotic(q, absq, g, fr), FLAG_NON_ASYMPTOTIC, 0)
                       | np.where(deviates, FLAG_PROBE, 0)
                       | np.where(probe & ~deviates if pv is not None else False, FLAG_PROBED, 0)
                       | (np.where(carried, FLAG_WARY, 0) if carried is not None else 0)).astype(np.uint8)
@@ -1266,7 +1291,7 @@ class Run:
         self._missed = np.maximum(D - parents["error"], 0.0).sum(axis=0) + probe_extra
         err = np.maximum(err, floor)
         pd, pl = disagree.any(axis=1), lower.any(axis=1)
-        flags = (np.where(self._non_asymptotic(q, absq), FLAG_NON_ASYMPTOTIC, 0)
+        flags = (np.where(self._non_asymptotic(q, absq, kids, fr), FLAG_NON_ASYMPTOTIC, 0)
                  | np.where(deviates, FLAG_PROBE, 0) | np.where(wary, FLAG_WARY, 0)
                  | np.where(probe & ~deviates if pv is not None else False, FLAG_PROBED, 0)
                  | np.tile(np.where(pd, FLAG_DISAGREED, 0) | np.where(pl, FLAG_LOWER_CLOSER, 0), nch)
