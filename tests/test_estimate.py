@@ -268,3 +268,26 @@ def test_trend_floor_when_the_changes_grow():
     # ratios 1.1 and 0.8: level changes are slow convergence (a face singularity's), the cap 0.95 applies
     level = np.cumsum([1.0, 1e-8, 1.1e-8, 8.8e-9])[:, None]
     assert E.trend_floor(evals, level)[0] == pytest.approx(8.8e-9 * 0.95 / 0.05, rel=1e-6)
+
+
+def _axis_line(fun):
+    """Values of fun(s) on the axis line of a Genz-Malik box: centre, +-lambda2, +-lambda3 (Genz & Malik 1980:
+    sqrt(9/70), sqrt(9/10)) and the face probes +-PROBE_POSITION, in the order (+e_0, -e_0); shapes (1, ...)."""
+    l2, l3, t = math.sqrt(9 / 70), math.sqrt(9 / 10), E.PROBE_POSITION
+    col = lambda x: np.array([[[fun(x)], [fun(-x)]]])
+    return np.array([[fun(0.0)]]), col(l2), col(l3), col(t), l2, l3
+
+
+def test_face_probe_sees_a_kink_in_the_last_per_cents_and_stays_quiet_on_smooth_functions():
+    """Issue 12 item 3: exp(-9.2 |z - 0.30072|) on the slab z in [0.29688, 0.30078] (Genz's C0 family, seed 8: a
+    kink 1.6 % of the width from a face), in units of the half-width 0.00195: exp(-0.018 |s - 0.968|), smooth on
+    every axis node (|s| <= 0.949) and kinked before the face probe; the quartic through the five nodes misses the
+    probe by far more than its difference from the cubic.  Smooth functions, steep ones included, agree with the
+    quartic over the short gap (Lagrange remainder, A&S 25.2.3)."""
+    floor, dev = E.face_errors(*_axis_line(lambda s: math.exp(-0.018 * abs(s - 0.968))), np.array([1.0]),
+                               np.array([[1.0]]))
+    assert dev[0] and floor[0, 0] > 0.0
+    for fun in (math.exp, math.cos, lambda s: 1.0 / (2.0 + s), lambda s: math.exp(-9.2 * (s - 0.3)),
+                lambda s: math.exp(-4 * s * s)):
+        floor, dev = E.face_errors(*_axis_line(fun), np.array([1.0]), np.array([[1.0]]))
+        assert not dev[0] and floor[0, 0] == 0.0

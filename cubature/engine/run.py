@@ -693,7 +693,12 @@ class Run:
         if mid and "diagonal" not in self.rule.extra:   # Genz-Malik: a second probe per vertex, node to probe
             kp, d = int(probe.sum()), t.shape[1]
             tm = self.geometry.probe_points(sub, _estimate.PROBE_MID)
-            t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d)], axis=1).reshape(-1, d)
+            # and one just inside the centre of every face: the axis lines through the centre carry five nodes
+            # each, so a kink parallel to a face in its last few per cent shows there, free of the other axes'
+            # curvature that can hide it on the diagonals
+            eye = np.repeat(np.eye(d), 2, axis=0) * np.tile([1.0, -1.0], d)[:, None]        # +e0, -e0, +e1, ...
+            tf = sub["centre"][:, None, :] + _estimate.PROBE_POSITION * sub["halfw"][:, None, :] * eye[None]
+            t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d), tf], axis=1).reshape(-1, d)
         n, m = t.shape[0], self.m or 1
         out = np.full((n, m), np.nan)
         # a vertex at the end of an infinite axis (engine t = +-1) maps to infinity: no value there is data
@@ -818,9 +823,16 @@ class Run:
             fc = fp[:, grp[0]:grp[1], :]
             a = float(np.abs(self.rule.nodes[grp[0]]).max())
             nv = grp[1] - grp[0]
-            fmid = pv[:, nv:] if pv.shape[1] == 2 * nv else None
+            fmid = pv[:, nv:2 * nv] if pv.shape[1] > nv else None
             fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
                                                 np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid)
+            if pv.shape[1] > 2 * nv:
+                g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
+                ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
+                                               pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
+                                               float(np.abs(self.rule.nodes[g3[0]]).max()), vol,
+                                               np.abs(fp).max(axis=1))
+                fl, dv = np.maximum(fl, ff), dv | fd
         floor[probe] = fl
         deviates[probe] = dv
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
@@ -1066,7 +1078,7 @@ class Run:
         """Most evaluations one split can cost (children's nodes and vertex probes)."""
         v = 2 ** self.domain.dim if has_probes(self.rule) else 0
         if "diagonal" not in self.rule.extra:
-            v *= 2                                  # Genz-Malik regions get a second probe per vertex
+            v = 2 * v + 2 * self.domain.dim         # Genz-Malik regions get a second probe per vertex, and faces
         return self.geometry.children_per_split * (self.rule.size + v)
 
     def _choose(self) -> int:
