@@ -67,11 +67,12 @@ def test_warm_start_probes_regions_next_to_a_signature_only():
     resolved = warm._looks_resolved(*warm._evaluate({k: warm.store[k][:n] for k in warm.geometry.columns})[:2])
     assert (resolved & near).any()
     # every resolved-looking region next to a signature is probed (the engine's neighbourhood is a
-    # conservative grid, so a few more may be), and far fewer than all of them; two probes per vertex, as a
-    # cold run gives the children of a non-smooth region
-    assert n * size + 2 * 2 ** 3 * int((resolved & near).sum()) <= warm.evaluations
-    assert warm.evaluations < n * size + 2 * 2 ** 3 * int(resolved.sum())
-    assert (warm.evaluations - n * size) % (2 * 2 ** 3) == 0
+    # conservative grid, so a few more may be), and far fewer than all of them; two probes per vertex and one
+    # per face, as a cold run gives the children of a non-smooth region
+    per = 2 * 2 ** 3 + 2 * 3
+    assert n * size + per * int((resolved & near).sum()) <= warm.evaluations
+    assert warm.evaluations < n * size + per * int(resolved.sum())
+    assert (warm.evaluations - n * size) % per == 0
     fl = warm.store["flags"][:n]
     assert ((fl & FLAG_WARY) != 0)[marked].all() and not ((fl & FLAG_WARY) != 0)[~marked].any()
     # without flags (a partition from elsewhere) every region that looks resolved is probed, as before
