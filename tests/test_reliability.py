@@ -418,3 +418,24 @@ def test_kink_near_a_face_behind_a_steep_factor_3d():
                            budget=2_000_000, raise_on_failure=False)
     _honest(res, exact, 1e-8)
     assert abs(res.value - exact) <= res.error
+
+
+def test_point_singularity_explains_the_signature_of_the_regions_touching_it():
+    """Issue 12 (smooth cost): 1/|x| on the unit cube.  The first region's probe next to the origin reads a value
+    far beyond its nodes' (clipped): the origin is remembered as a point singularity.  A region touching it whose
+    only signature is a non-asymptotic rule hierarchy owes that signature to the singularity: of its children,
+    the one away from the origin is neither probed nor watched (with a kink signature too, it still is).  The
+    run stays honest: closed form 3 ln((1 + sqrt 3)/sqrt 2) - pi/4 (from memory; tests/test_engine.py's
+    test_corner_singularity_cube checks it too)."""
+    from cubage.engine.run import FLAG_DISAGREED, FLAG_NON_ASYMPTOTIC
+    exact = 3 * math.log((1 + math.sqrt(3)) / math.sqrt(2)) - math.pi / 4
+    run = cubage.Run(lambda X: 1.0 / np.sqrt((X * X).sum(axis=1)), cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6)
+    res = run.run()
+    _honest(res, exact, 1e-6)
+    assert run.checks["singular_vertices"] == [[0.0, 0.0, 0.0]]
+    parents = {"centre": np.array([[0.25] * 3] * 2), "halfw": np.array([[0.25] * 3] * 2),
+               "flags": np.array([FLAG_NON_ASYMPTOTIC, FLAG_NON_ASYMPTOTIC | FLAG_DISAGREED], np.uint8)}
+    # children of a split along x, laid out child 0 of every parent, then child 1: [0, 0.25] and [0.25, 0.5]
+    kids = {"centre": np.array([[0.125, 0.25, 0.25]] * 2 + [[0.375, 0.25, 0.25]] * 2),
+            "halfw": np.array([[0.125, 0.25, 0.25]] * 4)}
+    assert run._explained(parents, kids).tolist() == [False, False, True, False]
