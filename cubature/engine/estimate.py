@@ -237,6 +237,11 @@ PROBE_POSITION = 1.0 - 2.0 ** -20
 #: the non-asymptotic signature of a region whose values share one sign must show in log|f| too, with this ratio
 #: limit (:func:`non_asymptotic`)
 LOG_RATIO_LIMIT = 0.1
+#: a probe is explained by the extrapolation of log|f| only where that misses it by at most this share of the miss
+#: of f's own extrapolation (and within f's allowance), at every probe of the region (:func:`probe_errors`).  On
+#: kinks |s - c| g(s) along a diagonal (g = 1, e^s, e^(-2 s^2), c = 0.70..0.99) 0.1 / 0.03 / 0.01 still let the
+#: log model explain away 6 / 2 / 1 of the probes f's check flags, 0.001 none; Gaussians are explained either way
+LOG_CLOSER = 1e-3
 #: a probe value above this many times the magnitude of the integrand on the region's nodes (and on the first
 #: region's) is clipped to it: a singularity at the vertex says nothing about the region's error beyond that, but
 #: dropping such values hid thin layers along faces (exp(-xy) on [0, 1e6] x [0, 1] converged 34 % off)
@@ -488,16 +493,17 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     """
     rounding = 1e3 * ROUNDING * scale[:, None, :]
     excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
-    # a probe that a smooth model of log|f| explains is no signature: at coarse scales a positive integrand is
-    # often far closer to exp(cubic) than to a cubic along a long diagonal (a Gaussian's logarithm is a
-    # quadratic), while a kink or jump of f is one of log|f| too.  Only where the region's values (nodes
-    # used and probes) share one sign; where neither model explains a probe, its excess (and the floor) is f's.
+    # a probe that a smooth model of log|f| predicts within f's own allowance is no signature: at coarse scales a
+    # positive integrand is often far closer to exp(cubic) than to a cubic along a long diagonal (a Gaussian's
+    # logarithm is a quadratic), while a kink or jump of f is one of log|f| too.  Only where the region's values
+    # (nodes used and probes) share one sign; where neither model explains a probe, its excess (and the floor)
+    # is f's.
     pos = _one_sign(f0, f_plus, f_probe, f_mid)
     if pos.any():
-        with np.errstate(divide="ignore", invalid="ignore"):
-            logs = [None if x is None else np.log(np.abs(x)) for x in (f0, f_plus, f_minus, f_probe, f_mid)]
-        explained = _probe_excess(logs[0], logs[1], logs[2], logs[3], a, 1e3 * ROUNDING, logs[4]) == 0.0
-        excess = np.where(pos[:, None, :] & explained, 0.0, excess)
+        sign = np.where(pos, np.sign(f0), np.nan)
+        # the log model must explain every probe of the region: where it misses one, that is the kink's
+        explained = (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign) == 0.0).all(axis=1)
+        excess = np.where((pos & explained)[:, None, :], 0.0, excess)
     floor = volume[:, None] * excess.mean(axis=1)
     deviates = (excess > 0).any(axis=(1, 2))
     return (floor, deviates, excess.sum(axis=2)) if by_vertex else (floor, deviates)
@@ -514,20 +520,33 @@ def _one_sign(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, f_mid: np
 
 
 def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray, a: float,
-                  rounding, f_mid: np.ndarray | None) -> np.ndarray:
+                  rounding, f_mid: np.ndarray | None, sign: np.ndarray | None = None) -> np.ndarray:
     """Excess (k, v, m) of each probe's deviation from the extrapolations over its allowance (see
-    :func:`probe_errors`); 0 where a value is not finite."""
+    :func:`probe_errors`); 0 where a value is not finite.  With ``sign`` (k, m: the common sign of a region's
+    values), the predictions are the same extrapolations of ``log|f|``, mapped back as ``sign exp(.)``, held
+    to ``f``'s own allowances (an allowance from ``log|f|``'s terms would be wide where ``f`` nears 0 and hide
+    a kink such as ``|s - c|`` just inside the vertex)."""
     t = PROBE_POSITION
     xs = np.array([-t, -a, 0.0, a])
     coef = np.linalg.inv(np.vander(xs, 4, increasing=True))     # values at xs -> monomial coefficients
-    pts = np.stack([f_probe[:, ::-1, :], f_minus, np.broadcast_to(f0[:, None, :], f_plus.shape), f_plus])
-    with np.errstate(invalid="ignore"):
-        c = np.einsum("ij,j...->i...", coef, pts)                 # (4, k, v, m)
-        pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
-        dev = np.abs(f_probe - pred)
+
+    def diagonal(v0, vp, vm, vpr):
+        return np.stack([vpr[:, ::-1, :], vm, np.broadcast_to(v0[:, None, :], vp.shape), vp])
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        c = np.einsum("ij,j...->i...", coef, diagonal(f0, f_plus, f_minus, f_probe))       # (4, k, v, m)
         allow = (PROBE_TOLERANCE * (PROBE_CURVATURE * np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3
                                     + PROBE_SLOPE * np.abs(c[1]) * t)
                  + rounding)
+        pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
+        if sign is not None:
+            logs = [None if x is None else np.log(np.abs(x)) for x in (f0, f_plus, f_minus, f_probe, f_mid)]
+            cl = np.einsum("ij,j...->i...", coef, diagonal(*logs[:4]))
+            # and the log model must be far closer than f's: near a zero of f (a kink |s - c| e^s) log|f|'s
+            # extrapolation plunges and can land within f's allowance by chance (exp of a polynomial of degree
+            # <= 3, as a Gaussian, is predicted to rounding)
+            allow = np.minimum(allow, LOG_CLOSER * np.abs(f_probe - pred) + rounding)
+            pred = sign[:, None, :] * np.exp(cl[0] + cl[1] * t + cl[2] * t * t + cl[3] * t ** 3)
+        dev = np.abs(f_probe - pred)
     bad = ~np.isfinite(dev)                 # no finite value there (a vertex singularity): not data, no signature
     excess = np.where(bad, 0.0, np.maximum(dev - allow, 0.0))
     if f_mid is not None:
@@ -535,11 +554,15 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
         w3 = _lagrange_weights(xm, t)
         w2 = _lagrange_weights(xm[1:], t)
         rows = [f_minus, np.broadcast_to(f0[:, None, :], f_plus.shape), f_plus, f_mid]
-        with np.errstate(invalid="ignore"):
+        with np.errstate(invalid="ignore", over="ignore"):
             p3 = sum(w * r for w, r in zip(w3, rows))
             p2 = sum(w * r for w, r in zip(w2, rows[1:]))
-            dev2 = np.abs(f_probe - p3)
             allow2 = PROBE_MID_TOLERANCE * np.abs(p3 - p2) + rounding
+            if sign is not None:
+                allow2 = np.minimum(allow2, LOG_CLOSER * np.abs(f_probe - p3) + rounding)
+                lrows = [logs[2], np.broadcast_to(logs[0][:, None, :], f_plus.shape), logs[1], logs[4]]
+                p3 = sign[:, None, :] * np.exp(sum(w * r for w, r in zip(w3, lrows)))
+            dev2 = np.abs(f_probe - p3)
         ok2 = np.isfinite(dev2) & np.isfinite(allow2)
         excess = np.maximum(excess, np.where(ok2, np.maximum(dev2 - allow2, 0.0), 0.0))
     return excess
