@@ -637,3 +637,17 @@ def test_plain_log_lines_use_the_one_duration_format(tmp_path, cli):
     assert line.startswith("cubage| ") and "eta " in line
     assert not re.search(r"\d+s\b", line), line            # never a bare "123s"
     assert re.search(r"cubage\|\s+\d+(\.\d)? (ms|s)\b", line), line
+
+
+def test_continue_hint_asks_for_more_than_was_spent():
+    """Found in the lead's kill -9 / resume pass: a run resumed with --budget below the evaluations it had
+    already spent stopped at once and suggested twice that budget, still below them (constructed case)."""
+    from types import SimpleNamespace
+
+    from cubage.cli.commands import _continue_hint
+    run = SimpleNamespace(settings=SimpleNamespace(budget=30_000_000))
+    rundir = SimpleNamespace(path="R")
+    spent = SimpleNamespace(status="budget-spent", evaluations=71_561_839)
+    assert _continue_hint(spent, run, rundir) == "continue with: cubage resume R --budget 143_123_678"
+    fresh = SimpleNamespace(status="budget-spent", evaluations=30_000_001)
+    assert _continue_hint(fresh, run, rundir) == "continue with: cubage resume R --budget 60_000_002"

@@ -283,7 +283,9 @@ def _continue_hint(res, run, rundir) -> str:
         return ""
     opt = ""
     if res.status == "budget-spent":
-        opt = f" --budget {2 * int(run.settings.budget):_}"
+        # twice what was spent, not only twice the budget: a run resumed with a budget below its evaluations
+        # stops at once, and twice that budget may still be below them
+        opt = f" --budget {2 * max(int(run.settings.budget), int(res.evaluations)):_}"
     elif res.status == "time-limit" and run.settings.time_limit:
         opt = f" --time-limit {2 * run.settings.time_limit:g}"
     elif res.status == "memory-ceiling":
