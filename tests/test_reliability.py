@@ -88,6 +88,18 @@ def _honest(res, exact, tol):
     return true
 
 
+def _c0_on_cube(a, u, tol, budget):
+    """A draw of Genz's C0 family exp(-sum a_i |x_i - u_i|) on the unit cube, checked by :func:`_honest` against
+    its closed form (a product of 1-D integrals, Genz 1984; cubage.bench.genz_families.exact, checked in
+    tests/test_genz.py).  Returns the result and the exact value."""
+    a, u = np.asarray(a, dtype=float), np.asarray(u, dtype=float)
+    exact = genz.exact("c0", a, u)
+    res = cubage.integrate(genz.integrand("c0", a, u), cubage.Box([0] * len(a), [1] * len(a)), rel_tol=tol,
+                           budget=budget, raise_on_failure=False)
+    _honest(res, exact, tol)
+    return res, exact
+
+
 @pytest.mark.parametrize("tol", [1e-4, 1e-6])
 def test_threshold_times_smooth_factor_4d(tol):
     """Issue 12 (first failure): (x < c) exp(y) on [0,1]^4 was 'converged' with the true error 2e-3."""
@@ -338,11 +350,7 @@ def test_kink_across_the_middle_of_a_gauss_kronrod_box_2d(a, u, tol):
     probe saw it; the runs claimed convergence at 1e-6 with 88x and 3x the reported error.  The per-axis decay
     check (estimate.axis_kink_errors) sees it.  Closed form: product of the 1-D integrals of exp(-a|x - u|)
     (Genz 1984; cubage.bench.genz_families.exact, checked in tests/test_genz.py)."""
-    a, u = np.array(a), np.array(u)
-    exact = genz.exact("c0", a, u)
-    res = cubage.integrate(genz.integrand("c0", a, u), cubage.Box([0] * 2, [1] * 2), rel_tol=tol, budget=400_000,
-                           raise_on_failure=False)
-    _honest(res, exact, tol)
+    _c0_on_cube(a, u, tol, 400_000)
 
 
 def test_audit_splits_the_largest_error_region_along_its_rule_axis():
@@ -367,12 +375,8 @@ def test_audit_cut_short_by_the_budget_cannot_pass_after_a_failure_3d():
     found nothing and passed: converged with 7.7e-8 true against 1.1e-8 reported.  Now an audit after a failure
     needs its full sample, and a run that ends without passing one reports what the last audit extrapolated.
     Closed form: product of the 1-D integrals of exp(-a|x - u|) (Genz 1984; cubage.bench.genz_families.exact)."""
-    a = np.array([2.177409635709675, 9.609701671541098, 8.612888692749229])
-    u = np.array([0.12753609169709523, 0.49205756061536665, 0.3994801755296057])
-    exact = genz.exact("c0", a, u)
-    res = cubage.integrate(genz.integrand("c0", a, u), cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6,
-                           budget=2_000_000, raise_on_failure=False)
-    _honest(res, exact, 1e-6)
+    res, exact = _c0_on_cube([2.177409635709675, 9.609701671541098, 8.612888692749229],
+                             [0.12753609169709523, 0.49205756061536665, 0.3994801755296057], 1e-6, 2_000_000)
     assert abs(res.value - exact) <= res.error
     if not res.converged:
         assert res.message                                  # says why it stopped short
@@ -411,12 +415,8 @@ def test_kink_near_a_face_behind_a_steep_factor_3d():
     allowance) and cleared the lineage, and no split along x or y measures a kink in z: converged with 3.8e-9 true
     against 2.4e-10 reported.  The probes just inside each face's centre see it.  Closed form: product of the 1-D
     integrals of exp(-a|x - u|) (Genz 1984; cubage.bench.genz_families.exact)."""
-    a = np.array([7.798241075965559, 3.397383079304331, 9.204375844730109])
-    u = np.array([0.4781503700747285, 0.33272390728084056, 0.3007174853870306])
-    exact = genz.exact("c0", a, u)
-    res = cubage.integrate(genz.integrand("c0", a, u), cubage.Box([0] * 3, [1] * 3), rel_tol=1e-8,
-                           budget=2_000_000, raise_on_failure=False)
-    _honest(res, exact, 1e-8)
+    res, exact = _c0_on_cube([7.798241075965559, 3.397383079304331, 9.204375844730109],
+                             [0.4781503700747285, 0.33272390728084056, 0.3007174853870306], 1e-8, 2_000_000)
     assert abs(res.value - exact) <= res.error
 
 
