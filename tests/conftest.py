@@ -110,3 +110,14 @@ def write_problem(tmp_path):
         p.write_text(text, encoding="utf-8")
         return p
     return write
+
+
+def screen_host(screen):
+    """A bare Textual app that shows ``screen`` on mount (for pilot tests of one screen)."""
+    from textual.app import App
+
+    class Host(App):
+        def on_mount(self):
+            self.push_screen(screen)
+
+    return Host()

@@ -492,7 +492,7 @@ def test_scan_view_of_a_stopped_scan_says_stopped_and_offers_no_halt(tmp_path, c
     continues it, h is off, and a cut line ends in an ellipsis."""
     import asyncio
 
-    from textual.app import App
+    from conftest import screen_host
 
     from cubage.tui.scan_view import follow_view
 
@@ -504,12 +504,8 @@ def test_scan_view_of_a_stopped_scan_says_stopped_and_offers_no_halt(tmp_path, c
     (rd / "verdict.json").unlink()                      # as a halted (or killed) scan leaves it: no verdict
     view = follow_view(rd)
 
-    class Host(App):
-        def on_mount(self):
-            self.push_screen(view)
-
     async def go():
-        app = Host()
+        app = screen_host(view)
         async with app.run_test(size=(80, 24)) as pilot:
             await pilot.pause(1.0)
             assert view.state.gone and not view.state.over

@@ -164,7 +164,7 @@ def test_scan_view_runs_a_scan_and_fills_the_table(scanfile):
 
 def test_scan_view_follows_a_run_directory_heat_map(tmp_path, capsys):
     """issue 14 items 5-6: cubage watch on a scan's run directory shows its points (a 2-D grid as a heat map)."""
-    from textual.app import App
+    from conftest import screen_host
     from textual.widgets import DataTable
 
     from cubage.tui.scan_view import follow_view, is_scan_dir
@@ -179,12 +179,8 @@ def test_scan_view_follows_a_run_directory_heat_map(tmp_path, capsys):
     assert is_scan_dir(rd)
     view = follow_view(rd)
 
-    class Host(App):
-        def on_mount(self):
-            self.push_screen(view)
-
     async def go():
-        app = Host()
+        app = screen_host(view)
         async with app.run_test(size=(120, 36)) as pilot:
             assert await _wait(pilot, lambda: len(view.state.points) == 6)
             await pilot.pause(0.6)
