@@ -65,8 +65,16 @@ AUDIT_COST = 0.05
 AUDIT_MIN = 2
 #: hidden error (extrapolated from the audit's sample) below this fraction of the goal passes the audit
 AUDIT_SMALL = 0.25
-#: point singularities remembered from wild vertex probes (:meth:`Run._note_singular`)
+#: point singularities remembered from wild vertex probes (:meth:`Run._note_singular`), and as many faces
 SINGULAR_VERTICES = 16
+#: a face of a Genz-Malik box is remembered as singular when the probes of two or more of its vertices, and of
+#: no vertex off it, read beyond this many times the nodes' magnitude (sqrt of PROBE_WILD: x0^(-1/2) reads
+#: 200-700 times its nodes at every depth) ...
+SINGULAR_RATIO = 100.0
+#: ... and each of them climbs from its diagonal's corner node at least this many times as steeply (in log|f| per
+#: unit of the diagonal) as it climbed from the centre to that node: a power law near the face, not a steep
+#: smooth factor (exp(c x) climbs evenly)
+SINGULAR_STEEP = 4.0
 #: failed audits that each double the next sample (at most 2^AUDIT_GROWTH times AUDIT_COST)
 AUDIT_GROWTH = 1
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
@@ -815,7 +823,7 @@ class Run:
         scale = np.maximum(np.abs(fp).max(axis=1), np.asarray(self.checks["f_scale"]))
         with np.errstate(over="ignore", invalid="ignore"):     # a bound beyond the float range is no bound
             big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)
-            self._note_singular({name: arr[probe] for name, arr in g.items()}, pv, big)
+            self._note_singular({name: arr[probe] for name, arr in g.items()}, pv, big, fp)
             pv = np.clip(pv, -big[:, None, :], big[:, None, :])
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
             diag = self.rule.extra["diagonal"]
@@ -841,42 +849,76 @@ class Run:
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
         return floor, deviates, steer
 
-    def _note_singular(self, g: dict, pv: np.ndarray, big: np.ndarray) -> None:
+    def _note_singular(self, g: dict, pv: np.ndarray, big: np.ndarray, fp: np.ndarray | None = None) -> None:
         """Remember (in ``checks``, so a checkpoint keeps them) up to :data:`SINGULAR_VERTICES` Genz–Malik box
         vertices whose probe read a finite value beyond ``big`` (:data:`~cubage.engine.estimate.PROBE_WILD`
-        times the nodes' magnitude): a point singularity there, as at the corner of ``1/|x|``."""
+        times the nodes' magnitude): a point singularity there, as at the corner of ``1/|x|``; and as many
+        faces (``checks["singular_faces"]``, ``[lo, hi]`` with ``lo = hi`` on the face's fixed axes) holding
+        two or more vertices, and no vertex off them, whose probes (values ``pv``, node values ``fp``) read
+        beyond :data:`SINGULAR_RATIO` times the nodes' magnitude, each climbing from its diagonal's corner node
+        :data:`SINGULAR_STEEP` times as steeply as from the centre to it: a singular face, as ``x0^(-1/2)``'s
+        along ``x0 = 0``, where the probes read a few hundred times the nodes at every depth."""
         known = self.checks.setdefault("singular_vertices", [])
-        if (self.geometry.kind != "box" or "diagonal" in self.rule.extra or "centre" not in g
-                or len(known) >= SINGULAR_VERTICES):
+        if self.geometry.kind != "box" or "diagonal" in self.rule.extra or "centre" not in g:
             return
-        nv = 2 ** self.domain.dim
-        with np.errstate(invalid="ignore"):
-            wild = (np.isfinite(pv[:, :nv]) & (np.abs(pv[:, :nv]) > big[:, None, :])).any(axis=2)
-        for i, v in zip(*np.nonzero(wild)):
-            x = [float(c) for c in g["centre"][i] + g["halfw"][i] * vertex_signs(self.domain.dim)[v]]
-            if len(known) < SINGULAR_VERTICES and not any(np.allclose(x, y, rtol=0, atol=1e-12) for y in known):
-                known.append(x)
+        d = self.domain.dim
+        nv = 2 ** d
+        signs = vertex_signs(d)
+        if len(known) < SINGULAR_VERTICES:
+            with np.errstate(invalid="ignore"):
+                wild = (np.isfinite(pv[:, :nv]) & (np.abs(pv[:, :nv]) > big[:, None, :])).any(axis=2)
+            for i, v in zip(*np.nonzero(wild)):
+                x = [float(c) for c in g["centre"][i] + g["halfw"][i] * signs[v]]
+                if len(known) < SINGULAR_VERTICES and not any(np.allclose(x, y, rtol=0, atol=1e-12) for y in known):
+                    known.append(x)
+        faces = self.checks.setdefault("singular_faces", [])
+        if fp is None or len(faces) >= SINGULAR_VERTICES:
+            return
+        grp = self.rule.extra["groups"]["corner5"]
+        a = float(np.abs(self.rule.nodes[grp[0]]).max())
+        fc, f0, fv = fp[:, grp[0]:grp[1], :], fp[:, :1, :], pv[:, :nv, :]
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            large = np.isfinite(fv) & (np.abs(fv) > big[:, None, :] / (_estimate.PROBE_WILD / SINGULAR_RATIO))
+            out = np.log(np.abs(fv / fc)) / (_estimate.PROBE_POSITION - a)     # log|f| per unit of the diagonal
+            inner = np.maximum(np.log(np.abs(fc / f0)) / a, 0.0)
+            large &= (fv * fc > 0) & (out >= SINGULAR_STEEP * inner)
+        large = large.any(axis=2)                                                    # (k, v)
+        for i in np.nonzero(large.sum(axis=1) >= 2)[0]:
+            s = signs[large[i]]
+            fixed = np.all(s == s[:1], axis=0)               # axes on which every large vertex lies on one face
+            if not fixed.any():
+                continue
+            lo = g["centre"][i] - g["halfw"][i]
+            hi = g["centre"][i] + g["halfw"][i]
+            end = np.where(s[0] > 0, hi, lo)
+            face = [[float(c) for c in np.where(fixed, end, lo)], [float(c) for c in np.where(fixed, end, hi)]]
+            if len(faces) < SINGULAR_VERTICES and not any(
+                    np.allclose(face, y, rtol=0, atol=1e-12) for y in faces):
+                faces.append(face)
 
     def _explained(self, parents: dict, kids: dict) -> np.ndarray:
         """Children (of the split ``parents``) whose parent's only signature is a non-asymptotic rule
-        hierarchy while it touches a known point singularity (:meth:`_note_singular`) that the child does
-        not touch: the singularity explains the signature, and the child away from it is neither probed
-        nor watched (``1/|x|`` on the unit cube: 41 such children cost 16 probes each)."""
+        hierarchy while it touches a known point singularity or singular face (:meth:`_note_singular`) that
+        the child does not touch: the singularity explains the signature, and the child away from it is
+        neither probed nor watched (``1/|x|`` on the unit cube: 41 such children cost 16 probes each;
+        ``x0^(-1/2) (x1 + x2 + x3)`` on [0, 1]^4: 35 children away from ``x0 = 0`` cost 40 each)."""
         nch = len(next(iter(kids.values()))) // max(1, len(parents["flags"]))
         out = np.zeros(nch * len(parents["flags"]), dtype=bool)
-        known = self.checks.get("singular_vertices")
-        if not known or "centre" not in parents:
+        sets = ([(x, x) for x in self.checks.get("singular_vertices", ())]
+                + [tuple(f) for f in self.checks.get("singular_faces", ())])
+        if not sets or "centre" not in parents:
             return out
         only = (parents["flags"] & _NON_SMOOTH) == FLAG_NON_ASYMPTOTIC
         if not only.any():
             return out
-        V = np.asarray(known, dtype=float)
+        S = np.asarray(sets, dtype=float)                    # (s, 2, d): lower and upper corners
+        slo, shi = S[None, :, 0, :], S[None, :, 1, :]
 
         def touches(g):
             tol = 1e-9 * g["halfw"][:, None, :]
             lo = (g["centre"] - g["halfw"])[:, None, :] - tol
             hi = (g["centre"] + g["halfw"])[:, None, :] + tol
-            return ((V[None] >= lo) & (V[None] <= hi)).all(axis=2).any(axis=1)
+            return ((shi >= lo) & (slo <= hi)).all(axis=2).any(axis=1)
         return np.tile(only & touches(parents), nch) & ~touches(kids)
 
     def _steer_axes(self, g: dict, steer: np.ndarray, floor: np.ndarray, raw: np.ndarray) -> None:
