@@ -441,6 +441,58 @@ def test_point_singularity_explains_the_signature_of_the_regions_touching_it():
     assert run._explained(parents, kids).tolist() == [False, False, True, False]
 
 
+def _irwin_hall_abs(c, k=3):
+    """E|S - c| for S a sum of k independent uniforms on [0, 1] (Irwin-Hall distribution: exact piecewise-polynomial
+    CDF, common practice; benchmarks/engine.py's kink reference uses the same formula)."""
+    pos = sum((-1) ** j * math.comb(k, j) * max(c - j, 0.0) ** (k + 1) for j in range(k + 1))
+    return (k / 2 - c) + 2 * pos / math.factorial(k + 1)
+
+
+def test_point_singularity_power_explains_the_signatures_of_boxes_near_it():
+    """Issue 12 (smooth cost): 1/|x| on the unit cube.  The probe next to the origin climbs from the corner node
+    like |x|^-1 and so did the corner node from the centre: the power 1 is remembered with the point.  A box near
+    the origin but not touching it, [0, 0.5] x [0.25, 0.5] x [0.5, 0.75], shows a non-asymptotic rule hierarchy
+    in f, none in f |x| (a constant): the singularity explains it, and its children are not probed.  A weak kink
+    crossing such a box (1/|x| + 0.01 |x + y + z - 1|) still shows in f |x|.  Closed forms:
+    3 ln((1 + sqrt 3)/sqrt 2) - pi/4 (from memory, checked in tests/test_engine.py against scipy) plus
+    0.01 E|S - 1| (Irwin-Hall, common practice)."""
+    i3 = 3 * math.log((1 + math.sqrt(3)) / math.sqrt(2)) - math.pi / 4
+    run = cubage.Run(lambda X: 1.0 / np.sqrt((X * X).sum(axis=1)), cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6)
+    _honest(run.run(), i3, 1e-6)
+    assert run.checks["singular_powers"] == [pytest.approx(1.0, abs=1e-6)]
+    near = {"centre": np.array([[0.25, 0.375, 0.625], [0.125, 0.125, 0.125]]),
+            "halfw": np.array([[0.25, 0.125, 0.125], [0.125, 0.125, 0.125]])}
+    w, wp = run._singular_factors(near, 2 ** 3)
+    x = run.geometry.points({k: v[:1] for k, v in near.items()})
+    assert np.allclose(w[0], np.sqrt((x * x).sum(axis=1))) and np.isfinite(wp[0]).all()
+    assert np.isnan(w[1]).all()                          # the box touching the origin: no model
+    box = {k: v[:1] for k, v in near.items()}
+    q, absq, fr = run._evaluate(box)
+    assert run._non_asymptotic(q, absq, box, fr).tolist() == [False]
+    powers, run.checks["singular_powers"] = run.checks["singular_powers"], []
+    assert run._non_asymptotic(q, absq, box, fr).tolist() == [True]      # f alone shows the signature
+    run.checks["singular_powers"] = powers
+
+    run = cubage.Run(lambda X: 1.0 / np.sqrt((X * X).sum(axis=1)) + 0.01 * np.abs(X.sum(axis=1) - 1.0),
+                     cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6)
+    _honest(run.run(), i3 + 0.01 * _irwin_hall_abs(1.0), 1e-6)
+    assert run.checks["singular_powers"] == [pytest.approx(1.0, abs=1e-3)]
+    crossed = {"centre": np.array([[0.125, 0.25, 0.625]]), "halfw": np.array([[0.125, 0.25, 0.125]])}
+    q, absq, fr = run._evaluate(crossed)
+    assert run._non_asymptotic(q, absq, crossed, fr).tolist() == [True]
+
+
+def test_thin_layer_at_a_vertex_has_no_power():
+    """A wild probe value that the nodes do not lead up to is a point to remember but no power law: 1 + 1e6 where
+    |x| < 1e-5 on the unit cube reads 1e6 at the probe next to the origin, 1 at the corner node and the centre.
+    Closed form 1 + 1e6 (pi/6) 1e-15 (volume of a ball octant, common practice)."""
+    run = cubage.Run(lambda X: 1.0 + 1e6 * ((X * X).sum(axis=1) < 1e-10), cubage.Box([0] * 3, [1] * 3),
+                     rel_tol=1e-6)
+    _honest(run.run(), 1.0 + 1e6 * math.pi / 6 * 1e-15, 1e-6)
+    assert run.checks["singular_vertices"] == [[0.0, 0.0, 0.0]]
+    assert run.checks["singular_powers"] == [None]
+
+
 def test_singular_face_explains_the_signature_of_the_regions_touching_it():
     """Issue 12 (smooth cost): x0^(-1/2) (x1 + x2 + x3) on [0, 1]^4 is singular along the whole face x0 = 0.  The
     first region's probes at the vertices on that face (all but the one where x1 + x2 + x3 vanishes too) read

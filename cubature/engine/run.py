@@ -75,6 +75,10 @@ SINGULAR_RATIO = 100.0
 #: unit of the diagonal) as it climbed from the centre to that node: a power law near the face, not a steep
 #: smooth factor (exp(c x) climbs evenly)
 SINGULAR_STEEP = 4.0
+#: a point singularity's power (:meth:`Run._singular_power`) is its probe's growth from the corner node, which must
+#: match the growth from the centre to that node within this share: then f |x - s|^p is what the checks of the
+#: boxes away from it read (:meth:`Run._singular_factors`)
+SINGULAR_POWER_MATCH = 0.25
 #: failed audits that each double the next sample (at most 2^AUDIT_GROWTH times AUDIT_COST)
 AUDIT_GROWTH = 1
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
@@ -830,24 +834,81 @@ class Run:
             fl, dv, ex = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
                                                         np.abs(fp).max(axis=1), by_vertex=True)
         else:
-            grp = self.rule.extra["groups"]["corner5"]
-            fc = fp[:, grp[0]:grp[1], :]
-            a = float(np.abs(self.rule.nodes[grp[0]]).max())
-            nv = grp[1] - grp[0]
-            fmid = pv[:, nv:2 * nv] if pv.shape[1] > nv else None
-            fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
-                                                np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid)
-            if pv.shape[1] > 2 * nv:
-                g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
-                ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
-                                               pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
-                                               float(np.abs(self.rule.nodes[g3[0]]).max()), vol,
-                                               np.abs(fp).max(axis=1))
-                fl, dv = np.maximum(fl, ff), dv | fd
+            fl, dv, ex = self._genz_malik_probes(fp, pv, vol)
+            if dv.any():
+                # a known singularity explains a region's deviations when f times its power law shows none
+                sub = {name: arr[probe][dv] for name, arr in g.items()}
+                w, wp = self._singular_factors(sub, pv.shape[1])
+                ok = np.isfinite(w).all(axis=1) & np.isfinite(wp).all(axis=1)
+                if ok.any():
+                    _, dvm, _ = self._genz_malik_probes(fp[dv][ok] * w[ok][:, :, None],
+                                                        pv[dv][ok] * wp[ok][:, :, None], vol[dv][ok])
+                    rows = np.nonzero(dv)[0][ok][~dvm]
+                    fl[rows], dv[rows], ex[rows] = 0.0, False, 0.0
+                    self.checks["singular_explained"] = int(self.checks.get("singular_explained", 0)) + len(rows)
         floor[probe] = fl
         deviates[probe] = dv
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
         return floor, deviates, steer
+
+    def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray,
+                           vol: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Floors (k, m), deviation flags (k,) and per-vertex excess (k, v) of Genz–Malik boxes with node values
+        ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken)."""
+        grp = self.rule.extra["groups"]["corner5"]
+        fc = fp[:, grp[0]:grp[1], :]
+        a = float(np.abs(self.rule.nodes[grp[0]]).max())
+        nv = grp[1] - grp[0]
+        fmid = pv[:, nv:2 * nv] if pv.shape[1] > nv else None
+        fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
+                                            np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid)
+        if pv.shape[1] > 2 * nv:
+            g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
+            ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
+                                           pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
+                                           float(np.abs(self.rule.nodes[g3[0]]).max()), vol,
+                                           np.abs(fp).max(axis=1))
+            fl, dv = np.maximum(fl, ff), dv | fd
+        return fl, dv, ex
+
+    def _singular_factors(self, g: dict, n_probes: int = 0) -> tuple[np.ndarray, np.ndarray]:
+        """``|x - s|^p`` at the nodes (k, p) and at the ``n_probes`` probes (k, n_probes; the layout of
+        :meth:`_probe_values`) of the Genz–Malik boxes ``g``, with ``s`` the known point singularity nearest each
+        box and ``p`` its power (:meth:`_note_singular`); NaN for boxes that touch it, or where none is known.
+        Away from ``s``, ``f |x - s|^p`` is smooth where ``f`` is but for ``s`` (``1/|x|``: a constant)."""
+        k, d = len(g["centre"]), self.domain.dim
+        npts = self.rule.size
+        nan = (np.full((k, npts), np.nan), np.full((k, n_probes), np.nan))
+        pts = self.checks.get("singular_vertices") or []
+        pw = self.checks.get("singular_powers") or []
+        use = [i for i, p in enumerate(pw[:len(pts)]) if p is not None]
+        if (not use or k == 0 or self.geometry.kind != "box" or "diagonal" in self.rule.extra
+                or hasattr(self.geometry, "to_user")):
+            return nan
+        S = np.asarray([pts[i] for i in use], dtype=float)                       # (s, d)
+        P = np.asarray([pw[i] for i in use], dtype=float)
+        c, h = g["centre"], g["halfw"]
+        gap = np.maximum(np.abs(S[None] - c[:, None, :]) - h[:, None, :], 0.0)  # (k, s, d)
+        dist = np.sqrt((gap * gap).sum(axis=2))
+        j = np.argmin(dist, axis=1)
+        near = dist[np.arange(k), j] > 1e-9 * h.max(axis=1)                    # the box does not touch it
+        s, p = S[j], P[j]
+        x = self.geometry.points(g).reshape(k, npts, d)
+        parts = [x]
+        if n_probes:
+            nv = 2 ** d
+            parts.append(self.geometry.probe_points(g, _estimate.PROBE_POSITION).reshape(k, nv, d))
+            if n_probes > nv:
+                eye = np.repeat(np.eye(d), 2, axis=0) * np.tile([1.0, -1.0], d)[:, None]
+                parts.append(self.geometry.probe_points(g, _estimate.PROBE_MID).reshape(k, nv, d))
+                parts.append(c[:, None, :] + _estimate.PROBE_POSITION * h[:, None, :] * eye[None])
+        allx = np.concatenate(parts, axis=1)
+        if allx.shape[1] != npts + n_probes:
+            return nan
+        r = np.sqrt(((allx - s[:, None, :]) ** 2).sum(axis=2))
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            w = np.where(near[:, None], r ** p[:, None], np.nan)
+        return w[:, :npts], w[:, npts:]
 
     def _note_singular(self, g: dict, pv: np.ndarray, big: np.ndarray, fp: np.ndarray | None = None) -> None:
         """Remember (in ``checks``, so a checkpoint keeps them) up to :data:`SINGULAR_VERTICES` Genz–Malik box
@@ -864,6 +925,7 @@ class Run:
         d = self.domain.dim
         nv = 2 ** d
         signs = vertex_signs(d)
+        powers = self.checks.setdefault("singular_powers", [])
         if len(known) < SINGULAR_VERTICES:
             with np.errstate(invalid="ignore"):
                 wild = (np.isfinite(pv[:, :nv]) & (np.abs(pv[:, :nv]) > big[:, None, :])).any(axis=2)
@@ -871,6 +933,8 @@ class Run:
                 x = [float(c) for c in g["centre"][i] + g["halfw"][i] * signs[v]]
                 if len(known) < SINGULAR_VERTICES and not any(np.allclose(x, y, rtol=0, atol=1e-12) for y in known):
                     known.append(x)
+                    powers.extend([None] * (len(known) - 1 - len(powers)))
+                    powers.append(self._singular_power(fp[i] if fp is not None else None, pv[i], v))
         faces = self.checks.setdefault("singular_faces", [])
         if fp is None or len(faces) >= SINGULAR_VERTICES:
             return
@@ -895,6 +959,27 @@ class Run:
             if len(faces) < SINGULAR_VERTICES and not any(
                     np.allclose(face, y, rtol=0, atol=1e-12) for y in faces):
                 faces.append(face)
+
+    def _singular_power(self, fp: np.ndarray | None, pv: np.ndarray, v: int) -> float | None:
+        """The power ``p`` of ``|x - s|^(-p)`` at a point singularity ``s`` at vertex ``v`` of a Genz–Malik box
+        (node values ``fp`` (p, m), probe values ``pv``): from the growth of ``|f|`` from the corner node towards
+        ``v`` to its probe, which must match the growth from the centre to that node within
+        :data:`SINGULAR_POWER_MATCH` (a power law along the whole diagonal); None where it does not, or where
+        ``p`` is not in (0, d]."""
+        if fp is None:
+            return None
+        grp = self.rule.extra["groups"]["corner5"]
+        a = float(np.abs(self.rule.nodes[grp[0]]).max())
+        f0, fc, fv = np.abs(fp[0]), np.abs(fp[grp[0] + v]), np.abs(pv[v])
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            p_out = np.log(fv / fc) / np.log((1.0 - a) / (1.0 - _estimate.PROBE_POSITION))
+            p_in = np.log(fc / f0) / np.log(1.0 / (1.0 - a))
+        if not (np.all(np.isfinite(p_out)) and np.all(np.isfinite(p_in))):
+            return None
+        p = float(np.max(p_out))
+        if not (0.0 < p <= self.domain.dim) or np.any(np.abs(p_in - p_out) > SINGULAR_POWER_MATCH * p):
+            return None
+        return p
 
     def _explained(self, parents: dict, kids: dict) -> np.ndarray:
         """Children (of the split ``parents``) whose parent's only signature is a non-asymptotic rule
@@ -986,9 +1071,22 @@ class Run:
                 or "diagonal" in self.rule.extra):
             return na
         sub = np.nonzero(na)[0]
-        ql, absl, one = self._log_rules(fr[sub], self.geometry.volume({k: a[sub] for k, a in g.items()}))
+        gs = {k: a[sub] for k, a in g.items()}
+        vol = self.geometry.volume(gs)
+        ql, absl, one = self._log_rules(fr[sub], vol)
         na[sub] = _estimate.non_asymptotic(q[sub, 0, :], q[sub, 1, :], q3[sub], absq[sub],
                                            log_rules=(ql, absl, one))
+        if na[sub].any() and self.checks.get("singular_powers"):
+            # a known point singularity explains the signature of a box away from it when f |x - s|^p shows none
+            w, _ = self._singular_factors(gs)
+            ok = np.isfinite(w).all(axis=1) & na[sub]
+            if ok.any():
+                fm = fr[sub][ok] * w[ok][:, :, None]
+                qm = np.einsum("rp,kpm->krm", self._w, fm) * vol[ok][:, None, None]
+                absm = np.abs(np.einsum("p,kpm->km", self.rule.weights, np.abs(fm)) * vol[ok][:, None])
+                still = _estimate.non_asymptotic(qm[:, 0, :], qm[:, 1, :], qm[:, 2, :], absm)
+                na[sub[ok]] = still
+                self.checks["singular_explained"] = int(self.checks.get("singular_explained", 0)) + int((~still).sum())
         return na
 
     def _keys(self, err: np.ndarray, tol: np.ndarray | None = None) -> np.ndarray:
