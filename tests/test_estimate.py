@@ -330,3 +330,45 @@ def test_log_model_never_explains_away_a_kink_of_a_positive_function(g):
             with mock.patch.object(E, "_one_sign", lambda *x: np.zeros(x[0].shape, dtype=bool)):
                 f_only = E.probe_errors(*args, f_mid=fm)[1][0]
             assert E.probe_errors(*args, f_mid=fm)[1][0] or not f_only, c
+
+
+def test_lineage_tail_recovers_the_errors_of_a_self_similar_lineage():
+    """Issue 12 item 5 (simplex face singularities): a lineage whose cycle of three bisections is two splits
+    along the singular face (two children with half the error each: the split check measures D = 0) and one
+    across it (children with alpha and beta of the error, D = (1 - alpha - beta) e).  The errors of every region
+    are known by construction; the tail |R1| rho / (1 - rho) of the last cycle's measured reductions, with rho
+    the ratio of the last two cycles' reductions, is the child's error exactly (a geometric series, by hand:
+    rho = alpha + beta, R1 = alpha / (alpha + beta) (1 - alpha - beta) e).  The split check alone saw a quarter of
+    it (x^-1/2 on the 3-D simplex: alpha + beta = 0.733)."""
+    alpha, beta, cycle = 0.6, 0.133, 3
+    err = 1.0                                       # the error of the lineage's region (sign: the rule is low)
+    window = np.zeros((1, 2 * cycle, 1))
+    checked = 0
+    for step in range(5 * cycle):
+        across = step % cycle == cycle - 1
+        kids = np.array([alpha, beta]) * err if across else np.array([0.5, 0.5]) * err
+        D = np.array([[err - kids.sum()]])          # Q(parent) - sum Q(children) = e_children - e_parent (signed)
+        share = (kids / kids.sum())[:, None, None]  # the children's shares of the parent's error
+        full, children = E.lineage_windows(-D, window, share)
+        assert np.allclose(children.sum(axis=0), full[0])          # the shares split the parent's lineage
+        rho = E.cycle_ratio(full, cycle)
+        if step >= 2 * cycle - 1:                   # two cycles measured
+            assert rho[0, 0] == pytest.approx(alpha + beta)
+            tails = E.lineage_tail(children, np.repeat(rho, 2, axis=0), cycle)
+            assert tails[:, 0] == pytest.approx(kids)               # each child's true error
+            checked += 1
+        elif step < cycle:
+            assert not np.isfinite(rho[0, 0])      # nothing measured before the older cycle: no ratio
+        window, err = children[:1], kids[0]         # follow the child holding the face
+    assert checked == 5 * cycle - (2 * cycle - 1)
+
+
+def test_lineage_tail_of_a_smooth_lineage_is_small_and_capped():
+    """Issue 12 item 6: a smooth region's error falls 2^8-fold per cycle of bisections (degree-7 rule; by hand
+    rho = 2^-8), so the tail is 1/255 of the last cycle's reduction; a ratio at or above 1 (no convergence
+    measured) is capped at LINEAGE_CAP (0.95: 19 times the reduction)."""
+    window = np.zeros((1, 4, 1))
+    window[0, :2, 0] = [1.0, 0.0]
+    assert E.lineage_tail(window, np.array([[2.0 ** -8]]), 2)[0, 0] == pytest.approx(1.0 / 255)
+    assert E.lineage_tail(window, np.array([[1.5]]), 2)[0, 0] == pytest.approx(E.LINEAGE_CAP / (1 - E.LINEAGE_CAP))
+    assert E.lineage_tail(window, np.array([[np.nan]]), 2)[0, 0] == 0.0

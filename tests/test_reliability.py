@@ -156,6 +156,31 @@ def test_inverse_square_root_on_every_face_of_a_simplex():
     assert "not smooth" in res.message
 
 
+@pytest.mark.parametrize("d, every_face, budget", [(3, True, 2_000_000), (3, False, 1_000_000),
+                                                   (4, False, 1_000_000)])
+def test_inverse_square_root_faces_of_a_simplex_at_the_end_of_the_budget(d, every_face, budget):
+    """Issue 12 item 5: a run that cannot reach its goal ends with its honest estimate.  Next to a singular face
+    the split check sees a quarter of a simplex region's error or nothing, and the regions' estimates summed to
+    0.14 against a true 0.64 (x^-1/2 on every face, d = 3, the published case: 0.54 reported through the
+    convergence trend); x0^-1/2 alone reported 0.37x (d = 3) and 0.24x (d = 4) of its true error.  The regions'
+    own estimates must hold, not only the trend's extrapolation."""
+    if every_face:
+        # Dirichlet's integral (Whittaker & Watson, A Course of Modern Analysis, 12.5): Gamma(1/2)^(d+1) /
+        # Gamma((d+1)/2)
+        exact = math.gamma(0.5) ** (d + 1) / math.gamma((d + 1) / 2)
+        f = lambda X: 1.0 / np.sqrt(X.prod(axis=1) * np.maximum(1.0 - X.sum(axis=1), 0.0))
+    else:
+        # Dirichlet's integral (same): x0^(1/2 - 1) x1^0 ... (1 - sum)^0 -> Gamma(1/2) / Gamma(d + 1/2)
+        exact = math.gamma(0.5) / math.gamma(d + 0.5)
+        f = lambda X: 1.0 / np.sqrt(X[:, 0])
+    run = cubage.Run(f, cubage.Simplex(np.vstack([np.zeros(d), np.eye(d)])), rel_tol=1e-6, budget=budget)
+    res = run.run()
+    true = _honest(res, exact, 1e-6)
+    assert not res.converged
+    assert true <= res.error
+    assert true <= run.store["error"].sum()
+
+
 def test_audit_finds_a_step_no_node_sees(monkeypatch):
     """Issue 12 item 4: 1 + 50 [x1 > 0.98] on [0,1]^3 looks constant to every node of the first region.
 

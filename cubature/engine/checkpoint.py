@@ -201,6 +201,8 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     if "raw" not in regions and "error" in regions:   # written before the split check existed
         regions.update(raw=regions["error"], low=regions.get("value"),
                        flags=np.zeros(len(regions["error"]), np.uint8))
+    if "dwin" in cols and "dwin" not in regions and "value" in regions:   # simplex, written before lineage windows
+        regions["dwin"] = np.full((len(regions["value"]),) + cols["dwin"][0], np.nan)
     try:
         run.store = RegionStore.from_arrays(cols, regions)
     except (KeyError, ValueError) as exc:
