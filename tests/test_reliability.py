@@ -181,6 +181,19 @@ def test_inverse_square_root_faces_of_a_simplex_at_the_end_of_the_budget(d, ever
     assert true <= run.store["error"].sum()
 
 
+@pytest.mark.parametrize("d, a, tol", [(2, -0.5, 3e-2), (3, -0.25, 3e-2)])
+def test_audit_of_a_simplex_with_a_singular_face_splits_through_a_cycle(d, a, tol):
+    """Issue 12 item 4: x0^a on the standard simplex at a loose goal.  Bisections along the singular face measure
+    none of a region's error, and the audit's one bisection per region passed: x0^-1/2 in 2-D at 3e-2 converged
+    after 475 evaluations with a true error 3x its goal (x0^-1/4 in 3-D: converged beyond its reported error)."""
+    # Dirichlet's integral (Whittaker & Watson, A Course of Modern Analysis, 12.5): Gamma(a + 1) / Gamma(a + 1 + d)
+    exact = math.gamma(a + 1) / math.gamma(a + 1 + d)
+    res = cubage.integrate(lambda X: X[:, 0] ** a, cubage.Simplex(np.vstack([np.zeros(d), np.eye(d)])),
+                           rel_tol=tol, budget=200_000)
+    true = _honest(res, exact, tol)
+    assert true <= res.error
+
+
 def test_audit_finds_a_step_no_node_sees(monkeypatch):
     """Issue 12 item 4: 1 + 50 [x1 > 0.98] on [0,1]^3 looks constant to every node of the first region.
 
