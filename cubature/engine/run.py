@@ -694,10 +694,13 @@ class Run:
         absq *= vol[:, None]
         return q, np.abs(absq), fr
 
-    def _probe_values(self, g: dict, probe: np.ndarray, mid: bool = False) -> np.ndarray | None:
+    def _probe_values(self, g: dict, probe: np.ndarray, mid: bool = False,
+                      faces: bool = True) -> np.ndarray | None:
         """Integrand values (kp, v, m) at the vertex probes of the regions ``probe`` (a boolean mask)
         of ``g``, in a second call; a non-finite value there is a signature (NaN), not a failure.
-        None when the rule has no corner nodes or no region is selected."""
+        None when the rule has no corner nodes or no region is selected.  ``mid`` (Genz–Malik): a second
+        probe per vertex and, unless ``faces`` is False (:meth:`_face_values` takes them then), one just
+        inside the centre of every face."""
         if not probe.any():
             return None
         sub = {name: a[probe] for name, a in g.items()}
@@ -707,12 +710,28 @@ class Run:
         if mid and "diagonal" not in self.rule.extra:   # Genz-Malik: a second probe per vertex, node to probe
             kp, d = int(probe.sum()), t.shape[1]
             tm = self.geometry.probe_points(sub, _estimate.PROBE_MID)
-            # and one just inside the centre of every face: the axis lines through the centre carry five nodes
-            # each, so a kink parallel to a face in its last few per cent shows there, free of the other axes'
-            # curvature that can hide it on the diagonals
-            eye = np.repeat(np.eye(d), 2, axis=0) * np.tile([1.0, -1.0], d)[:, None]        # +e0, -e0, +e1, ...
-            tf = sub["centre"][:, None, :] + _estimate.PROBE_POSITION * sub["halfw"][:, None, :] * eye[None]
-            t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d), tf], axis=1).reshape(-1, d)
+            tf = [self._face_points(sub)] if faces else []
+            t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d), *tf], axis=1).reshape(-1, d)
+        return self._values_at(t).reshape(int(probe.sum()), -1, self.m or 1)
+
+    def _face_points(self, g: dict) -> np.ndarray:
+        """Points (k, 2 d, d) just inside the centre of every face of the boxes ``g`` (order ``+e_0, -e_0, +e_1,
+        ...``): the axis lines through the centre carry five nodes each, so a kink parallel to a face in its last
+        few per cent shows there, free of the other axes' curvature that can hide it on the diagonals."""
+        d = g["centre"].shape[1]
+        eye = np.repeat(np.eye(d), 2, axis=0) * np.tile([1.0, -1.0], d)[:, None]        # +e0, -e0, +e1, ...
+        return g["centre"][:, None, :] + _estimate.PROBE_POSITION * g["halfw"][:, None, :] * eye[None]
+
+    def _face_values(self, g: dict, need: np.ndarray) -> np.ndarray:
+        """Values (k, 2 d, m) at the face probes ``need`` (k, 2 d) of the boxes ``g``; NaN (no data) elsewhere."""
+        out = np.full((*need.shape, self.m or 1), np.nan)
+        if need.any():
+            out[need] = self._values_at(self._face_points(g)[need])
+        return out
+
+    def _values_at(self, t: np.ndarray) -> np.ndarray:
+        """Integrand values (n, m) at engine points ``t`` (n, d) outside the rule's nodes, in one call: NaN where
+        the integrand gives no finite value, fails there, or the point maps to infinity."""
         n, m = t.shape[0], self.m or 1
         out = np.full((n, m), np.nan)
         # a vertex at the end of an infinite axis (engine t = +-1) maps to infinity: no value there is data
@@ -742,7 +761,7 @@ class Run:
                     if jac is not None:
                         fx = fx * jac[:, None]
                 out[use] = np.where(np.isfinite(fx), fx, np.nan)
-        return out.reshape(int(probe.sum()), -1, m)
+        return out
 
     def _call_integrand(self, x: np.ndarray):
         """The integrand (through the evaluator) at ``x``, in a call the run can abandon.
@@ -871,6 +890,20 @@ class Run:
             fl, dv = np.maximum(fl, ff), dv | fd
         return fl, dv, ex
 
+    def _faces_to_probe(self, fp: np.ndarray, pv: np.ndarray) -> np.ndarray:
+        """Faces (k, 2 d) of Genz–Malik boxes (node values ``fp``, vertex and mid probe values ``pv``) whose
+        centre probe sees a kink parallel to them more sharply than their vertices' diagonal checks do
+        (:func:`~cubage.engine.estimate.faces_to_probe`)."""
+        groups = self.rule.extra["groups"]
+        grp, g2, g3 = groups["corner5"], groups["axis2"], groups["axis3"]
+        nv = grp[1] - grp[0]
+        fc = fp[:, grp[0]:grp[1], :]
+        return _estimate.faces_to_probe(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], pv[:, nv:2 * nv],
+                                        fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
+                                        float(np.abs(self.rule.nodes[grp[0]]).max()),
+                                        float(np.abs(self.rule.nodes[g2[0]]).max()),
+                                        float(np.abs(self.rule.nodes[g3[0]]).max()), vertex_signs(self.domain.dim))
+
     def _singular_factors(self, g: dict, n_probes: int = 0) -> tuple[np.ndarray, np.ndarray]:
         """``|x - s|^p`` at the nodes (k, p) and at the ``n_probes`` probes (k, n_probes; the layout of
         :meth:`_probe_values`) of the Genz–Malik boxes ``g``, with ``s`` the known point singularity nearest each
@@ -899,9 +932,8 @@ class Run:
             nv = 2 ** d
             parts.append(self.geometry.probe_points(g, _estimate.PROBE_POSITION).reshape(k, nv, d))
             if n_probes > nv:
-                eye = np.repeat(np.eye(d), 2, axis=0) * np.tile([1.0, -1.0], d)[:, None]
                 parts.append(self.geometry.probe_points(g, _estimate.PROBE_MID).reshape(k, nv, d))
-                parts.append(c[:, None, :] + _estimate.PROBE_POSITION * h[:, None, :] * eye[None])
+                parts.append(self._face_points(g))
         allx = np.concatenate(parts, axis=1)
         if allx.shape[1] != npts + n_probes:
             return nan
@@ -1433,9 +1465,18 @@ class Run:
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
         # children that look resolved although their parent showed a non-smooth signature: probe their vertices
         suspect = self._suspects(parents, q, absq, kids)
-        pv = self._probe_values(kids, suspect, mid=True)    # may raise: nothing changed yet
+        # may raise: nothing changed yet
+        pv = self._probe_values(kids, suspect, mid=True, faces=False)
+        spent = None
+        if pv is not None and "diagonal" not in self.rule.extra:
+            # the face probes where the diagonal checks of the face's vertices are less sharp than theirs
+            sub = {name: a[suspect] for name, a in kids.items()}
+            need = self._faces_to_probe(fr[suspect], pv)
+            pv = np.concatenate([pv, self._face_values(sub, need)], axis=1)
+            spent = pv.shape[0] * (pv.shape[1] - need.shape[1]) + int(need.sum())
+            self.checks["face_probes_spared"] = int(self.checks.get("face_probes_spared", 0)) + int((~need).sum())
         self.queue.pop(k)
-        key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0)
+        key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0, spent=spent)
         if disagreed and np.any(self._hidden > 0.1 * self.goal()):
             self._audit_ok = False                   # a large new discrepancy: the next convergence needs an audit
         self.queue.push(np.concatenate([idx, new]), key)
@@ -1446,11 +1487,13 @@ class Run:
 
     def _replace(self, idx: np.ndarray, parents: dict, kids: dict, q: np.ndarray, absq: np.ndarray,
                  fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
-                 extra_flag: int, nch: int | None = None) -> tuple[np.ndarray, np.ndarray, int]:
+                 extra_flag: int, nch: int | None = None,
+                 spent: int | None = None) -> tuple[np.ndarray, np.ndarray, int]:
         """Write the children of the split parents ``idx`` into the store (the parent's row is reused,
         the other children appended) after the split check; returns (children's keys, appended rows,
         number of surprises: parents whose children disagreed with them beyond their estimate, plus
-        children whose vertex probes raised their estimate)."""
+        children whose vertex probes raised their estimate).  ``spent``: the probes evaluated, when not
+        every entry of ``pv`` was."""
         st = self.store
         k = len(idx)
         nch = nch or self.geometry.children_per_split
@@ -1523,7 +1566,9 @@ class Run:
         rest = {name: a[k:] for name, a in cols.items()}
         st.put(idx, **first)
         new = st.append(**rest) if nch > 1 else np.zeros(0, np.int64)
-        self.evaluations += fr.shape[0] * fr.shape[1] + (pv.shape[0] * pv.shape[1] if pv is not None else 0)
+        if spent is None:
+            spent = pv.shape[0] * pv.shape[1] if pv is not None else 0
+        self.evaluations += fr.shape[0] * fr.shape[1] + spent
         return key, new, int(pd.sum()) + int(raised.sum())
 
     def _lineage_tails(self, parents: dict, child_sum: np.ndarray, raw: np.ndarray, err: np.ndarray,
