@@ -221,13 +221,13 @@ as status, true / reported error):
   -> budget-spent 2.4e-5 / 2.8e-3.  x+y+z < 1.4 (Irwin-Hall CDF):
   budget-spent 3.5e-4 / 9.2e-4 -> budget-spent 4.4e-4 / 4.3e-3.
 * Dirichlet (-1/2 on every face), simplex, d = 2 / 3: budget-spent
-  2.7e-2 / 7.2e-3 and 6.1e-1 / 1.4e-1 -> budget-spent 2.9e-2 / 6.9e-2 and
-  6.6e-1 / 2.4 (the regions' own estimates: 5.4e-2 and 1.05; the rest is
+  2.7e-2 / 7.2e-3 and 6.1e-1 / 1.4e-1 -> budget-spent 2.9e-2 / 5.4e-2 and
+  6.6e-1 / 2.35 (the regions' own estimates: 5.4e-2 and 1.05; the rest is
   the convergence trend's extrapolation).  Before the lineage tail (item 6)
   the 3-D one reported 0.54 against 0.64, and only the trend saw the
   error: the regions' estimates summed to 0.14.  ``benchmarks/simplex.py
   --singular`` checks x0^-1/2 alone and every face in d = 2, 3, 4 (regions
-  1.2-2.7x the true error at 2e5-2e6 evaluations, where x0^-1/2 reported
+  1.1-2.7x the true error at 2e5-2e6 evaluations, where x0^-1/2 reported
   0.24-0.37x before in d = 3, 4).
 
 No silent wrong answer among the 26 published runs (before: 1).

@@ -1585,7 +1585,8 @@ class Run:
         (:func:`~cubage.engine.estimate.cycle_ratio`), and the children of a region with a non-smooth
         signature get at least the tail ``|R1| rho / (1 - rho)`` (:func:`~cubage.engine.estimate.lineage_tail`).
         ``rho`` is the larger of the lineage's own and the mean over the wary class's splits (each ratio
-        clipped to [-1, 1]; learnt after :data:`~cubage.engine.estimate.WARY_MIN_SPLITS`), and no tail applies
+        clipped to [-1, 1] and weighted by the older cycle's reduction; learnt after
+        :data:`~cubage.engine.estimate.WARY_MIN_SPLITS`), and no tail applies
         while that mean is at most :data:`~cubage.engine.estimate.TREND_SLOW`: smooth lineages measure small
         ratios (a degree-7 rule's error falls 2^8-fold per cycle).  Windows start as NaN (not measured)."""
         nch, k, m = raw.shape
@@ -1599,13 +1600,20 @@ class Run:
         window, children = _estimate.lineage_windows(D, parents["dwin"], share)
         own = _estimate.cycle_ratio(window, cycle)               # (k, m), NaN where not measured
         learn = np.isfinite(own) & ((parents["flags"] & FLAG_WARY) != 0)[:, None]
+        # the class's ratio: the mean of the clipped ratios weighted by the older cycle's reduction, so that the
+        # lineages holding the error decide (an unweighted mean let a second component's smooth lineages hold a
+        # face-singular component's below TREND_SLOW: x0^-1/2 beside x^-1/2 on every face reported 0.37x)
+        older = np.abs(window[:, cycle:].sum(axis=1))
         c = self.checks
-        total = np.asarray(c.get("lineage_ratio_sum", [0.0] * m), float) + np.where(learn, np.clip(own, -1, 1),
-                                                                                    0.0).sum(axis=0)
+        total = (np.asarray(c.get("lineage_weighted", [0.0] * m), float)
+                 + np.where(learn, np.clip(own, -1, 1) * older, 0.0).sum(axis=0))
+        weight = np.asarray(c.get("lineage_weight", [0.0] * m), float) + np.where(learn, older, 0.0).sum(axis=0)
         count = np.asarray(c.get("lineage_splits", [0] * m), np.int64) + learn.sum(axis=0)
-        c["lineage_ratio_sum"] = [float(v) for v in total]
+        c["lineage_weighted"] = [float(v) for v in total]
+        c["lineage_weight"] = [float(v) for v in weight]
         c["lineage_splits"] = [int(v) for v in count]
-        learnt = np.where(count >= _estimate.WARY_MIN_SPLITS, total / np.maximum(count, 1), 0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            learnt = np.where((count >= _estimate.WARY_MIN_SPLITS) & (weight > 0), total / weight, 0.0)
         # the tail applies once the wary class as a whole converges slowly per cycle (the trend floor's
         # TREND_SLOW): a smooth lineage's ratio can read high at coarse scales (a 2-D monomial vanishing on the
         # faces, depth 3: estimates raised 30x, +9 % evaluations), a singular face's class reads 0.65-0.85
