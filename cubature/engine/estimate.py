@@ -93,11 +93,12 @@ measurements that subdivision produces anyway, and corrects it:
    while a kink or jump of ``f`` is one of ``log|f|`` too (exp(-4|x - 0.3|^2)
    on [0, 1]^5 at 1e-6: 42 % of its probed regions deviated and the run
    cost 409,593 evaluations; 0 % and 352,745 with this check).  Who is probed:
-   every Gauss–Kronrod region (2^d values beside 15^d nodes); the first
-   region; Genz–Malik children that look resolved (estimate below
+   every Gauss–Kronrod region (2^d values beside 15^d nodes) but an audit's
+   children of a probed parent; the first region; Genz–Malik children that look resolved (estimate below
    ``PROBE_GATE`` times ``|Q|``) whose parent showed a non-smooth signature
    or is *watched* (a descendant of such a region not yet cleared by its own
-   probes); audit children whose parent was not probed.  Non-finite values
+   probes); audit children (Genz–Malik: that look resolved) whose parent
+   was not probed.  Non-finite values
    (a corner singularity) are no data and no signature; values above
    :data:`PROBE_WILD` times the integrand's magnitude on the nodes (a
    singularity just inside the vertex, or a thin layer along a face that no
@@ -139,7 +140,7 @@ measurements that subdivision produces anyway, and corrects it:
    ``d`` bisections (``2^d`` children: a bisection along a singular face
    measures nothing, item 6), other boxes
    along the widest axis other than the rule's; the region with the largest
-   error estimate joins every sample of two or more, split along the rule's
+   error estimate joins every sample, split along the rule's
    axis (where its error comes from).  What each audited parent's
    estimate missed (``D`` beyond it), extrapolated to the whole partition by
    value share, must fit in the goal, or the run goes on refining and
