@@ -84,6 +84,8 @@ SINGULAR_STEEP = 4.0
 SINGULAR_POWER_MATCH = 0.25
 #: failed audits that each double the next sample (at most 2^AUDIT_GROWTH times AUDIT_COST)
 AUDIT_GROWTH = 1
+#: boxes holding a domain vertex, each half the size of the last, that Run._domain_corners may check in turn
+CORNER_LEVELS = 6
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
 #: neighbouring constants and neither run shows a non-smooth signature (:meth:`Run._warm_audit_share`).
 #: Chosen on benchmarks/scan.py's smooth scan (warm/cold 0.517 with 1, 0.491 with 0.5, 0.476 with 0.25,
@@ -1806,8 +1808,14 @@ class Run:
         ``[0.5, 1]^2 x [0, 1]`` was probed and agreed, its descendants never were, and the run converged 3.2x
         beyond its goal with the corner missing).  Each such box gets the two probes of the diagonal through the
         domain's vertex (and the second probe per vertex on it) with the centre and the two corner nodes on that
-        diagonal (:func:`~cubage.engine.estimate.probe_errors`): ``7 * 2^d`` evaluations at most per audit.
-        Boxes already flagged non-smooth or probed, and boxes checked at an earlier audit, are skipped."""
+        diagonal (:func:`~cubage.engine.estimate.probe_errors`), 7 evaluations.  A check that agreed bounds a jump
+        at the vertex only by its allowance there (the cubic's own terms, which shrink with the square of the
+        box's size): where that allowance times the box's volume beyond its corner node exceeds the vertex's share
+        of :data:`AUDIT_SMALL` times the goal, the box of half the size holding the vertex is checked in turn, up to
+        :data:`CORNER_LEVELS` times (``1/|x| + 0.01`` beyond ``1 - x + y + z < 0.13``: ``[0.75, 1] x [0, 0.25] x
+        [0, 0.5]`` read a deviation of 0.0142 against an allowance of 0.0155).  At most ``7 * CORNER_LEVELS * 2^d``
+        evaluations per audit.  Boxes already flagged non-smooth or probed, and boxes checked at an earlier audit,
+        are skipped."""
         if self.geometry.kind != "box" or "diagonal" in self.rule.extra or not has_probes(self.rule):
             return "audit"
         st, d = self.store, self.domain.dim
@@ -1840,22 +1848,49 @@ class Run:
         a = float(np.abs(self.rule.nodes[grp[0]]).max())
         T, M = _estimate.PROBE_POSITION, _estimate.PROBE_MID
         pos = np.array([0.0, a, -a, T, -T, M, -M])
-        t = c[:, None, :] + pos[None, :, None] * (h * sgn)[:, None, :]
-        fv = self._values_at(t.reshape(-1, d)).reshape(k, len(pos), -1)
-        self.evaluations += fv.shape[0] * fv.shape[1]
-        node = fv[:, :3, :]
-        scale = np.maximum(np.abs(node).max(axis=1), np.asarray(self.checks["f_scale"]))
-        with np.errstate(over="ignore", invalid="ignore"):
-            big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)[:, None, :]
-            pr = np.clip(fv[:, 3:, :], -big, big)
-        f_plus = node[:, 1:3, :]                               # towards the vertex, towards its opposite
-        fl, dv = _estimate.probe_errors(node[:, 0, :], f_plus, f_plus[:, ::-1, :], pr[:, 0:2, :], a,
-                                        self.geometry.volume({"centre": c, "halfw": h}),
-                                        np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :])
-        # two of the box's 2^d vertices were probed: the floor is their share of a full probe's mean
-        fl = fl * (2.0 / 2 ** d)
+        coef = np.linalg.inv(np.vander(np.array([-T, -a, 0.0, a]), 4, increasing=True))
+        # share of a box beyond the plane through its corner node across the diagonal (where a jump hides from
+        # every node) and the hidden error each domain vertex may keep
+        beyond = (d * (1.0 - a)) ** d / math.factorial(d) / 2 ** d
+        share = AUDIT_SMALL * self.goal() / 2 ** d
+        fl = np.zeros((k, self.m))
+        dv = np.zeros(k, dtype=bool)
+        todo = np.arange(k)
+        for _ in range(CORNER_LEVELS):
+            if todo.size == 0:
+                break
+            if self.evaluations + 7 * todo.size > self.settings.budget:
+                break
+            cc, hh, ss = c[todo], h[todo], sgn[todo]
+            t = cc[:, None, :] + pos[None, :, None] * (hh * ss)[:, None, :]
+            fv = self._values_at(t.reshape(-1, d)).reshape(todo.size, len(pos), -1)
+            self.evaluations += fv.shape[0] * fv.shape[1]
+            self.checks["corner_probes"] = int(self.checks.get("corner_probes", 0)) + fv.shape[0] * fv.shape[1]
+            node = fv[:, :3, :]
+            scale = np.maximum(np.abs(node).max(axis=1), np.asarray(self.checks["f_scale"]))
+            with np.errstate(over="ignore", invalid="ignore"):
+                big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)[:, None, :]
+                pr = np.clip(fv[:, 3:, :], -big, big)
+            f_plus = node[:, 1:3, :]                           # towards the vertex, towards its opposite
+            vol = self.geometry.volume({"centre": cc, "halfw": hh})
+            f1, d1 = _estimate.probe_errors(node[:, 0, :], f_plus, f_plus[:, ::-1, :], pr[:, 0:2, :], a, vol,
+                                            np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :])
+            # two of the box's 2^d vertices were probed: the floor is their share of a full probe's mean
+            fl[todo] = np.maximum(fl[todo], f1 * (2.0 / 2 ** d))
+            dv[todo] |= d1
+            # the largest jump the check at the domain's vertex lets pass (the cubic's allowance there) times the
+            # volume beyond the corner node: where it exceeds the vertex's share of the goal, look again at the
+            # box of half the size holding the vertex (its allowance shrinks with the square of its size)
+            with np.errstate(invalid="ignore"):
+                cf = np.einsum("ij,jkm->ikm", coef, np.stack([pr[:, 1, :], node[:, 2, :], node[:, 0, :],
+                                                                node[:, 1, :]]))
+                allow = _estimate.PROBE_CURVATURE * np.abs(cf[2]) * T * T + np.abs(cf[3]) * T ** 3
+                bound = np.where(np.isfinite(allow), allow, 0.0) * (vol * beyond)[:, None]
+            more = ~d1 & (bound > share[None, :]).any(axis=1)
+            todo = todo[more]
+            c[todo] = c[todo] + 0.5 * h[todo] * sgn[todo]
+            h[todo] = 0.5 * h[todo]
         self.checks["corner_seen"] = np.concatenate([g["centre"][held], g["halfw"][held]], axis=1).tolist()
-        self.checks["corner_probes"] = int(self.checks.get("corner_probes", 0)) + fv.shape[0] * fv.shape[1]
         if not dv.any():
             return "audit"
         hit = rows[dv]
