@@ -896,10 +896,12 @@ class Run:
         fc = fp[:, grp[0]:grp[1], :]
         a = float(np.abs(self.rule.nodes[grp[0]]).max())
         fmid = pv[:, nv:2 * nv] if pv.shape[1] > nv else None
+        g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
+        axes = (fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :], float(np.abs(self.rule.nodes[g2[0]]).max()),
+                float(np.abs(self.rule.nodes[g3[0]]).max()))
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
-                                            np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid)
+                                            np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes)
         if pv.shape[1] > 2 * nv:
-            g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
             ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
                                            pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
                                            float(np.abs(self.rule.nodes[g3[0]]).max()), vol,
