@@ -261,6 +261,7 @@ a guaranteed bound: a narrow peak between the nodes goes unseen.
 
 from __future__ import annotations
 
+import functools
 import itertools
 
 import numpy as np
@@ -585,6 +586,17 @@ def _one_sign(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, f_mid: np
     return ok
 
 
+@functools.lru_cache(maxsize=16)
+def diagonal_cubic(a: float) -> np.ndarray:
+    """The (4, 4) matrix taking a cubic's values at ``-PROBE_POSITION, -a, 0, a`` on a box's diagonal (the
+    opposite probe, the two corner nodes and the centre) to its monomial coefficients: the extrapolation every
+    vertex check fits (read-only; built once per ``a``)."""
+    xs = np.array([-PROBE_POSITION, -a, 0.0, a])
+    coef = np.linalg.inv(np.vander(xs, 4, increasing=True))
+    coef.setflags(write=False)
+    return coef
+
+
 def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray, a: float,
                   rounding, f_mid: np.ndarray | None, sign: np.ndarray | None = None,
                   power: float = 0.0, separable: tuple | None = None) -> np.ndarray:
@@ -598,8 +610,7 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     prediction of every check is instead the separable model of ``log|f|`` from the axis lines
     (:func:`separable_log_prediction`), held to the same allowances."""
     t = PROBE_POSITION
-    xs = np.array([-t, -a, 0.0, a])
-    coef = np.linalg.inv(np.vander(xs, 4, increasing=True))     # values at xs -> monomial coefficients
+    coef = diagonal_cubic(a)
 
     def diagonal(v0, vp, vm, vpr):
         return np.stack([vpr[:, ::-1, :], vm, np.broadcast_to(v0[:, None, :], vp.shape), vp])
@@ -1133,8 +1144,7 @@ def faces_to_probe(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pr
     ndarray of bool, shape (k, 2 d)
     """
     t = PROBE_POSITION
-    xs = np.array([-t, -a, 0.0, a])
-    coef = np.linalg.inv(np.vander(xs, 4, increasing=True))
+    coef = diagonal_cubic(a)
     centre = np.broadcast_to(f0[:, None, :], f_plus.shape)
     xm = np.array([-a, 0.0, a, PROBE_MID])
     w3, w2 = _lagrange_weights(xm, t), _lagrange_weights(xm[1:], t)

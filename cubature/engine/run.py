@@ -1851,7 +1851,7 @@ class Run:
         a = float(np.abs(self.rule.nodes[grp[0]]).max())
         T, M = _estimate.PROBE_POSITION, _estimate.PROBE_MID
         pos = np.array([0.0, a, -a, T, -T, M, -M])
-        coef = np.linalg.inv(np.vander(np.array([-T, -a, 0.0, a]), 4, increasing=True))
+        coef = _estimate.diagonal_cubic(a)
         # share of a box beyond the plane through its corner node across the diagonal (where a jump hides from
         # every node) and the hidden error each domain vertex may keep
         beyond = (d * (1.0 - a)) ** d / math.factorial(d) / 2 ** d
