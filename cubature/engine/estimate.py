@@ -864,6 +864,16 @@ def trend_floor(evals: np.ndarray, values: np.ndarray) -> np.ndarray:
     return floor
 
 
+@functools.lru_cache(maxsize=8)
+def _legendre_coefficients(nodes_1d: tuple[float, ...]) -> np.ndarray:
+    """The matrix taking values at ``nodes_1d`` to the Legendre coefficients of their interpolant (read-only;
+    built once per node set)."""
+    x = np.asarray(nodes_1d)
+    coef = np.linalg.inv(np.polynomial.legendre.legvander(x, len(x) - 1))
+    coef.setflags(write=False)
+    return coef
+
+
 def axis_kink_errors(f_nodes: np.ndarray, nodes_1d: np.ndarray, weights_1d: np.ndarray, volume: np.ndarray,
                      scale: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Error floors of tensor-rule boxes from how each axis' interpolant decays (a kink inside the box).
@@ -915,7 +925,7 @@ def axis_kink_errors(f_nodes: np.ndarray, nodes_1d: np.ndarray, weights_1d: np.n
     k, n, m = f_nodes.shape
     p = len(nodes_1d)
     d = int(round(np.log(n) / np.log(p)))
-    to_coef = np.linalg.inv(np.polynomial.legendre.legvander(nodes_1d, p - 1))    # values -> Legendre coefficients
+    to_coef = _legendre_coefficients(tuple(float(x) for x in nodes_1d))
     grid = f_nodes.reshape((k,) + (p,) * d + (m,))
     noise = 1e3 * ROUNDING * scale
     floor = np.zeros((k, m))
