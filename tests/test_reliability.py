@@ -656,14 +656,16 @@ def test_gauss_kronrod_audit_children_of_a_probed_region_are_not_probed_again():
     vertex probes of the four audit children of cos(2 pi u0 + a . x), whose first region's probes agreed, deviated
     from the cubic extrapolation by its fourth-order remainder where the cubic term vanished by accident; the
     audit extrapolated 4e-7 of 'hidden' error against a goal of 9e-11 (true error 4e-17) and the run refined
-    through four failed audits to 5,725 evaluations.  Now the audit costs its split only: 225 + 4 probes + 4 x 225.
+    through four failed audits to 5,725 evaluations.  Then the audit cost its split only (225 + 4 probes + 4 x 225);
+    now its lattice check (the node values again and 233 lattice points), which passes, and no split.
     Closed form: Re(e^(2 pi i u0) prod (e^(i a_k) - 1)/(i a_k)) (Genz 1984; cubage.bench.genz_families.exact,
     checked in tests/test_genz.py)."""
     a = np.array([6.285570175676215, 2.7144298243237848])
     u = np.array([0.9779393744774885, 0.16349613278395514])
     res = cubage.integrate(genz.integrand("oscillatory", a, u), cubage.Box([0] * 2, [1] * 2), rel_tol=1e-6)
     assert res.converged and res.trust["audits"] == 1 and res.trust["audit"] == "passed"
-    assert res.trust["audit_evaluations"] == 4 * 225 and res.evaluations == 225 + 4 + 4 * 225
+    assert res.trust["audit_checks"] == 1 and res.trust["audit_checks_failed"] == 0
+    assert res.trust["audit_evaluations"] == 225 + 233 and res.evaluations == 225 + 4 + 225 + 233
     assert abs(res.value - genz.exact("oscillatory", a, u)) <= res.error
 
 
@@ -712,3 +714,65 @@ def test_small_jump_in_a_domain_corner_beside_a_gaussian_3d():
     res = cubage.integrate(lambda X: np.exp(-(X * X).sum(axis=1)) + 0.001 * (X.sum(axis=1) > 2.8),
                            cubage.Box([0] * 3, [1] * 3), rel_tol=1e-6, raise_on_failure=False)
     _honest(res, exact, 1e-6)
+
+
+def test_fibonacci_lattice_of_the_2d_audit_check_has_distinct_lines():
+    """The 2-D audit check's lattice (Run._audit_check): a rank-1 lattice with N = 233 points and generator 144
+    (Fibonacci numbers; Korobov 1959, Sloan & Joe 1994) has N distinct coordinates on each axis, since the generator
+    is prime to N, and N distinct values of x + y and x - y, since 1 + 144 and 1 - 144 are prime to the prime 233
+    (elementary number theory): a slab between the rule's node lines, along an axis or a diagonal, is crossed."""
+    from cubage.engine.run import AUDIT_LATTICE, _fibonacci_lattice
+    pts = _fibonacci_lattice(AUDIT_LATTICE)
+    assert pts.shape == (233, 2) and np.all(np.abs(pts) < 1)
+    for v in (pts[:, 0], pts[:, 1], pts[:, 0] + pts[:, 1], pts[:, 0] - pts[:, 1]):
+        assert len(np.unique(np.round(v * 233 / 2, 6))) == 233
+    # equal weights integrate the constant and, as any lattice rule, trigonometric polynomials e^(2 pi i k.x) with
+    # k off the dual lattice exactly (Sloan & Joe 1994): here cos(pi (x + 1)) on [-1, 1] (mean 0)
+    assert abs(np.cos(np.pi * (pts[:, 0] + 1)).mean()) < 1e-13
+
+
+def test_lattice_basis_interpolates_polynomials_of_the_rule_exactly():
+    """The check's interpolant P (tensor Lagrange interpolation on the 15 Kronrod abscissae, barycentric form of
+    Berrut & Trefethen 2004) reproduces any polynomial of degree <= 14 per axis (uniqueness of polynomial
+    interpolation, common practice): then f - P vanishes at every lattice point and the check reads 0."""
+    from cubage.engine.rules.gauss_kronrod import kronrod15
+    from cubage.engine.run import AUDIT_LATTICE, _fibonacci_lattice, _lattice_basis
+    x, _, _ = kronrod15()
+    lx, ly = _lattice_basis(AUDIT_LATTICE, tuple(float(v) for v in x))
+
+    def poly(u, v):
+        return 1 + 3 * u ** 14 * v ** 3 - 2 * u ** 5 * v ** 13 + v ** 14 - 0.5 * u * v
+
+    F = poly(x[:, None], x[None, :])                       # node values on the 15 x 15 grid, axis 0 slowest
+    pts = _fibonacci_lattice(AUDIT_LATTICE)
+    P = np.einsum("ni,ij,nj->n", lx, F, ly)
+    assert np.allclose(P, poly(pts[:, 0], pts[:, 1]), rtol=0, atol=1e-12)
+
+
+def test_2d_lattice_check_sees_a_slab_between_the_nodes():
+    """Regression (benchmarks/stress.py): 2-D, exp(0.2 (x + y)) + 0.05 on 0.64 < x < 0.66, inside the gap between
+    the Kronrod abscissae 0.6039 and 0.7029 of the first region, at rel_tol 1e-4: the first region's nodes and
+    probes all miss the slab; the audit's lattice check sees it (and the run does not claim convergence with the
+    slab missing).  Closed form ((e^0.2 - 1)/0.2)^2 + 0.05 * 0.02 (elementary antiderivatives)."""
+    exact = (math.expm1(0.2) / 0.2) ** 2 + 0.05 * 0.02
+    res = cubage.integrate(lambda X: np.exp(0.2 * X.sum(axis=1)) + 0.05 * ((X[:, 0] > 0.64) & (X[:, 0] < 0.66)),
+                           cubage.Box([0, 0], [1, 1]), rel_tol=1e-4, raise_on_failure=False)
+    assert res.trust["audit_checks_failed"] >= 1
+    assert res.status != "converged" or abs(res.value - exact) <= 2e-4 * exact
+
+
+def test_2d_lattice_check_counts_its_estimate_twice_near_a_face():
+    """Regression (benchmarks/stress.py, 2-D bump draw 4): exp(0.2 (x + y)) + h exp(-|x - c|^2 / w^2) with
+    c = (0.25005, 0.01276), w = 0.02856 beside the face y = 0 at rel_tol 1e-6.  The lattice check read the missed
+    error of its box as 1.0e-6 against a true 2.6e-6 (the bump covers about one lattice point) and, with its
+    estimate counted once, let the run converge 2.1 times beyond its goal; counted twice it fails and the full audit
+    follows.  Closed form: ((e^0.2 - 1)/0.2)^2 + h prod_i w sqrt(pi)/2 (erf((1 - c_i)/w) + erf(c_i/w))
+    (Abramowitz & Stegun 7.1.1)."""
+    from scipy.special import erf
+    c = np.array([0.25005474, 0.01276139])
+    w, h = 0.028563323200390612, 0.001948197534594091
+    exact = (math.expm1(0.2) / 0.2) ** 2 + h * np.prod(
+        [w * math.sqrt(math.pi) / 2 * (erf((1 - ci) / w) + erf(ci / w)) for ci in c])
+    res = cubage.integrate(lambda X: np.exp(0.2 * X.sum(axis=1)) + h * np.exp(-(((X - c) / w) ** 2).sum(axis=1)),
+                           cubage.Box([0, 0], [1, 1]), rel_tol=1e-6, raise_on_failure=False)
+    assert res.status != "converged" or abs(res.value - exact) <= 2e-6 * exact

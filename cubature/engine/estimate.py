@@ -150,7 +150,10 @@ measurements that subdivision produces anyway, and corrects it:
    sample, the regions with a non-smooth signature holding the most value
    (their error estimates are the least certain; at most 5 % of the evaluations so far, 10 % after a failed audit) are
    split: 2-D boxes along both axes (a bisection measures only the error
-   along its own axis: split parallel to a kink, ``D`` is 0), simplices
+   along its own axis: split parallel to a kink, ``D`` is 0; tensor
+   Gauss-Kronrod boxes only after a cheaper check failed: ``D`` measured as
+   ``vol * mean(f - P)`` on a 233-point Fibonacci lattice, ``P`` the box's
+   interpolant, ``Run._audit_check``), simplices
    whose non-smooth regions hold most of the error through a whole cycle of
    ``d`` bisections (``2^d`` children: a bisection along a singular face
    measures nothing, item 6), other boxes
