@@ -947,8 +947,11 @@ class Run:
         g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
         axes = (fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :], float(np.abs(self.rule.nodes[g2[0]]).max()),
                 float(np.abs(self.rule.nodes[g3[0]]).max()))
+        g4 = self.rule.extra["groups"]["pair4"]
+        pairs = (fp[:, g4[0]:g4[1], :], float(np.abs(self.rule.nodes[g4[0]]).max()))
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
-                                            np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes)
+                                            np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes,
+                                            pairs=pairs)
         if pv.shape[1] > 2 * nv:
             ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
                                            pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
