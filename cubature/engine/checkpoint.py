@@ -98,6 +98,8 @@ def save_run(run, path) -> None:
     arrays["total_error"] = run.total_error
     arrays["key_weight"] = run.key_weight
     arrays["depth_err"] = run._depth_err
+    if run._node_cache is not None:                       # the 2-D audit check's node values (Run._cache_nodes)
+        arrays["node_rows"], arrays["node_values"] = run._node_cache
     meta = {
         "format": FORMAT, "version": VERSION, "fingerprint": run.fingerprint(),
         "domain": run.domain.to_json(), "integrand": run.integrand_id,
@@ -215,6 +217,8 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     run.total_error = arrays["total_error"]
     run.key_weight = arrays["key_weight"]
     run._depth_err = arrays["depth_err"].copy()
+    if "node_rows" in arrays and "node_values" in arrays:
+        run._node_cache = (arrays["node_rows"].astype(np.int64), arrays["node_values"].astype(np.float64))
     run.step_count = int(meta["step"])
     run.evaluations = int(meta["evaluations"])
     run.elapsed_before = float(meta["elapsed"])

@@ -91,6 +91,8 @@ CORNER_LEVELS = 6
 AUDIT_LATTICE = 233
 #: ... whose estimate counts this many times (a feature that spans few lattice points is measured only roughly)
 AUDIT_LATTICE_MARGIN = 2.0
+#: the node values of at most this many live regions are kept for that check (Run._cache_nodes)
+NODE_CACHE_REGIONS = 64
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
 #: neighbouring constants and neither run shows a non-smooth signature (:meth:`Run._warm_audit_share`).
 #: Chosen on benchmarks/scan.py's smooth scan (warm/cold 0.517 with 1, 0.491 with 0.5, 0.476 with 0.25,
@@ -595,6 +597,9 @@ class Run:
                        "audit_evaluations": 0, "audit_disagreed": 0, "audit": "not run",
                        "wary_splits": 0, "wary_measured": 0.0, "wary_estimated": 0.0, "f_scale": [0.0]}
         self._audit_ok = False
+        # node values of the regions the last step made (rows, values (k, p, m)), for the 2-D audit's lattice
+        # check (:meth:`_audit_check`): the store keeps none; part of a checkpoint
+        self._node_cache: tuple[np.ndarray, np.ndarray] | None = None
 
     # -- fingerprint ---------------------------------------------------------
     def fingerprint(self) -> str:
@@ -1350,7 +1355,8 @@ class Run:
         key = self._keys(err, tol)
         if "dwin" in self.store.columns:
             g["dwin"] = np.full((len(val), 2 * self.domain.dim, self.m), np.nan)     # nothing measured yet
-        self.store.append(**g, value=val, error=err, key=key, depth=depth)
+        rows = self.store.append(**g, value=val, error=err, key=key, depth=depth)
+        self._cache_nodes(rows, fr)
         self.queue.rebuild(self.store["key"], 1)
         self._depth_add(depth, key)
         self._record()
@@ -1656,6 +1662,7 @@ class Run:
         rest = {name: a[k:] for name, a in cols.items()}
         st.put(idx, **first)
         new = st.append(**rest) if nch > 1 else np.zeros(0, np.int64)
+        self._cache_nodes(np.concatenate([idx, new]), fr)
         if spent is None:
             spent = pv.shape[0] * pv.shape[1] if pv is not None else 0
         self.evaluations += fr.shape[0] * fr.shape[1] + spent
@@ -1863,7 +1870,8 @@ class Run:
         Gauss-Kronrod boxes (900 evaluations) has 30 node lines per axis.  The estimate counts
         :data:`AUDIT_LATTICE_MARGIN` times: a feature that covers a few lattice points is measured only roughly
         (a bump of width 0.029 at (0.25, 0.0128): ``D`` read 1.0e-6 against a true 2.6e-6).  It costs the node
-        values again (the store keeps none) and the lattice: ``225 + N`` evaluations a box against ``4 * 225``.
+        values again where the run does not hold them (it keeps those of up to :data:`NODE_CACHE_REGIONS` live
+        regions, :meth:`_cache_nodes`) and the lattice: ``N`` or ``225 + N`` evaluations a box against ``4 * 225``.
 
         The audit passes here when what the parents' estimates missed by this measure, extrapolated to the
         partition by value share as in the full audit, fits the goal; the boxes stay as they are.  Otherwise (a
@@ -1882,12 +1890,26 @@ class Run:
         k = len(idx)
         lx, ly = _lattice_basis(AUDIT_LATTICE, tuple(float(v) for v in self.rule.extra["nodes_1d"]))
         n = lx.shape[0]
-        if self.evaluations + (self.rule.size + n) * k + per * k > self.settings.budget:
+        cached = np.zeros(k, dtype=bool)
+        fr = None
+        if self._node_cache is not None:
+            rows, values = self._node_cache
+            pos = {int(r): i for i, r in enumerate(rows)}
+            at = np.array([pos.get(int(r), -1) for r in idx])
+            cached = at >= 0
+            if cached.any():
+                fr = np.empty((k, *values.shape[1:]))
+                fr[cached] = values[at[cached]]
+        if self.evaluations + self.rule.size * int((~cached).sum()) + n * k + per * k > self.settings.budget:
             return False                                       # the full audit after it must stay affordable
         before = self.evaluations
-        geo = {name: parents[name] for name in self.geometry.columns}
-        _, _, fr = self._evaluate(geo)
-        self.evaluations += fr.shape[0] * fr.shape[1]
+        if not cached.all():                                   # node values the cache does not hold: again
+            geo = {name: parents[name][~cached] for name in self.geometry.columns}
+            _, _, again = self._evaluate(geo)
+            self.evaluations += again.shape[0] * again.shape[1]
+            if fr is None:
+                fr = np.empty((k, *again.shape[1:]))
+            fr[~cached] = again
         ref = _fibonacci_lattice(AUDIT_LATTICE)                                 # (n, 2) in [-1, 1]^2
         t = (parents["centre"][:, None, :] + parents["halfw"][:, None, :] * ref[None]).reshape(-1, 2)
         fv = self._values_at(t).reshape(k, n, -1)
@@ -1918,6 +1940,25 @@ class Run:
         c_["audit_hidden"] = [0.0] * self.m
         self._audit_ok = True
         return True
+
+    def _cache_nodes(self, rows: np.ndarray, fr: np.ndarray) -> None:
+        """Keep the node values ``fr`` of the regions just written to ``rows`` beside those of the other live
+        regions kept so far, for the 2-D audit's lattice check, while the rule is the 2-D tensor Gauss-Kronrod and
+        they are at most :data:`NODE_CACHE_REGIONS` regions (beyond it, those just written if they fit): small runs
+        then pay the check's lattice only."""
+        if not (AUDIT_LATTICE and self.domain.dim == 2 and "nodes_1d" in self.rule.extra
+                and len(rows) <= NODE_CACHE_REGIONS):
+            self._node_cache = None
+            return
+        rows = np.asarray(rows, np.int64)
+        if self._node_cache is not None and fr.shape[1:] == self._node_cache[1].shape[1:]:
+            old_rows, old_values = self._node_cache
+            keep = ~np.isin(old_rows, rows)
+            if int(keep.sum()) + len(rows) <= NODE_CACHE_REGIONS:
+                self._node_cache = (np.concatenate([old_rows[keep], rows]),
+                                    np.concatenate([old_values[keep], fr]))
+                return
+        self._node_cache = (rows.copy(), fr.copy())
 
     def _domain_corners(self) -> str | None:
         """Before an audit: probe the domain's vertices in the live boxes holding them that no probe has looked
