@@ -514,7 +514,7 @@ def corrected_errors(raw: np.ndarray, parent_raw: np.ndarray, D: np.ndarray, dis
 def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray, a: float,
                  volume: np.ndarray, scale: np.ndarray, by_vertex: bool = False,
                  f_mid: np.ndarray | None = None, axes: tuple | None = None,
-                 pairs: tuple | None = None) -> tuple[np.ndarray, ...]:
+                 pairs: tuple | None = None, dim: int | None = None) -> tuple[np.ndarray, ...]:
     """Error floors of boxes from values near their vertices, where the rule has no nodes.
 
     Along the diagonal from a box's centre towards vertex ``v`` (``t`` in
@@ -579,6 +579,9 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         draw 7 at 1e-4: 49 of 128 probed regions flagged, 39,493 evaluations against 12,367 before any
         probes).  A jump or kink between the corner node and the vertex is in none of the nodes the wave is
         read from.
+    dim : int, optional
+        The boxes' dimension, for the powers of :func:`probe_powers`; by default ``log2(v)`` (every vertex
+        probed; a check of some vertices only must give it).
     """
     rounding = 1e3 * ROUNDING * scale[:, None, :]
     excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
@@ -590,7 +593,7 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     pos = _one_sign(f0, f_plus, f_probe, f_mid)
     if pos.any():
         sign = np.where(pos, np.sign(f0), np.nan)
-        d = f_plus.shape[1].bit_length() - 1                    # 2^d vertices
+        d = dim if dim is not None else f_plus.shape[1].bit_length() - 1          # 2^d vertices
         explained = np.zeros_like(pos)
         for lam in probe_powers(d):
             # a model must explain every probe of the region: where it misses one, that is the kink's
@@ -617,6 +620,45 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     floor = volume[:, None] * excess.mean(axis=1)
     deviates = (excess > 0).any(axis=(1, 2))
     return (floor, deviates, excess.sum(axis=2)) if by_vertex else (floor, deviates)
+
+
+def vertex_misses(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, a: float, scale: np.ndarray,
+                  axes: tuple | None = None, pairs: tuple | None = None) -> np.ndarray:
+    """(k, v): how far the sharpest smooth model misses each vertex probe, the largest over components (0 where
+    no value is finite).  The models: along the diagonal, the quadratic through the nodes ``-a, 0, a`` of ``f``
+    and, where the region's values share one sign, of ``log|f|`` and of the powers :func:`probe_powers`,
+    extrapolated to the probe at ``T``; with ``axes`` (as in :func:`probe_errors`), the separable models of
+    :func:`separable_log_prediction` too, and with ``pairs`` as well the plane wave of :func:`plane_wave_fit`
+    (any sign).  No model reads another probe, so a jump at one vertex adds its size to that vertex's miss
+    alone, while a Gaussian, an exponential of a linear form, a corner or product peak, Genz's oscillatory
+    family is predicted to rounding by one of the models at every vertex: where the largest miss is, a jump below a
+    check's allowance most likely hides (:meth:`cubage.engine.run.Run._domain_corners` looks closer there).
+    ``scale`` (k, m): the magnitude of the region's values; misses within rounding of it count as 0."""
+    t = PROBE_POSITION
+    w = _lagrange_weights(np.array([-a, 0.0, a]), t)
+    f_minus = f_plus[:, ::-1, :]
+
+    def quad(v0, vp, vm):
+        return w[0] * vm + w[1] * v0[:, None, :] + w[2] * vp
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        miss = np.abs(f_probe - quad(f0, f_plus, f_minus))
+        pos = _one_sign(f0, f_plus, f_probe, None)
+        if pos.any():
+            sign = np.where(pos, np.sign(f0), np.nan)
+            d = f_plus.shape[1].bit_length() - 1
+            for lam in probe_powers(d):
+                fwd, back = _power_transform(lam, sign[:, None, :])
+                pred = back(quad(fwd(f0), fwd(f_plus), fwd(f_minus)))
+                miss = np.fmin(miss, np.abs(f_probe - pred))
+                if axes is not None:
+                    pred = sign[:, None, :] * np.exp(separable_log_prediction(f0, *axes, t, power=lam))
+                    miss = np.fmin(miss, np.abs(f_probe - pred))
+        if axes is not None and pairs is not None:
+            q, wv = plane_wave_fit(f0, axes[0], axes[1], pairs[0], axes[2], axes[3], pairs[1])
+            signs = np.array(list(itertools.product((1.0, -1.0), repeat=f_plus.shape[1].bit_length() - 1)))
+            miss = np.fmin(miss, np.abs(f_probe - plane_wave_values(f0, q, wv, signs, t)))
+    miss = np.where(miss > 1e3 * ROUNDING * scale[:, None, :], miss, 0.0)
+    return np.where(np.isfinite(miss), miss, 0.0).max(axis=2)
 
 
 def _one_sign(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, f_mid: np.ndarray | None) -> np.ndarray:

@@ -1332,6 +1332,7 @@ class Run:
         pv = self._probe_values(g, probe, mid=carried is not None)
         raw = self._errors(q, absq)
         floor, deviates, steer = self._probe_floor(g, fr, pv, probe)
+        self._rank_corners(fr, pv, probe)
         err = np.maximum(raw, floor)
         val = q[:, 0, :]
         scale = np.maximum(np.abs(val.sum(axis=0)), np.maximum(err.sum(axis=0), 1e-300))
@@ -1960,6 +1961,26 @@ class Run:
                 return
         self._node_cache = (rows.copy(), fr.copy())
 
+    def _rank_corners(self, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray) -> None:
+        """Score the domain's vertices by how far the sharpest smooth model misses the first region's vertex
+        probes (:func:`~cubage.engine.estimate.vertex_misses`), when that region is the whole domain (one
+        Genz–Malik box, probed): :meth:`_domain_corners` checks a box holding several domain vertices at the
+        best-scored one (``checks["corner_rank"]``, in :func:`~cubage.engine.geometry.vertex_signs` order)."""
+        if (fr.shape[0] != 1 or pv is None or not probe[0] or self.geometry.kind != "box"
+                or "diagonal" in self.rule.extra or not has_probes(self.rule) or self.domain.dim > 12):
+            return
+        groups = self.rule.extra["groups"]
+        grp, g2, g3 = groups["corner5"], groups["axis2"], groups["axis3"]
+        nv = grp[1] - grp[0]
+        axes = (fr[:, g2[0]:g2[1], :], fr[:, g3[0]:g3[1], :], float(np.abs(self.rule.nodes[g2[0]]).max()),
+                float(np.abs(self.rule.nodes[g3[0]]).max()))
+        g4 = groups["pair4"]
+        pairs = (fr[:, g4[0]:g4[1], :], float(np.abs(self.rule.nodes[g4[0]]).max()))
+        score = _estimate.vertex_misses(fr[:, 0, :], fr[:, grp[0]:grp[1], :], pv[:, :nv, :],
+                                        float(np.abs(self.rule.nodes[grp[0]]).max()),
+                                        np.abs(fr).max(axis=1), axes, pairs)
+        self.checks["corner_rank"] = [float(v) for v in score[0]]
+
     def _domain_corners(self) -> str | None:
         """Before an audit: probe the domain's vertices in the live boxes holding them that no probe has looked
         at (Genz–Malik boxes; tensor rules probe every region).  Returns ``"audit"`` when none deviates (the
@@ -1981,7 +2002,14 @@ class Run:
         [0, 0.5]`` read a deviation of 0.0142 against an allowance of 0.0155).  At most ``7 * CORNER_LEVELS * 2^d``
         evaluations per audit.  A deviation found at any of these scales is a jump of about its size at the vertex
         that may fill all of the real box beyond its corner node: that, besides the probe floor, is the box's floor.
-        Boxes already flagged non-smooth or probed, and boxes checked at an earlier audit, are skipped."""
+        Boxes flagged non-smooth are skipped (they are refined anyway), and so are boxes inside one whose check at
+        the same domain vertex passed at an earlier audit (``checks["corner_seen"]``: centre, half-widths and the
+        vertex's signs): the audit's split makes such boxes right after the check.  A box whose own vertex probes
+        agreed (probed) is checked from half its size down: its probes were the check at its own scale, and let a
+        jump pass within that scale's allowance (``exp(-|x|^2) + 0.1`` beyond ``x + y + z > 2.8``, one region at
+        1e-4: converged 3.2x beyond its goal; ``+ 0.01`` near ``(0, 1, 0, 1)`` in 4-D at 1e-6: 10.8x).  A box
+        holding several domain vertices (the first region and the audit's children of it) is checked at the one
+        whose first-region probe the smooth models missed most (:meth:`_rank_corners`), not the first of them."""
         if self.geometry.kind != "box" or "diagonal" in self.rule.extra or not has_probes(self.rule):
             return "audit"
         st, d = self.store, self.domain.dim
@@ -1992,18 +2020,30 @@ class Run:
         at_lo = np.abs(lo - lo.min(axis=0)) <= tol
         # a box holds a domain vertex when every axis ends at the domain's bound (its sign on that axis)
         holds = (at_hi | at_lo).all(axis=1)
-        holds &= (st["flags"] & (_NON_SMOOTH | FLAG_PROBED)) == 0
-        seen = self.checks.get("corner_seen", [])
-        held = np.nonzero(holds)[0]
-        rows = held
+        holds &= (st["flags"] & _NON_SMOOTH) == 0
+        rows = np.nonzero(holds)[0]
+        # a box holding several domain vertices takes the one whose probe in the first region the smooth models
+        # missed most (a jump there adds to that vertex's miss alone; the first of them without a ranking)
+        signs = vertex_signs(d)
+        can = ((signs[None, :, :] > 0) & at_hi[rows][:, None, :]) | ((signs[None, :, :] < 0) & at_lo[rows][:, None, :])
+        rank = np.asarray(self.checks.get("corner_rank", ()), dtype=float)
+        score = rank if rank.shape == (len(signs),) else np.zeros(len(signs))
+        pick = np.argmax(np.where(can.all(axis=2), score[None, :], -1.0), axis=1)
+        sgn_all = np.where(at_hi, 1.0, -1.0)
+        sgn_all[rows] = signs[pick]
+        seen = [e for e in self.checks.get("corner_seen", []) if len(e) == 3 * d]
         if rows.size and seen:
-            key = np.concatenate([g["centre"][rows], g["halfw"][rows]], axis=1)
-            old = np.asarray(seen, dtype=float).reshape(-1, 2 * d)
-            rows = rows[~(key[:, None, :] == old[None, :, :]).all(axis=2).any(axis=1)]
+            # a box inside one checked at an earlier audit at the same domain vertex is covered: the checks there
+            # went down the scales at that vertex (an audit's split makes such boxes right after the check)
+            old = np.asarray(seen, dtype=float)
+            vert = g["centre"][rows] + g["halfw"][rows] * sgn_all[rows]
+            overt = old[:, :d] + old[:, d:2 * d] * old[:, 2 * d:]
+            same = (np.abs(vert[:, None, :] - overt[None, :, :]) <= tol).all(axis=2)
+            inside = (g["halfw"][rows][:, None, :] <= old[None, :, d:2 * d] + tol).all(axis=2)
+            rows = rows[~(same & inside).any(axis=1)]
         if rows.size == 0:
             return "audit"
-        # a box holding several domain vertices (the first region) takes the first of them
-        sgn = np.where(at_hi[rows], 1.0, -1.0)
+        sgn = sgn_all[rows]
         k = rows.size
         if self.evaluations + 7 * k > self.settings.budget:
             self.message = ("the error estimate met the goal, but no budget was left to probe the domain's "
@@ -2024,6 +2064,10 @@ class Run:
         dv = np.zeros(k, dtype=bool)
         todo = np.arange(k)
         vol0 = self.geometry.volume({"centre": c, "halfw": h})
+        # a probed box's own vertex probes were its check at its own scale: its checks start at half the size
+        probed = (st["flags"][rows] & FLAG_PROBED) != 0
+        c[probed] = c[probed] + 0.5 * h[probed] * sgn[probed]
+        h[probed] = 0.5 * h[probed]
         for _ in range(CORNER_LEVELS):
             if todo.size == 0:
                 break
@@ -2042,7 +2086,7 @@ class Run:
             f_plus = node[:, 1:3, :]                           # towards the vertex, towards its opposite
             vol = self.geometry.volume({"centre": cc, "halfw": hh})
             f1, d1 = _estimate.probe_errors(node[:, 0, :], f_plus, f_plus[:, ::-1, :], pr[:, 0:2, :], a, vol,
-                                            np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :])
+                                            np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :], dim=d)
             # two of the box's 2^d vertices were probed: the floor is their share of a full probe's mean
             fl[todo] = np.maximum(fl[todo], f1 * (2.0 / 2 ** d))
             dv[todo] |= d1
@@ -2065,7 +2109,9 @@ class Run:
             c[todo] = c[todo] + 0.5 * h[todo] * sgn[todo]
             h[todo] = 0.5 * h[todo]
         fl = np.maximum(fl, jump * (vol0 * beyond)[:, None])
-        self.checks["corner_seen"] = np.concatenate([g["centre"][held], g["halfw"][held]], axis=1).tolist()
+        # (a check that deviated covers nothing: the boxes split from that box are checked in turn)
+        self.checks["corner_seen"] = seen + np.concatenate([g["centre"][rows], g["halfw"][rows], sgn],
+                                                           axis=1)[~dv].tolist()
         if not dv.any():
             return "audit"
         hit = rows[dv]
