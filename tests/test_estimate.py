@@ -85,11 +85,12 @@ def test_trend_floor_silent_on_fast_convergence():
     assert E.trend_floor(100.0 * 2.0 ** j, values)[0] == 0.0
 
 
-def _gk_diagonal(fun, v=2):
-    """Values of fun(s) at the four outermost K15 abscissae of one diagonal, and at its probe (just inside s = 1)."""
+def _gk_diagonal(fun, v=2, n=6):
+    """Values of fun(s) at the n outermost K15 abscissae of one diagonal (the rule passes six), and at its probe
+    (just inside s = 1)."""
     from cubage.engine.rules.gauss_kronrod import _XK
-    xs = _XK[:4]
-    f_diag = np.array([[[[fun(x)] for x in xs]] * v])          # (1, v, 4, 1)
+    xs = _XK[:n]
+    f_diag = np.array([[[[fun(x)] for x in xs]] * v])          # (1, v, n, 1)
     f_vertex = np.array([[[fun(E.PROBE_POSITION)]] * v])        # (1, v, 1)
     return f_diag, xs, f_vertex
 
@@ -103,6 +104,32 @@ def test_extrapolation_quiet_on_smooth_functions(fun):
     f_diag, xs, f_vertex = _gk_diagonal(fun)
     floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[1.0]]))
     assert not dev[0] and floor[0, 0] == 0.0
+
+
+@pytest.mark.parametrize("w", [1.0, 2.0, 4.5])
+def test_extrapolation_allowance_survives_a_vanishing_cubic_term_and_still_sees_a_kink(w):
+    """Issue 12 (smooth cost): along cos(phi + w s) the cubic through the four outermost K15 nodes misses the
+    probe by its Lagrange remainder f^(4)/4! prod(1 - x_i) (A&S 25.2.3), while its difference from the quadratic
+    is a third-order term that vanishes at some phase: with that difference alone as the allowance, some phase
+    is flagged (Genz's oscillatory family in 2-D, w up to 4.5 on the first region's diagonals: it was flagged
+    though the rule held the integral to 1e-15, 5-17x the first release's evaluations).  The quartic through
+    the five outermost nodes differs from
+    the cubic by about the cubic's error, the quintic through six from the quartic by about the quartic's, and
+    successive differences never vanish together: with their sum as the allowance no phase is flagged.
+    A kink (slope change 0.3 at s = 0.995, between the outermost node 0.9915 and the probe) still is, at every
+    phase (its deviation, 0.3 x 0.005, is far above the differences)."""
+    phases = np.linspace(0.0, 2 * math.pi, 181)
+    old = [E.extrapolation_errors(*_gk_diagonal(lambda s, p=p: math.cos(p + w * s), n=4), np.array([4.0]),
+                                  np.array([[1.0]]))[1][0] for p in phases]
+    if w >= 2.0:
+        assert any(old)
+    for p in phases:
+        floor, dev = E.extrapolation_errors(*_gk_diagonal(lambda s, p=p: math.cos(p + w * s)), np.array([4.0]),
+                                            np.array([[1.0]]))
+        assert not dev[0] and floor[0, 0] == 0.0
+        kinked = lambda s, p=p: math.cos(p + w * s) + 0.3 * max(s - 0.995, 0.0)
+        floor, dev = E.extrapolation_errors(*_gk_diagonal(kinked), np.array([4.0]), np.array([[1.0]]))
+        assert dev[0] and floor[0, 0] > 0.0
 
 
 def test_extrapolation_sees_a_step_between_the_outermost_node_and_the_vertex():

@@ -100,7 +100,7 @@ class GaussKronrodRule(BoxRule):
 
     ``extra`` holds the 1-D data: ``"nodes_1d"``, ``"wk_1d"``, ``"wg_1d"``
     (mean-normalised, each summing to one), and for the vertex probes
-    ``"diagonal"`` (indices, shape (2^d, 4), of the nodes at the four
+    ``"diagonal"`` (indices, shape (2^d, 6), of the nodes at the six
     outermost abscissae ``"diagonal_t"`` on the diagonal towards each
     vertex, vertices in ``itertools.product((1, -1), repeat=d)`` order).  Nodes are ordered as a C-order
     flattening of the ``15 x ... x 15`` grid, axis 0 slowest.
@@ -199,14 +199,14 @@ def gauss_kronrod_rule(dim: int) -> GaussKronrodRule:
     w8[sub] = np.linalg.solve(vander, moments)
     weights_third = reduce(np.multiply.outer, [w8] * d).ravel()
     # the nodes on the diagonal towards each vertex (sign vectors in itertools.product((1, -1)) order), at the
-    # four outermost abscissae: the vertex probes compare the vertex value with their extrapolation
+    # six outermost abscissae: the vertex probes compare the vertex value with their extrapolation
     signs = np.array(list(itertools.product((1, -1), repeat=d)))
-    outer = np.arange(4)                                       # _XK[0..3], descending
+    outer = np.arange(6)                                       # _XK[0..5], descending
     one_d = np.where(signs[:, :, None] > 0, 14 - outer[None, None, :], outer[None, None, :])   # (v, d, 4)
     diagonal = (one_d * (15 ** np.arange(d - 1, -1, -1))[None, :, None]).sum(axis=1)
     return GaussKronrodRule(
         name="gauss-kronrod", dim=d, nodes=nodes, weights=np.asarray(weights, dtype=float),
         weights_low=np.asarray(weights_low, dtype=float), degree=22, degree_low=13,
         extra={"nodes_1d": x, "wk_1d": wk, "wg_1d": wg, "diagonal": diagonal,
-               "diagonal_t": _XK[:4].copy()}, weights_third=np.asarray(weights_third, dtype=float),
+               "diagonal_t": _XK[:6].copy()}, weights_third=np.asarray(weights_third, dtype=float),
     )
