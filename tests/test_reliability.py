@@ -830,3 +830,18 @@ def test_one_percent_kink_in_the_region_holding_most_value_and_error_5d():
                            cubage.Box([0] * 5, [1] * 5), rel_tol=1e-6, budget=2_000_000, raise_on_failure=False)
     assert res.converged
     _honest(res, exact, 1e-6)
+
+
+def test_2d_lattice_check_reports_the_slab_it_measured():
+    """Regression (benchmarks/stress.py, 2-D slab draw): exp(0.2 (x + y)) + h on 0.63 < y < 0.67, between the
+    first region's nodes, holding 3e-5 of the integral, at rel_tol 1e-4.  The missed slab fits the goal, so the
+    audit's lattice check passes after one region (225 + 4 + 233 evaluations); the run reported 1.4e-14 against a
+    true 3.0e-5 until the check's measure became the box's estimate, as a split audit's corrected estimates do.
+    Closed form ((e^0.2 - 1)/0.2)^2 + 0.04 h (elementary antiderivatives)."""
+    base = (math.expm1(0.2) / 0.2) ** 2
+    h = 3e-5 * base / 0.04
+    exact = base + 0.04 * h
+    res = cubage.integrate(lambda X: np.exp(0.2 * X.sum(axis=1)) + h * ((X[:, 1] > 0.63) & (X[:, 1] < 0.67)),
+                           cubage.Box([0, 0], [1, 1]), rel_tol=1e-4)
+    assert res.converged and res.trust["audit_checks"] == 1 and res.trust["audit_checks_failed"] == 0
+    assert abs(res.value - exact) <= res.error <= 1e-4 * exact

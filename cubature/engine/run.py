@@ -1883,7 +1883,8 @@ class Run:
         regions, :meth:`_cache_nodes`) and the lattice: ``N`` or ``225 + N`` evaluations a box against ``4 * 225``.
 
         The audit passes here when what the parents' estimates missed by this measure, extrapolated to the
-        partition by value share as in the full audit, fits the goal; the boxes stay as they are.  Otherwise (a
+        partition by value share as in the full audit, fits the goal; the boxes stay as they are, their estimates
+        raised to the measure where it is larger (as a split audit's children's corrected estimates are).  Otherwise (a
         lattice value that is not finite, or the budget cannot pay for this step and the full audit after it)
         returns False and the full audit follows.  Measured (``benchmarks/stress.py --dims 2``, 80 runs per
         tolerance, seed 31; Genz smooth families, 2-D, 10 draws, tuning seeds 7, 8, 9): silent wrong answers
@@ -1948,6 +1949,16 @@ class Run:
         c_["audit"] = "passed"
         c_["audit_hidden"] = [0.0] * self.m
         self._audit_ok = True
+        # as the corrected estimates of a split audit's children do, the boxes' estimates take what the lattice
+        # measured beyond them (a slab that it saw and that fits the goal is still reported; 2-D stress set at
+        # 1e-4: true error within the reported one in 67 -> 71 of 80 runs, evaluations +0.04 %)
+        if (D > parents["error"]).any():
+            st = self.store
+            err = np.maximum(parents["error"], D)
+            st["error"][idx] = err
+            st["key"][idx] = self._keys(err, st["tol"][idx] if "tol" in st.columns else None)
+            self.queue.rebuild(st["key"], 1)
+            self._exact_totals()
         return True
 
     def _cache_nodes(self, rows: np.ndarray, fr: np.ndarray) -> None:
