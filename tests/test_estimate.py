@@ -78,6 +78,26 @@ def test_trend_floor_on_a_geometric_tail():
     assert floor[0] == pytest.approx(0.8 ** 11, rel=1e-9)
 
 
+def test_trend_floor_needs_the_changes_of_one_tail():
+    """Issue 12 (smooth cost): the changes of a geometric tail share the sign of the error they remove (sum of a
+    geometric series, by hand), so a value that turned back within the last three doublings is no tail.  Genz's
+    product peak in 6-D (seed 7, draw 0, at 1e-6) met its goal after 343,622 evaluations with a true error 20x
+    inside it, but its value had moved by -1.0e-5, +7.8e-6, +6.2e-6 over the last three (uneven) doublings: read
+    as one tail of ratio 0.8 it floored the error at 7x the goal, and the run refined to 490,869 evaluations
+    (first release 341,061).  The same changes in one direction are a tail: Delta2 rho / (1 - rho) with rho the
+    slower of the two ratios (here of the raw changes, 0.797)."""
+    evals = np.array([3000.0, 8000.0, 26848.0, 51284.0, 150220.0, 343622.0])
+    d0, d1, d2 = 1.0016880e-5, 7.792311e-6, 6.208922e-6
+    for sign in (-1.0, 1.0):
+        values = np.cumsum([1.0, 0.0, 3e-5, sign * d0, d1, d2])[:, None]
+        floor = E.trend_floor(evals, values)[0]
+        if sign < 0:
+            assert floor == 0.0
+        else:
+            rho = max(d1 / d0, d2 / d1)
+            assert floor == pytest.approx(d2 * rho / (1 - rho), rel=1e-6)
+
+
 def test_trend_floor_silent_on_fast_convergence():
     """Issue 12 item 6: an eighth-order convergence (ratio 2^-8 per doubling) sets no floor."""
     j = np.arange(12)
