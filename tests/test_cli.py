@@ -607,6 +607,38 @@ def test_ctrl_c_at_any_moment_is_quiet(tmp_path, delay):
     assert p.returncode in (130, 3), (p.returncode, err)
 
 
+def test_an_interrupt_python_ignores_while_loading_still_ends_the_command(tmp_path, capsys, monkeypatch):
+    """A Ctrl-C whose KeyboardInterrupt lands where Python ignores exceptions (an import lock's weakref
+    callback: "Exception ignored in ... _get_module_lock ... cb") used to be lost: the run went on, here for
+    ever (rel_tol 1e-14, budget 1e9), and stderr showed the ignored traceback (seen under load in
+    test_ctrl_c_at_any_moment_is_quiet).  Simulated in-process: the handler in place while the command
+    loads is called from a ``__del__``, where Python ignores what it raises."""
+    import signal
+
+    import cubage.cli as cli
+    import cubage.session.driver as driver
+
+    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler     # as in a fresh interpreter
+    class Dropped:
+        def __del__(self):
+            signal.getsignal(signal.SIGINT)(signal.SIGINT, None)
+
+    class LoadingHit(driver.StopSignals):
+        def __init__(self):
+            Dropped()                  # the interrupt is raised and ignored here, while the command loads
+            super().__init__()
+
+    monkeypatch.setattr(driver, "StopSignals", LoadingHit)
+    hook = sys.unraisablehook
+    f = write(tmp_path, "peak.toml", PEAK3)
+    code = cli.main(["run", str(f), "--budget", "1e9", "--rel-tol", "1e-14"])
+    err = capsys.readouterr().err
+    assert code == 130, err
+    assert "interrupted" in err and "KeyboardInterrupt" not in err and "Traceback" not in err, err
+    assert sys.unraisablehook is hook            # the command put Python's hook back
+    assert not cli.interrupted_while_loading()   # and left no record behind
+
+
 def test_a_closed_stdout_is_not_an_internal_error(tmp_path):
     """issue 10 item 15i: a stdout closed by the caller is not "internal error"."""
     f = write(tmp_path, "xy.toml", XY)

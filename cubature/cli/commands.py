@@ -813,6 +813,9 @@ def main(argv: list[str] | None = None) -> int:
         return _fail("cubage: interrupted", EXIT_INTERRUPTED, "interrupted", want_json)
     try:
         with guard:
+            from cubage.cli import interrupted_while_loading
+            if interrupted_while_loading():     # a signal while loading whose interrupt Python ignored
+                raise KeyboardInterrupt
             return _main(argv, guard, want_json)
     except KeyboardInterrupt:
         return _fail("cubage: interrupted", EXIT_INTERRUPTED, "interrupted", want_json)
