@@ -195,7 +195,26 @@ measurements that subdivision produces anyway, and corrects it:
    smooth simplex runs rarely reach it: on the smooth families of
    ``benchmarks/simplex.py``, seeds 7, 8, 9, 3 draws, d = 2..4, 1e-4..1e-8,
    the evaluations are the same run for run but for one 4-D monomial of
-   seed 9 at 1e-4, 440,552 against 440,328).
+   seed 9 at 1e-4, 440,552 against 440,328).  A window holds only splits
+   that measured something (``|D|`` above rounding): along a face most
+   splits halve a region into two affine images (``D`` is rounding), and in
+   d >= 3 unevenly (3-D: 0, 1 or 2 crossings of the face in 3 consecutive
+   splits), so windows counted in splits read ratios of 0, 0.5, 1 or 2,
+   45 % of the face regions of x0^-0.9 (3-D, 2e5 evaluations) had a last
+   "cycle" of exact zeros and no tail, and the class ratio read 0.76
+   against the 0.93 each crossing leaves (2^(p - 1)); x0^-0.9 reported
+   0.55x / 0.65x (3-D / 4-D) of its true error at 2e5 evaluations and
+   0.61x / 0.43x at 2e6.  Ratios are compared per measured split
+   (:func:`split_ratio`, the ``c``-th root of a ratio over ``c`` entries;
+   :func:`lineage_cycles`: a window not yet full gives its ratio over half
+   its entries, since a face lineage fills ``2 d`` measured splits only
+   ``2 d`` cycles deep): the class reads 0.94 (p = 0.9) and 0.72 (p = 1/2),
+   and x0^-p reports 1.6-9x its true error for p = 1/2 and 0.9 in d = 2..4
+   at 2e5 and 2e6 evaluations (``benchmarks/silent_cases.py``, simplex
+   face, seed 31: 62 % -> 100 % held); the smooth families of
+   ``benchmarks/simplex.py`` (seeds 7, 8, 9, 3 draws): 49,126,610 ->
+   49,133,386 evaluations (three runs of 108 differ: a 3-D monomial of
+   seed 9 +2.7 % and +1.1 %, a 4-D one -0.05 %).
 
 Every result carries the outcome (``Result.trust``).  The calibration study
 ``benchmarks/calibration.py`` measured, on seed 4782 (drawn fresh for the
@@ -1248,16 +1267,27 @@ def face_errors(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, f_face: np
     return floor, (excess > 0).any(axis=(1, 2))
 
 
-def lineage_windows(D: np.ndarray, parent_window: np.ndarray, share: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def lineage_windows(D: np.ndarray, parent_window: np.ndarray, share: np.ndarray,
+                    measured: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Record a split in its lineage: the parent's window with this split's discrepancy, and the children's.
 
     A simplex region carries a *window*: the signed discrepancies ``Q(parent)
-    - sum Q(children)`` of its last ``2 c`` ancestors' splits (most recent
-    first), each times the share of that split's children which the region
-    descends from (so the entries are the part of each measured reduction
-    that belongs to the region's own lineage).  Summed over a subtree, these
-    discrepancies telescope to the error removed by its splits: over ``c``
-    splits they measure what one cycle of bisections removed.
+    - sum Q(children)`` of its last ``2 c`` ancestors' splits that measured
+    something (most recent first), each times the share of that split's
+    children which the region descends from (so the entries are the part of
+    each measured reduction that belongs to the region's own lineage).
+    Summed over a subtree, these discrepancies telescope to the error removed
+    by its splits: over ``c`` splits they measure what one cycle of
+    bisections removed.  A split that measured nothing (``measured`` False:
+    ``D`` within rounding) is no entry: a bisection along an edge in a
+    singular face leaves two affine images of one another with half the
+    error each, a pure halving of the lineage that changes nothing of its
+    convergence (its share, 1/2 each, still applies to the older entries).
+    In d >= 3 such splits come unevenly along a face's lineage (3-D: 0, 1
+    or 2 of every 3 consecutive splits cross the face), so windows counted
+    in splits held 0, 1 or 2 of the face's reductions per "cycle" and read
+    ratios of 0, 0.5, 1 and 2 (x0^-0.9, 3-D: 45 % of the regions touching
+    the face had a last cycle of exact zeros and no tail at all).
 
     Parameters
     ----------
@@ -1268,6 +1298,8 @@ def lineage_windows(D: np.ndarray, parent_window: np.ndarray, share: np.ndarray)
     share : ndarray, shape (n, k, m)
         Each of the ``n`` children's share of its parent (the shares of a
         parent sum to 1).
+    measured : ndarray of bool, shape (k, m), optional
+        Whether each split measured a discrepancy (default: all did).
 
     Returns
     -------
@@ -1277,21 +1309,48 @@ def lineage_windows(D: np.ndarray, parent_window: np.ndarray, share: np.ndarray)
         The children's windows, child ``j`` of parent ``i`` at row ``j k + i``.
     """
     window = np.concatenate([D[:, None, :], parent_window[:, :-1, :]], axis=1)
+    if measured is not None:
+        window = np.where(measured[:, None, :], window, parent_window)
     n, k = share.shape[:2]
     children = (share[:, :, None, :] * window[None]).reshape((n * k,) + window.shape[1:])
     return window, children
 
 
+def lineage_cycles(window: np.ndarray, cycle: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The reductions ``R1`` of a lineage's newest ``c`` window entries and ``R0`` of the ``c`` before them.
+
+    ``c`` is ``cycle`` where the window is full, else half its filled entries
+    (NaN where fewer than two are): where the lineage's splits measure
+    nothing most of the time (along a singular face only one of about ``d``
+    does), a full window of ``2 d`` measured splits is ``2 d`` cycles of
+    bisections deep, beyond the depth of most runs (x0^-0.9 on the 4-D
+    simplex at 2e6 evaluations: no window filled).  A geometric sequence
+    gives the same tail from any ``c``.
+
+    Returns
+    -------
+    recent, older : ndarray, shape (k, m)
+    c : ndarray of int, shape (k, m)
+    """
+    filled = np.isfinite(window).sum(axis=1)                       # entries fill from the newest
+    c = np.minimum(cycle, filled // 2)
+    cs = np.cumsum(np.nan_to_num(window, nan=0.0), axis=1)
+    cs = np.concatenate([np.zeros_like(cs[:, :1]), cs], axis=1)    # cs[:, j]: the sum of the newest j entries
+    recent = np.take_along_axis(cs, c[:, None, :], axis=1)[:, 0]
+    older = np.take_along_axis(cs, 2 * c[:, None, :], axis=1)[:, 0] - recent
+    return np.where(c > 0, recent, np.nan), np.where(c > 0, older, np.nan), c
+
+
 def cycle_ratio(window: np.ndarray, cycle: int) -> np.ndarray:
     """How much of its error one cycle of bisections leaves in a lineage, from its window.
 
-    With ``R1`` the sum of the window's newest ``cycle`` entries and ``R0``
-    the sum of the ``cycle`` before them, ``R1 sign(R0) / |R0|``: where each
-    cycle leaves a share ``rho`` of a lineage's error, the reductions it
-    measures shrink by ``rho`` from cycle to cycle, whatever the errors
-    themselves (a geometric sequence; Richardson's idea applied along a
-    lineage).  NaN where ``R0`` is 0 (a window not filled yet, or no
-    measured reduction).
+    With ``R1`` the sum of the window's newest ``c`` entries and ``R0``
+    the sum of the ``c`` before them (:func:`lineage_cycles`), ``R1 sign(R0)
+    / |R0|``: where each cycle leaves a share ``rho`` of a lineage's error,
+    the reductions it measures shrink by ``rho`` from cycle to cycle,
+    whatever the errors themselves (a geometric sequence; Richardson's idea
+    applied along a lineage).  NaN where ``R0`` is 0 (a window not filled
+    yet, or no measured reduction).
 
     Parameters
     ----------
@@ -1302,17 +1361,27 @@ def cycle_ratio(window: np.ndarray, cycle: int) -> np.ndarray:
     -------
     ndarray, shape (k, m)
     """
-    recent = window[:, :cycle].sum(axis=1)
-    older = window[:, cycle:2 * cycle].sum(axis=1)          # NaN while the window is not filled
+    recent, older, _ = lineage_cycles(window, cycle)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(np.isfinite(older) & (older != 0), recent * np.sign(older) / np.abs(older), np.nan)
+
+
+def split_ratio(window: np.ndarray, cycle: int) -> np.ndarray:
+    """:func:`cycle_ratio` per measured split: its ``c``-th root (signed), comparable between windows of
+    different ``c`` (a face lineage's per-split ratio is the share ``2^(p - 1)`` of ``x0^-p`` that each
+    crossing of the face leaves: 0.71 for p = 1/2, 0.93 for p = 0.9)."""
+    r = cycle_ratio(window, cycle)
+    c = np.maximum(lineage_cycles(window, cycle)[2], 1)
+    with np.errstate(invalid="ignore"):
+        return np.sign(r) * np.abs(r) ** (1.0 / c)
 
 
 def lineage_tail(window: np.ndarray, rho: np.ndarray, cycle: int) -> np.ndarray:
     """The error a region still holds by its lineage's convergence: ``|R1| rho / (1 - rho)``.
 
-    ``R1`` is the reduction measured over the region's last ``cycle``
-    ancestors' splits (its share of them, :func:`lineage_windows`).  Where
+    ``R1`` is the reduction measured over the region's last ``c`` ancestors'
+    splits that measured something (its share of them, :func:`lineage_windows`,
+    :func:`lineage_cycles`).  Where
     every cycle leaves the share ``rho`` of the error, the region's error is
     ``rho`` times what its ancestor a cycle up held, and that ancestor's
     error is ``R1 / (1 - rho)``: the geometric tail of the reductions still
@@ -1331,6 +1400,7 @@ def lineage_tail(window: np.ndarray, rho: np.ndarray, cycle: int) -> np.ndarray:
     ----------
     window : ndarray, shape (k, 2 cycle, m)
     rho : ndarray, shape (k, m) or (m,)
+        The share of the error that the region's last ``c`` measured splits left (per cycle of ``c``).
     cycle : int
 
     Returns
@@ -1338,7 +1408,7 @@ def lineage_tail(window: np.ndarray, rho: np.ndarray, cycle: int) -> np.ndarray:
     ndarray, shape (k, m)
     """
     r = np.clip(np.nan_to_num(np.asarray(rho, dtype=float), nan=0.0), 0.0, LINEAGE_CAP)
-    return np.nan_to_num(np.abs(window[:, :cycle].sum(axis=1)), nan=0.0) * (r / (1.0 - r))
+    return np.nan_to_num(np.abs(lineage_cycles(window, cycle)[0]), nan=0.0) * (r / (1.0 - r))
 
 
 def faces_to_probe(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray,

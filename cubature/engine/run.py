@@ -1620,7 +1620,7 @@ class Run:
             err = np.where(wary[:, None], np.maximum(err, raw * factor), err)
         windows = None
         if "dwin" in st.columns:
-            err, windows = self._lineage_tails(parents, child_sum, raw.reshape(nch, k, m), err, wary)
+            err, windows = self._lineage_tails(parents, child_sum, raw.reshape(nch, k, m), err, wary, noise)
         floor, deviates, steer = self._probe_floor(kids, fr, pv, probe)
         raised = (floor > err).any(axis=1)
         # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
@@ -1670,7 +1670,7 @@ class Run:
         return key, new, int(pd.sum()) + int(raised.sum())
 
     def _lineage_tails(self, parents: dict, child_sum: np.ndarray, raw: np.ndarray, err: np.ndarray,
-                       wary: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+                       wary: np.ndarray, noise: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Simplex children's errors raised to their lineage tails, and their lineage windows.
 
         Next to a singular face or vertex the split check sees little of a simplex region's error (a
@@ -1682,6 +1682,12 @@ class Run:
         reductions of the last two cycles give the share ``rho`` of the error a cycle leaves
         (:func:`~cubage.engine.estimate.cycle_ratio`), and the children of a region with a non-smooth
         signature get at least the tail ``|R1| rho / (1 - rho)`` (:func:`~cubage.engine.estimate.lineage_tail`).
+        Splits that measured nothing (``|D|`` within the split check's rounding ``noise``) are no entry of
+        the window: along a singular face most splits are such halvings, unevenly spaced, and a window
+        counted in splits read ratios of 0, 0.5, 1 or 2 (x0^-0.9, 3-D and 4-D: 0.4-0.6x of the true error
+        reported); a window not yet full gives its ratio over half its entries
+        (:func:`~cubage.engine.estimate.lineage_cycles`).  The ratios are compared per measured split
+        (:func:`~cubage.engine.estimate.split_ratio`: the ``c``-th root of a ratio over ``c`` entries).
         ``rho`` is the larger of the lineage's own and the mean over the wary class's splits (each ratio
         clipped to [-1, 1] and weighted by the older cycle's reduction; learnt after
         :data:`~cubage.engine.estimate.WARY_MIN_SPLITS`), and no tail applies
@@ -1695,13 +1701,14 @@ class Run:
         tot = raw.sum(axis=0)
         with np.errstate(divide="ignore", invalid="ignore"):
             share = np.where(tot[None] > 0, raw / tot[None], 1.0 / nch)
-        window, children = _estimate.lineage_windows(D, parents["dwin"], share)
-        own = _estimate.cycle_ratio(window, cycle)               # (k, m), NaN where not measured
-        learn = np.isfinite(own) & ((parents["flags"] & FLAG_WARY) != 0)[:, None]
+        measured = np.abs(D) > noise                            # a split along a singular face: D is rounding
+        window, children = _estimate.lineage_windows(D, parents["dwin"], share, measured)
+        own = _estimate.split_ratio(window, cycle)               # (k, m) per measured split, NaN where none
+        learn = np.isfinite(own) & measured & ((parents["flags"] & FLAG_WARY) != 0)[:, None]
         # the class's ratio: the mean of the clipped ratios weighted by the older cycle's reduction, so that the
         # lineages holding the error decide (an unweighted mean let a second component's smooth lineages hold a
         # face-singular component's below TREND_SLOW: x0^-1/2 beside x^-1/2 on every face reported 0.37x)
-        older = np.abs(window[:, cycle:].sum(axis=1))
+        older = np.abs(_estimate.lineage_cycles(window, cycle)[1])
         c = self.checks
         total = (np.asarray(c.get("lineage_weighted", [0.0] * m), float)
                  + np.where(learn, np.clip(own, -1, 1) * older, 0.0).sum(axis=0))
@@ -1717,7 +1724,8 @@ class Run:
         # faces, depth 3: estimates raised 30x, +9 % evaluations), a singular face's class reads 0.65-0.85
         slow = learnt[None] > _estimate.TREND_SLOW
         rho = np.where(slow, np.fmax(np.nan_to_num(own, nan=0.0), learnt[None]), 0.0)
-        tail = _estimate.lineage_tail(children, np.tile(rho, (nch, 1)), cycle)
+        c_kids = np.maximum(_estimate.lineage_cycles(children, cycle)[2], 1)
+        tail = _estimate.lineage_tail(children, np.tile(rho, (nch, 1)) ** c_kids, cycle)
         return np.where(wary[:, None], np.maximum(err, tail), err), children
 
     def _audit(self) -> str | None:
