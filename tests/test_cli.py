@@ -597,7 +597,9 @@ def test_ctrl_c_at_any_moment_is_quiet(tmp_path, delay):
     p = subprocess.Popen([sys.executable, "-c", ENTRY, "run", str(f), "--budget", "1e9", "--rel-tol", "1e-14"],
                          cwd=tmp_path,
                          env={**os.environ, "PYTHONPATH": str(ROOT)}, stdin=subprocess.DEVNULL,
-                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                         # as from a terminal: a suite started in the background inherits SIGINT ignored
+                         preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     assert p.stderr.readline() == "ready\n"        # Python's own start-up is done; cubage's begins
     time.sleep(delay)
     p.send_signal(signal.SIGINT)
@@ -618,7 +620,8 @@ def test_an_interrupt_python_ignores_while_loading_still_ends_the_command(tmp_pa
     import cubage.cli as cli
     import cubage.session.driver as driver
 
-    assert signal.getsignal(signal.SIGINT) is signal.default_int_handler     # as in a fresh interpreter
+    # as in an interpreter started from a terminal (a suite started in the background inherits SIGINT ignored)
+    before = signal.signal(signal.SIGINT, signal.default_int_handler)
     class Dropped:
         def __del__(self):
             signal.getsignal(signal.SIGINT)(signal.SIGINT, None)
@@ -631,7 +634,10 @@ def test_an_interrupt_python_ignores_while_loading_still_ends_the_command(tmp_pa
     monkeypatch.setattr(driver, "StopSignals", LoadingHit)
     hook = sys.unraisablehook
     f = write(tmp_path, "peak.toml", PEAK3)
-    code = cli.main(["run", str(f), "--budget", "1e9", "--rel-tol", "1e-14"])
+    try:
+        code = cli.main(["run", str(f), "--budget", "1e9", "--rel-tol", "1e-14"])
+    finally:
+        signal.signal(signal.SIGINT, before)
     err = capsys.readouterr().err
     assert code == 130, err
     assert "interrupted" in err and "KeyboardInterrupt" not in err and "Traceback" not in err, err

@@ -12,6 +12,10 @@ def _interrupt(signum, frame):
     raise KeyboardInterrupt
 
 
+#: the signals ended quietly while the command loads
+_EARLY = ("SIGINT", "SIGTERM", "SIGHUP")
+
+
 def interrupted_while_loading() -> bool:
     """Whether a signal arrived while the command loaded (and forget it).
 
@@ -43,9 +47,11 @@ def main(argv=None) -> int:
     exceptions (then the signal is recorded and the command ends at its
     next safe point; see :func:`interrupted_while_loading`).
     """
-    import signal
+    # the interpreter's built-in signal module, loaded at start-up: importing ``signal`` itself (its enums)
+    # takes long enough under load for a Ctrl-C to land in it with a traceback
+    import _signal as signal
     old = {}
-    for name in ("SIGINT", "SIGTERM", "SIGHUP"):
+    for name in _EARLY:
         sig = getattr(signal, name, None)
         if sig is not None and signal.getsignal(sig) in (signal.SIG_DFL, signal.default_int_handler):
             old[sig] = signal.signal(sig, _interrupt)
