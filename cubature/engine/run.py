@@ -897,6 +897,7 @@ class Run:
         floor = np.zeros((k, m))
         deviates = np.zeros(k, dtype=bool)
         steer = np.full(k, -1, dtype=np.intp)
+        self._remainder_watch = np.zeros(k, dtype=bool)
         if pv is None:
             return floor, deviates, steer
         fp = fr[probe]
@@ -917,14 +918,16 @@ class Run:
             fl, dv, ex = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
                                                         np.abs(fp).max(axis=1), by_vertex=True)
         else:
-            fl, dv, ex = self._genz_malik_probes(fp, pv, vol)
+            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol)
+            # a region only the remainder allowance cleared is watched: its children get the short checks
+            self._remainder_watch[probe] = watch & ~dv
             if dv.any():
                 # a known singularity explains a region's deviations when f times its power law shows none
                 sub = {name: arr[probe][dv] for name, arr in g.items()}
                 w, wp = self._singular_factors(sub, pv.shape[1])
                 ok = np.isfinite(w).all(axis=1) & np.isfinite(wp).all(axis=1)
                 if ok.any():
-                    _, dvm, _ = self._genz_malik_probes(fp[dv][ok] * w[ok][:, :, None],
+                    _, dvm, _, _ = self._genz_malik_probes(fp[dv][ok] * w[ok][:, :, None],
                                                         pv[dv][ok] * wp[ok][:, :, None], vol[dv][ok])
                     rows = np.nonzero(dv)[0][ok][~dvm]
                     fl[rows], dv[rows], ex[rows] = 0.0, False, 0.0
@@ -935,9 +938,10 @@ class Run:
         return floor, deviates, steer
 
     def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray,
-                           vol: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Floors (k, m), deviation flags (k,) and per-vertex excess (k, v) of Genz–Malik boxes with node values
-        ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken)."""
+                           vol: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Floors (k, m), deviation flags (k,), per-vertex excess (k, v) and the boxes that only the remainder
+        allowance cleared (k,; :func:`~cubage.engine.estimate.probe_errors` ``watch``) of Genz–Malik boxes with
+        node values ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken)."""
         grp = self.rule.extra["groups"]["corner5"]
         nv = grp[1] - grp[0]
         if pv.shape[1] > nv:
@@ -946,10 +950,11 @@ class Run:
             if only.all():
                 pv = pv[:, :nv]
             elif only.any():
-                fl, dv, ex = self._genz_malik_probes(fp[~only], pv[~only], vol[~only])
-                fl1, dv1, ex1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only])
-                out = (np.empty((len(fp), *fl.shape[1:])), np.empty(len(fp), bool), np.empty((len(fp), nv)))
-                for o, a_, b_ in zip(out, (fl, dv, ex), (fl1, dv1, ex1)):
+                fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only])
+                fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only])
+                out = (np.empty((len(fp), *fl.shape[1:])), np.empty(len(fp), bool), np.empty((len(fp), nv)),
+                       np.empty(len(fp), bool))
+                for o, a_, b_ in zip(out, (fl, dv, ex, wt), (fl1, dv1, ex1, wt1)):
                     o[~only], o[only] = a_, b_
                 return out
         fc = fp[:, grp[0]:grp[1], :]
@@ -960,16 +965,17 @@ class Run:
                 float(np.abs(self.rule.nodes[g3[0]]).max()))
         g4 = self.rule.extra["groups"]["pair4"]
         pairs = (fp[:, g4[0]:g4[1], :], float(np.abs(self.rule.nodes[g4[0]]).max()))
+        watch: list = []
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
                                             np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes,
-                                            pairs=pairs)
+                                            pairs=pairs, watch=watch)
         if pv.shape[1] > 2 * nv:
             ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
                                            pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
                                            float(np.abs(self.rule.nodes[g3[0]]).max()), vol,
                                            np.abs(fp).max(axis=1))
             fl, dv = np.maximum(fl, ff), dv | fd
-        return fl, dv, ex
+        return fl, dv, ex, watch[0]
 
     def _faces_to_probe(self, fp: np.ndarray, pv: np.ndarray) -> np.ndarray:
         """Faces (k, 2 d) of Genz–Malik boxes (node values ``fp``, vertex and mid probe values ``pv``) whose
@@ -1350,7 +1356,9 @@ class Run:
         g["low"] = q[:, 1, :]
         g["flags"] = (np.where(self._non_asymptotic(q, absq, g, fr), FLAG_NON_ASYMPTOTIC, 0)
                       | np.where(deviates, FLAG_PROBE, 0)
-                      | np.where(probe & ~deviates if pv is not None else False, FLAG_PROBED, 0)
+                      | np.where(self._remainder_watch, FLAG_WATCH, 0)
+                      | np.where(probe & ~deviates & ~self._remainder_watch if pv is not None else False,
+                                 FLAG_PROBED, 0)
                       | (np.where(carried, FLAG_WARY, 0) if carried is not None else 0)).astype(np.uint8)
         self.evaluations = fr.shape[0] * fr.shape[1] + (pv.size // self.m if pv is not None else 0)
         self.total_value = val.sum(axis=0)
@@ -1643,7 +1651,9 @@ class Run:
         pd, pl = disagree.any(axis=1), lower.any(axis=1)
         flags = (np.where(self._non_asymptotic(q, absq, kids, fr), FLAG_NON_ASYMPTOTIC, 0)
                  | np.where(deviates, FLAG_PROBE, 0) | np.where(wary, FLAG_WARY, 0)
-                 | np.where(probe & ~deviates if pv is not None else False, FLAG_PROBED, 0)
+                 | np.where(self._remainder_watch, FLAG_WATCH, 0)
+                 | np.where(probe & ~deviates & ~self._remainder_watch if pv is not None else False,
+                            FLAG_PROBED, 0)
                  | np.tile(np.where(pd, FLAG_DISAGREED, 0) | np.where(pl, FLAG_LOWER_CLOSER, 0), nch)
                  | np.where(np.tile((parents["flags"] & (_NON_SMOOTH | FLAG_WATCH)) != 0, nch) & ~probe
                             & ~self._explained(parents, kids), FLAG_WATCH, 0)
