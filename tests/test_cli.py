@@ -587,6 +587,19 @@ ENTRY = ("import sys; sys.stderr.write('ready\\n'); sys.stderr.flush(); "
          "from cubage.cli import main; sys.exit(main())")
 
 
+def test_the_loading_handler_works_while_signal_itself_is_half_imported(monkeypatch):
+    """The handler in place while the command loads ran ``signal.Signals(signum)``; a Ctrl-C landing while
+    ``signal`` was being imported (its enums half built) raised AttributeError instead of KeyboardInterrupt
+    and printed a traceback (seen in CI at the 0.02 s delay of test_ctrl_c_at_any_moment_is_quiet)."""
+    import types
+
+    import cubage.cli as cli
+    monkeypatch.setitem(sys.modules, "signal", types.ModuleType("signal"))    # partially initialised: no Signals
+    with pytest.raises(KeyboardInterrupt):
+        cli._interrupt(2, None)
+    assert cli.interrupted_while_loading()
+
+
 @pytest.mark.parametrize("delay", [0.02, 0.1, 0.3, 0.8])
 def test_ctrl_c_at_any_moment_is_quiet(tmp_path, delay):
     """issue 10 item 12: Ctrl-C in the first moments (while imports run) or later prints no traceback."""

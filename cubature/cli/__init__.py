@@ -2,13 +2,13 @@
 
 import sys
 
-#: names of the signals received while the command loads (before its own signal handling is in place)
-_received: list[str] = []
+#: numbers of the signals received while the command loads (before its own signal handling is in place)
+_received: list[int] = []
 
 
 def _interrupt(signum, frame):
-    import signal
-    _received.append(signal.Signals(signum).name)
+    # nothing here may import: the signal can land inside an import (of ``signal`` itself, half initialised)
+    _received.append(signum)
     raise KeyboardInterrupt
 
 
