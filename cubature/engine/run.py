@@ -872,34 +872,36 @@ class Run:
         return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
 
     def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
-                     probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Error floors (k, m), signature flags (k,) and the axis to bisect (k,; -1 for the rule's choice)
-        from what the rule's differences miss: the vertex probes of the regions ``probe``
+                     probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Error floors (k, m), signature flags (k,), the axis to bisect (k,; -1 for the rule's choice) and
+        the regions to watch (k,; those only the remainder allowance cleared, whose children get the short
+        checks) from what the rule's differences miss: the vertex probes of the regions ``probe``
         (:meth:`_vertex_floor`) and, for tensor Gauss–Kronrod boxes, every box's per-axis decay check
         (:func:`~cubage.engine.estimate.axis_kink_errors`: a kink across the middle of a box biases its
         15-, 7- and 8-point rules alike, and no probe sees it).  Where the decay check sets the larger
         floor, the box is bisected across the axis it points to."""
-        floor, deviates, steer = self._vertex_floor(g, fr, pv, probe)
+        floor, deviates, steer, watch = self._vertex_floor(g, fr, pv, probe)
         if "diagonal" not in self.rule.extra or fr.shape[0] == 0:
-            return floor, deviates, steer
+            return floor, deviates, steer, watch
         vol = self.geometry.volume(g)
         kf, kinked, per_axis = _estimate.axis_kink_errors(fr, self.rule.extra["nodes_1d"], self.rule.extra["wk_1d"],
                                                           vol, np.abs(fr).max(axis=1))
         own = kinked & (kf > floor).any(axis=1)
         steer = np.where(own, np.argmax(per_axis, axis=1), steer)
-        return np.maximum(floor, kf), deviates | kinked, steer
+        return np.maximum(floor, kf), deviates | kinked, steer, watch
 
     def _vertex_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
-                      probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Error floors (k, m), deviation flags (k,) and the axis the deviating probes point to (k,; -1
-        for none, :func:`~cubage.engine.estimate.probe_axis`) from the vertex probes of the regions ``probe``."""
+                      probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Error floors (k, m), deviation flags (k,), the axis the deviating probes point to (k,; -1
+        for none, :func:`~cubage.engine.estimate.probe_axis`) and the regions only the remainder allowance
+        cleared (k,) from the vertex probes of the regions ``probe``."""
         k, m = fr.shape[0], fr.shape[2]
         floor = np.zeros((k, m))
         deviates = np.zeros(k, dtype=bool)
         steer = np.full(k, -1, dtype=np.intp)
-        self._remainder_watch = np.zeros(k, dtype=bool)
+        remainder_watch = np.zeros(k, dtype=bool)
         if pv is None:
-            return floor, deviates, steer
+            return floor, deviates, steer, remainder_watch
         fp = fr[probe]
         vol = self.geometry.volume({name: arr[probe] for name, arr in g.items()})
         # a value far above the integrand's magnitude on the region's nodes and on the first region's is clipped
@@ -920,7 +922,7 @@ class Run:
         else:
             fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol)
             # a region only the remainder allowance cleared is watched: its children get the short checks
-            self._remainder_watch[probe] = watch & ~dv
+            remainder_watch[probe] = watch & ~dv
             if dv.any():
                 # a known singularity explains a region's deviations when f times its power law shows none
                 sub = {name: arr[probe][dv] for name, arr in g.items()}
@@ -935,7 +937,7 @@ class Run:
         floor[probe] = fl
         deviates[probe] = dv
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
-        return floor, deviates, steer
+        return floor, deviates, steer, remainder_watch
 
     def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray,
                            vol: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -1343,7 +1345,7 @@ class Run:
         # they get the same second probe per vertex (a feature moving into one may sit near its face)
         pv = self._probe_values(g, probe, mid=carried is not None)
         raw = self._errors(q, absq)
-        floor, deviates, steer = self._probe_floor(g, fr, pv, probe)
+        floor, deviates, steer, watched = self._probe_floor(g, fr, pv, probe)
         self._rank_corners(fr, pv, probe)
         err = np.maximum(raw, floor)
         val = q[:, 0, :]
@@ -1356,8 +1358,8 @@ class Run:
         g["low"] = q[:, 1, :]
         g["flags"] = (np.where(self._non_asymptotic(q, absq, g, fr), FLAG_NON_ASYMPTOTIC, 0)
                       | np.where(deviates, FLAG_PROBE, 0)
-                      | np.where(self._remainder_watch, FLAG_WATCH, 0)
-                      | np.where(probe & ~deviates & ~self._remainder_watch if pv is not None else False,
+                      | np.where(watched, FLAG_WATCH, 0)
+                      | np.where(probe & ~deviates & ~watched if pv is not None else False,
                                  FLAG_PROBED, 0)
                       | (np.where(carried, FLAG_WARY, 0) if carried is not None else 0)).astype(np.uint8)
         self.evaluations = fr.shape[0] * fr.shape[1] + (pv.size // self.m if pv is not None else 0)
@@ -1637,7 +1639,7 @@ class Run:
         if "dwin" in st.columns:
             err, windows, implied = self._lineage_tails(parents, child_sum, raw.reshape(nch, k, m), err, wary,
                                                         noise, D)
-        floor, deviates, steer = self._probe_floor(kids, fr, pv, probe)
+        floor, deviates, steer, watched = self._probe_floor(kids, fr, pv, probe)
         raised = (floor > err).any(axis=1)
         # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
         # what the vertex probes added on top of the children's corrected estimates
@@ -1651,8 +1653,8 @@ class Run:
         pd, pl = disagree.any(axis=1), lower.any(axis=1)
         flags = (np.where(self._non_asymptotic(q, absq, kids, fr), FLAG_NON_ASYMPTOTIC, 0)
                  | np.where(deviates, FLAG_PROBE, 0) | np.where(wary, FLAG_WARY, 0)
-                 | np.where(self._remainder_watch, FLAG_WATCH, 0)
-                 | np.where(probe & ~deviates & ~self._remainder_watch if pv is not None else False,
+                 | np.where(watched, FLAG_WATCH, 0)
+                 | np.where(probe & ~deviates & ~watched if pv is not None else False,
                             FLAG_PROBED, 0)
                  | np.tile(np.where(pd, FLAG_DISAGREED, 0) | np.where(pl, FLAG_LOWER_CLOSER, 0), nch)
                  | np.where(np.tile((parents["flags"] & (_NON_SMOOTH | FLAG_WATCH)) != 0, nch) & ~probe
