@@ -962,36 +962,38 @@ class Run:
         fc = fp[:, grp[0]:grp[1], :]
         a = float(np.abs(self.rule.nodes[grp[0]]).max())
         fmid = pv[:, nv:2 * nv] if pv.shape[1] > nv else None
-        g2, g3 = self.rule.extra["groups"]["axis2"], self.rule.extra["groups"]["axis3"]
-        axes = (fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :], float(np.abs(self.rule.nodes[g2[0]]).max()),
-                float(np.abs(self.rule.nodes[g3[0]]).max()))
-        g4 = self.rule.extra["groups"]["pair4"]
-        pairs = (fp[:, g4[0]:g4[1], :], float(np.abs(self.rule.nodes[g4[0]]).max()))
+        axes, pairs = self._node_lines(fp)
         watch: list = []
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
                                             np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes,
                                             pairs=pairs, watch=watch)
         if pv.shape[1] > 2 * nv:
-            ff, fd = _estimate.face_errors(fp[:, 0, :], fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
-                                           pv[:, 2 * nv:], float(np.abs(self.rule.nodes[g2[0]]).max()),
-                                           float(np.abs(self.rule.nodes[g3[0]]).max()), vol,
+            f_ax2, f_ax3, l2, l3 = axes
+            ff, fd = _estimate.face_errors(fp[:, 0, :], f_ax2, f_ax3, pv[:, 2 * nv:], l2, l3, vol,
                                            np.abs(fp).max(axis=1))
             fl, dv = np.maximum(fl, ff), dv | fd
         return fl, dv, ex, watch[0]
+
+    def _node_lines(self, fp: np.ndarray) -> tuple[tuple, tuple]:
+        """The smooth models' inputs from Genz–Malik node values ``fp`` (k, p, m): ``axes`` = (values on the
+        axis lines at ``l2`` and ``l3``, ``l2``, ``l3``) and ``pairs`` = (pair-group values, ``l4``)."""
+        groups = self.rule.extra["groups"]
+        g2, g3, g4 = groups["axis2"], groups["axis3"], groups["pair4"]
+        axes = (fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :], float(np.abs(self.rule.nodes[g2[0]]).max()),
+                float(np.abs(self.rule.nodes[g3[0]]).max()))
+        return axes, (fp[:, g4[0]:g4[1], :], float(np.abs(self.rule.nodes[g4[0]]).max()))
 
     def _faces_to_probe(self, fp: np.ndarray, pv: np.ndarray) -> np.ndarray:
         """Faces (k, 2 d) of Genz–Malik boxes (node values ``fp``, vertex and mid probe values ``pv``) whose
         centre probe sees a kink parallel to them more sharply than their vertices' diagonal checks do
         (:func:`~cubage.engine.estimate.faces_to_probe`)."""
-        groups = self.rule.extra["groups"]
-        grp, g2, g3 = groups["corner5"], groups["axis2"], groups["axis3"]
+        grp = self.rule.extra["groups"]["corner5"]
         nv = grp[1] - grp[0]
         fc = fp[:, grp[0]:grp[1], :]
+        (f_ax2, f_ax3, l2, l3), _ = self._node_lines(fp)
         return _estimate.faces_to_probe(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], pv[:, nv:2 * nv],
-                                        fp[:, g2[0]:g2[1], :], fp[:, g3[0]:g3[1], :],
-                                        float(np.abs(self.rule.nodes[grp[0]]).max()),
-                                        float(np.abs(self.rule.nodes[g2[0]]).max()),
-                                        float(np.abs(self.rule.nodes[g3[0]]).max()), vertex_signs(self.domain.dim))
+                                        f_ax2, f_ax3, float(np.abs(self.rule.nodes[grp[0]]).max()), l2, l3,
+                                        vertex_signs(self.domain.dim))
 
     def _singular_factors(self, g: dict, n_probes: int = 0) -> tuple[np.ndarray, np.ndarray]:
         """``|x - s|^p`` at the nodes (k, p) and at the ``n_probes`` probes (k, n_probes; the layout of
@@ -2040,13 +2042,9 @@ class Run:
         if (fr.shape[0] != 1 or pv is None or not probe[0] or self.geometry.kind != "box"
                 or "diagonal" in self.rule.extra or not has_probes(self.rule) or self.domain.dim > 12):
             return
-        groups = self.rule.extra["groups"]
-        grp, g2, g3 = groups["corner5"], groups["axis2"], groups["axis3"]
+        grp = self.rule.extra["groups"]["corner5"]
         nv = grp[1] - grp[0]
-        axes = (fr[:, g2[0]:g2[1], :], fr[:, g3[0]:g3[1], :], float(np.abs(self.rule.nodes[g2[0]]).max()),
-                float(np.abs(self.rule.nodes[g3[0]]).max()))
-        g4 = groups["pair4"]
-        pairs = (fr[:, g4[0]:g4[1], :], float(np.abs(self.rule.nodes[g4[0]]).max()))
+        axes, pairs = self._node_lines(fr)
         score = _estimate.vertex_misses(fr[:, 0, :], fr[:, grp[0]:grp[1], :], pv[:, :nv, :],
                                         float(np.abs(self.rule.nodes[grp[0]]).max()),
                                         np.abs(fr).max(axis=1), axes, pairs)
