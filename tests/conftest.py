@@ -12,6 +12,10 @@ cli
     returns an object with ``returncode``, ``stdout``, ``stderr`` (also a tuple: ``code, out, err = cli(...)``).
 write_problem
     ``write_problem(name, text)`` writes a problem file into the test's ``tmp_path``.
+catchable_signals
+    SIGINT, SIGTERM and SIGHUP at their terminal defaults in this process for one test (a suite started in the
+    background or under ``nohup`` inherits some of them ignored, and cubage keeps an ignored signal ignored).
+    ``as_from_a_terminal`` does the same for a child (``preexec_fn``; ``cubage.start`` uses it).
 """
 
 from __future__ import annotations
@@ -25,6 +29,16 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
+
+#: the signals that stop a cubage command
+STOP_SIGNALS = ("SIGINT", "SIGTERM", "SIGHUP")
+
+
+def as_from_a_terminal() -> None:
+    """``preexec_fn`` of a child that receives signals in a test: SIGINT, SIGTERM and SIGHUP at their defaults."""
+    import signal
+    for name in STOP_SIGNALS:
+        signal.signal(getattr(signal, name), signal.SIG_DFL)
 
 
 def cubage_env(extra: dict | None = None) -> dict:
@@ -52,6 +66,7 @@ class CubageProcess:
         popen.setdefault("stdout", subprocess.PIPE)
         popen.setdefault("stderr", subprocess.PIPE)
         popen.setdefault("stdin", subprocess.DEVNULL)
+        popen.setdefault("preexec_fn", as_from_a_terminal)
         return subprocess.Popen([*self.argv0, *map(str, args)], cwd=cwd, env=cubage_env(env), text=True, **popen)
 
     @staticmethod
@@ -100,6 +115,20 @@ def cli(capsys, monkeypatch):
             monkeypatch.chdir(cwd)
         return InProcess(argv, capsys)
     return call
+
+
+@pytest.fixture
+def catchable_signals():
+    """SIGINT, SIGTERM and SIGHUP at their terminal defaults in this process during the test, restored after."""
+    import signal
+    old = {}
+    for name in STOP_SIGNALS:
+        sig = getattr(signal, name)
+        if signal.getsignal(sig) is signal.SIG_IGN:
+            old[sig] = signal.signal(sig, signal.default_int_handler if name == "SIGINT" else signal.SIG_DFL)
+    yield
+    for sig, handler in old.items():
+        signal.signal(sig, handler)
 
 
 @pytest.fixture

@@ -17,6 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import as_from_a_terminal
 
 from cubage.session.forecast import time_to_goal
 
@@ -611,8 +612,7 @@ def test_ctrl_c_at_any_moment_is_quiet(tmp_path, delay):
                          cwd=tmp_path,
                          env={**os.environ, "PYTHONPATH": str(ROOT)}, stdin=subprocess.DEVNULL,
                          stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                         # as from a terminal: a suite started in the background inherits SIGINT ignored
-                         preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
+                         preexec_fn=as_from_a_terminal)
     assert p.stderr.readline() == "ready\n"        # Python's own start-up is done; cubage's begins
     time.sleep(delay)
     p.send_signal(signal.SIGINT)

@@ -485,7 +485,7 @@ def test_trail_lines_stay_small_whatever_the_history(tmp_path):
     assert len(json.dumps(map_record(snap))) > 10 * max(sizes)   # the large part lives in trail-map.json
 
 
-def test_ctrl_c_leaves_watch_and_not_the_run(tmp_path, cli):
+def test_ctrl_c_leaves_watch_and_not_the_run(tmp_path, cli, catchable_signals):
     """Ctrl-C in `cubage watch` leaves the viewer quietly (exit 0); the followed run is not touched."""
     import signal
     import threading

@@ -19,6 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import as_from_a_terminal
 
 import cubage
 from cubage.engine.checkpoint import read_checkpoint
@@ -35,7 +36,7 @@ def _env():
 
 def start(*args, cwd):
     return subprocess.Popen([sys.executable, "-m", "cubage", *map(str, args)], cwd=cwd, env=_env(),
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, preexec_fn=as_from_a_terminal)
 
 
 def run(*args, cwd, timeout=120):

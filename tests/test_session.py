@@ -187,7 +187,7 @@ def test_driver_goal_change_reopens_a_converged_run():
         d.set_goal(budget=1)
 
 
-def test_stop_signals_stop_what_is_attached_and_restore_handlers():
+def test_stop_signals_stop_what_is_attached_and_restore_handlers(catchable_signals):
     before = signal.getsignal(signal.SIGTERM)
     run = Run(lambda X: X[:, 0], Box([0], [1]), rel_tol=1e-15, budget=10**9)
     with StopSignals() as g:
@@ -204,6 +204,25 @@ def test_stop_signals_stop_what_is_attached_and_restore_handlers():
             os.kill(os.getpid(), signal.SIGHUP)
     assert signal.getsignal(signal.SIGTERM) is before
 
+
+
+def test_stop_signals_leave_a_signal_ignored_at_start_ignored(catchable_signals):
+    """A command started under ``nohup`` (SIGHUP ignored) must outlive the terminal: the README's long-run
+    recipe is ``nohup cubage run ... &``.  Before, StopSignals replaced the inherited SIG_IGN and logging out
+    stopped the run."""
+    before = signal.signal(signal.SIGHUP, signal.SIG_IGN)
+    try:
+        run = Run(lambda X: X[:, 0], Box([0], [1]), rel_tol=1e-15, budget=10**9)
+        with StopSignals() as g:
+            g.attach(run)
+            assert signal.getsignal(signal.SIGHUP) is signal.SIG_IGN
+            os.kill(os.getpid(), signal.SIGHUP)            # ignored by the kernel: nothing to deliver
+            assert g.received is None and not run._stop.is_set()
+            os.kill(os.getpid(), signal.SIGTERM)           # the others still stop the run
+            assert g.received == "SIGTERM" and run._stop.is_set()
+        assert signal.getsignal(signal.SIGHUP) is signal.SIG_IGN
+    finally:
+        signal.signal(signal.SIGHUP, before)
 
 # --------------------------------------------------------------------------
 # follower

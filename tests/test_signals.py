@@ -16,6 +16,10 @@ import time
 from pathlib import Path
 
 import pytest
+from conftest import as_from_a_terminal
+
+# the in-process tests send themselves signals that a suite started in the background would inherit ignored
+pytestmark = pytest.mark.usefixtures("catchable_signals")
 
 # ~4 s of work on one core (6e7 evaluations): a 4-D Gaussian times a narrow Lorentzian ridge (no closed
 # form needed: the checks compare runs with each other, and with scipy below)
@@ -243,6 +247,32 @@ def test_sigterm_while_the_pool_starts_stops_cleanly(tmp_path, capsys, monkeypat
     assert signal.getsignal(signal.SIGTERM) is before
 
 
+def test_a_run_started_under_nohup_outlives_the_hangup(tmp_path, cubage):
+    """``nohup cubage run ...`` (the README's recipe for SSH) starts with SIGHUP ignored; the hang-up at logout
+    must not stop the run.  Before, the command's own handler replaced the inherited SIG_IGN and the run
+    stopped with status ``stopped`` at logout."""
+    prob = tmp_path / "endless.toml"
+    prob.write_text(ENDLESS)
+    d = tmp_path / "rd"
+
+    def nohup():
+        as_from_a_terminal()
+        signal.signal(signal.SIGHUP, signal.SIG_IGN)
+    p = cubage.start("run", prob, "--json", "--run-dir", d, cwd=tmp_path, preexec_fn=nohup)
+    try:
+        cubage.wait_for(lambda: progress_lines(d) >= 2, p, what="two progress lines")
+        p.send_signal(signal.SIGHUP)
+        seen = progress_lines(d)
+        cubage.wait_for(lambda: progress_lines(d) >= seen + 2, p, what="progress after the hang-up")
+        p.send_signal(signal.SIGTERM)
+        out, err = p.communicate(timeout=60)
+    finally:
+        if p.poll() is None:
+            p.kill()
+            p.wait()
+    assert p.returncode == 3, err
+    assert json.loads(out)["stopped_by"] == "SIGTERM"
+
 @pytest.mark.parametrize("delay", [0.5])
 def test_sigterm_early_in_a_process_pool_run_leaves_no_workers(tmp_path, delay):
     """issue 10 item 15a: SIGTERM around the pool's start ends cubage; no worker keeps its output pipes open."""
@@ -255,7 +285,8 @@ def test_sigterm_early_in_a_process_pool_run_leaves_no_workers(tmp_path, delay):
     root = Path(__file__).resolve().parents[1]
     p = subprocess.Popen([sys.executable, "-c", entry, "run", str(prob), "--workers", "2", "--backend", "processes",
                           "--json"], cwd=tmp_path, env={**os.environ, "PYTHONPATH": str(root)},
-                         stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                         stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                         preexec_fn=as_from_a_terminal)
     assert p.stderr.readline() == "ready\n"
     time.sleep(delay)
     p.send_signal(signal.SIGTERM)

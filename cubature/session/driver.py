@@ -246,7 +246,9 @@ class StopSignals:
     a target attached later is stopped at once.  A signal while nothing is
     attached, or a second signal, raises :class:`KeyboardInterrupt` (the
     command ends quietly, exit 130).  Outside the main thread nothing is
-    installed.
+    installed.  A signal the command was started ignoring stays ignored:
+    ``nohup`` (SIGHUP) and a background job of a script (SIGINT) mean the
+    run must outlive the terminal, so logging out does not stop it.
     """
 
     SIGNALS = ("SIGINT", "SIGTERM", "SIGHUP")
@@ -286,7 +288,7 @@ class StopSignals:
         if threading.current_thread() is threading.main_thread():
             for name in self.SIGNALS:
                 sig = getattr(signal, name, None)
-                if sig is not None:
+                if sig is not None and signal.getsignal(sig) is not signal.SIG_IGN:
                     self._old[sig] = signal.signal(sig, self._handler)
         return self
 
