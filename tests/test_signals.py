@@ -273,6 +273,7 @@ def test_a_run_started_under_nohup_outlives_the_hangup(tmp_path, cubage):
     assert p.returncode == 3, err
     assert json.loads(out)["stopped_by"] == "SIGTERM"
 
+
 @pytest.mark.parametrize("delay", [0.5])
 def test_sigterm_early_in_a_process_pool_run_leaves_no_workers(tmp_path, delay):
     """issue 10 item 15a: SIGTERM around the pool's start ends cubage; no worker keeps its output pipes open."""
