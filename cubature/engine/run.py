@@ -871,6 +871,20 @@ class Run:
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
         return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
 
+    def _rule_errors(self, g: dict, q: np.ndarray, absq: np.ndarray, fr: np.ndarray) -> np.ndarray:
+        """The regions' rule estimates (:meth:`_errors`), on Genz–Malik boxes whose values share one sign at least
+        the opinion of the same rules on ``log|f|`` (:func:`~cubage.engine.estimate.log_errors`: a small kink
+        beside a smooth factor whose low-degree error the ratio opinion reads as convergence)."""
+        raw = self._errors(q, absq)
+        if (q.shape[1] < 3 or self.geometry.kind != "box" or "diagonal" in self.rule.extra
+                or self.settings.estimate != "sharp" or fr.shape[0] == 0):
+            return raw
+        vol = self.geometry.volume(g)
+        ql, absl, one = self._log_rules(fr, vol)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            fbar = np.abs(absq) / vol[:, None]
+        return np.maximum(raw, _estimate.log_errors(ql, absl, one, fbar, vol, np.abs(q[:, 0, :] - q[:, 1, :])))
+
     def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
                      probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Error floors (k, m), signature flags (k,), the axis to bisect (k,; -1 for the rule's choice) and
@@ -1346,7 +1360,7 @@ class Run:
         # carried regions are probed for the reason a cold run probes the children of a non-smooth region:
         # they get the same second probe per vertex (a feature moving into one may sit near its face)
         pv = self._probe_values(g, probe, mid=carried is not None)
-        raw = self._errors(q, absq)
+        raw = self._rule_errors(g, q, absq, fr)
         floor, deviates, steer, watched = self._probe_floor(g, fr, pv, probe)
         self._rank_corners(fr, pv, probe)
         err = np.maximum(raw, floor)
@@ -1614,7 +1628,7 @@ class Run:
         nch = nch or self.geometry.children_per_split
         m = q.shape[2]
         val, low = q[:, 0, :], q[:, 1, :]
-        raw = self._errors(q, absq)
+        raw = self._rule_errors(kids, q, absq, fr)
         # measure, not assume: each parent's value against the sum of its children's
         child_sum = val.reshape(nch, k, m).sum(axis=0)
         noise = _estimate.ROUNDING * absq.reshape(nch, k, m).sum(axis=0)
