@@ -959,3 +959,23 @@ def test_log_rule_opinion_reads_a_kink_beside_an_exponential_and_nothing_on_smoo
     for smooth in (lambda X: np.exp(b * X.sum(axis=1)), lambda X: np.exp(-((X - 0.3) ** 2).sum(axis=1))):
         _, own, est = first(smooth)
         assert est == own
+
+
+@pytest.mark.parametrize("vertex, r, smooth", [((0, 1, 0), 0.258, "exp"), ((0, 1, 1), 0.174, "gauss")])
+def test_jump_reaching_past_the_smallest_checked_box_keeps_its_floor_through_the_audit_3d(vertex, r, smooth):
+    """Issue 12 (benchmarks/silent_cases.py, corner-jump family, seed 31): g + 0.0039 (|x - v|_1 < r) on [0, 1]^3
+    at 1e-4, g = exp(0.3 sum x) or exp(-|x|^2).  Exact: prod int_0^1 g_i ((e^0.3 - 1)/0.3, elementary;
+    sqrt(pi)/2 erf(1), Abramowitz & Stegun 7.1.1) plus 0.0039 r^3 / 3! (the corner simplex's volume: common
+    practice).  A domain-corner check found the jump and raised its box's floor, within the goal; the audit then
+    split that box, whose children's nodes and probes missed the jump as the parent's had, and the run converged
+    reporting 3e-6 / 0.18 of its true error."""
+    v = np.asarray(vertex, dtype=float)
+    if smooth == "exp":
+        g, base = (lambda X: np.exp(0.3 * X.sum(axis=1))), (math.expm1(0.3) / 0.3) ** 3
+    else:
+        g, base = (lambda X: np.exp(-(X * X).sum(axis=1))), _GAUSS_1D ** 3
+    exact = base + 0.0039 * r ** 3 / 6
+    res = cubage.integrate(lambda X: g(X) + 0.0039 * (np.abs(X - v).sum(axis=1) < r), cubage.Box([0] * 3, [1] * 3),
+                           rel_tol=1e-4, budget=2_000_000, raise_on_failure=False)
+    assert res.converged
+    _honest(res, exact, 1e-4)
