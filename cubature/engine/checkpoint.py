@@ -100,6 +100,8 @@ def save_run(run, path) -> None:
     arrays["depth_err"] = run._depth_err
     if run._node_cache is not None:                       # the 2-D audit check's node values (Run._cache_nodes)
         arrays["node_rows"], arrays["node_values"] = run._node_cache
+    if run._corner_cache is not None:                     # the corner checks' node values (Run._cache_corner_nodes)
+        arrays["corner_rows"], arrays["corner_values"], arrays["corner_boxes"] = run._corner_cache
     meta = {
         "format": FORMAT, "version": VERSION, "fingerprint": run.fingerprint(),
         "domain": run.domain.to_json(), "integrand": run.integrand_id,
@@ -219,6 +221,9 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     run._depth_err = arrays["depth_err"].copy()
     if "node_rows" in arrays and "node_values" in arrays:
         run._node_cache = (arrays["node_rows"].astype(np.int64), arrays["node_values"].astype(np.float64))
+    if all(k in arrays for k in ("corner_rows", "corner_values", "corner_boxes")):
+        run._corner_cache = (arrays["corner_rows"].astype(np.int64), arrays["corner_values"].astype(np.float64),
+                             arrays["corner_boxes"].astype(np.float64))
     run.step_count = int(meta["step"])
     run.evaluations = int(meta["evaluations"])
     run.elapsed_before = float(meta["elapsed"])

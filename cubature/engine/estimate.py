@@ -618,7 +618,7 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                  volume: np.ndarray, scale: np.ndarray, by_vertex: bool = False,
                  f_mid: np.ndarray | None = None, axes: tuple | None = None,
                  pairs: tuple | None = None, dim: int | None = None,
-                 watch: list | None = None) -> tuple[np.ndarray, ...]:
+                 watch: list | None = None, vertices: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
     """Error floors of boxes from values near their vertices, where the rule has no nodes.
 
     Along the diagonal from a box's centre towards vertex ``v`` (``t`` in
@@ -686,10 +686,14 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     dim : int, optional
         The boxes' dimension, for the powers of :func:`probe_powers`; by default ``log2(v)`` (every vertex
         probed; a check of some vertices only must give it).
+    vertices : ndarray of int, shape (k, v), optional
+        For a check of some vertices only (with ``dim``): the index of each checked vertex among the box's
+        ``2^d`` (:func:`~cubage.engine.geometry.vertex_signs` order), for the separable and plane-wave models
+        of ``axes`` and ``pairs``.  Such a check gets no remainder allowance (no region is watched).
     """
     rounding = 1e3 * ROUNDING * scale[:, None, :]
     remainder = None
-    if axes is not None and PROBE_REMAINDER > 0:
+    if axes is not None and PROBE_REMAINDER > 0 and vertices is None:
         remainder = PROBE_REMAINDER * diagonal_remainder(f0, *axes)
     excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
     if remainder is not None:
@@ -710,7 +714,7 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                                         power=lam) == 0.0).all(axis=1)
             if axes is not None:
                 explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
-                                            power=lam, separable=axes) == 0.0).all(axis=1)
+                                            power=lam, separable=axes, pick=vertices) == 0.0).all(axis=1)
         excess = np.where((pos & explained)[:, None, :], 0.0, excess)
         if remainder is not None:
             loose = np.where((pos & explained)[:, None, :], 0.0, loose)
@@ -719,9 +723,11 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         rows = (excess > 0).any(axis=(1, 2))
         f_ax2, f_ax3, l2, l3 = axes
         q, w = plane_wave_fit(f0[rows], f_ax2[rows], f_ax3[rows], pairs[0][rows], l2, l3, pairs[1])
-        d = f_plus.shape[1].bit_length() - 1
+        d = dim if dim is not None else f_plus.shape[1].bit_length() - 1
         signs = np.array(list(itertools.product((1.0, -1.0), repeat=d)))
         wave = plane_wave_values(f0[rows], q, w, signs, PROBE_POSITION)
+        if vertices is not None:
+            wave = np.take_along_axis(wave, vertices[rows][:, :, None], axis=1)
         fm = f_mid[rows] if f_mid is not None else None
         wexcess = _probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a, rounding[rows], fm,
                                 model=wave)
@@ -805,7 +811,8 @@ def diagonal_cubic(a: float) -> np.ndarray:
 def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray, a: float,
                   rounding, f_mid: np.ndarray | None, sign: np.ndarray | None = None,
                   power: float = 0.0, separable: tuple | None = None,
-                  model: np.ndarray | None = None, remainder: np.ndarray | None = None) -> np.ndarray:
+                  model: np.ndarray | None = None, remainder: np.ndarray | None = None,
+                  pick: np.ndarray | None = None) -> np.ndarray:
     """Excess (k, v, m) of each probe's deviation from the extrapolations over its allowance (see
     :func:`probe_errors`); 0 where a value is not finite.  With ``sign`` (k, m: the common sign of a region's
     values), the predictions are the same extrapolations of ``log|f|`` (``power`` 0; else of ``|f|^power``),
@@ -816,7 +823,8 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     prediction of every check is instead the separable model of ``log|f|`` from the axis lines
     (:func:`separable_log_prediction`), held to the same allowances.  With ``model`` (k, v, m: a smooth model's
     values at the probes, of any sign, as the plane wave of :func:`plane_wave_fit`), that is the prediction of
-    every check, held to the same allowances."""
+    every check, held to the same allowances.  ``pick`` (k, v): with ``separable``, the index of each probe's
+    vertex among the box's ``2^d`` (a check of some vertices only; by default the probes are all of them)."""
     t = PROBE_POSITION
     coef = diagonal_cubic(a)
 
@@ -840,7 +848,10 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
             allow = np.minimum(allow, LOG_CLOSER * np.abs(f_probe - pred) + rounding)
             pred = back(cl[0] + cl[1] * t + cl[2] * t * t + cl[3] * t ** 3)
             if separable is not None:
-                pred = sign[:, None, :] * np.exp(separable_log_prediction(f0, *separable, t, power=power))
+                sep = separable_log_prediction(f0, *separable, t, power=power)
+                if pick is not None:
+                    sep = np.take_along_axis(sep, pick[:, :, None], axis=1)
+                pred = sign[:, None, :] * np.exp(sep)
         elif model is not None:
             allow = np.minimum(allow, LOG_CLOSER * np.abs(f_probe - pred) + rounding)
             pred = model

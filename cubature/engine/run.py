@@ -606,6 +606,10 @@ class Run:
         # node values of the regions the last step made (rows, values (k, p, m)), for the 2-D audit's lattice
         # check (:meth:`_audit_check`): the store keeps none; part of a checkpoint
         self._node_cache: tuple[np.ndarray, np.ndarray] | None = None
+        # node values of the live Genz-Malik boxes holding a domain vertex (rows, values (k, p, m), centres and
+        # half-widths (k, 2 d)), for the domain-corner checks (:meth:`_domain_corners`); part of a checkpoint
+        self._corner_cache: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        self._domain_box: tuple[np.ndarray, np.ndarray] | None = None
 
     # -- fingerprint ---------------------------------------------------------
     def fingerprint(self) -> str:
@@ -1390,6 +1394,7 @@ class Run:
             g["dwin"] = np.full((len(val), 2 * self.domain.dim, self.m), np.nan)     # nothing measured yet
         rows = self.store.append(**g, value=val, error=err, key=key, depth=depth)
         self._cache_nodes(rows, fr)
+        self._cache_corner_nodes(rows, g, fr)
         self.queue.rebuild(self.store["key"], 1)
         self._depth_add(depth, key)
         self._record()
@@ -1700,6 +1705,7 @@ class Run:
         st.put(idx, **first)
         new = st.append(**rest) if nch > 1 else np.zeros(0, np.int64)
         self._cache_nodes(np.concatenate([idx, new]), fr)
+        self._cache_corner_nodes(np.concatenate([idx, new]), kids, fr)
         if spent is None:
             spent = pv.shape[0] * pv.shape[1] if pv is not None else 0
         self.evaluations += fr.shape[0] * fr.shape[1] + spent
@@ -2079,6 +2085,48 @@ class Run:
                 return
         self._node_cache = (rows.copy(), fr.copy())
 
+    def _cache_corner_nodes(self, rows: np.ndarray, g: dict, fr: np.ndarray) -> None:
+        """Keep the node values ``fr`` of the Genz-Malik boxes ``g`` just written to ``rows`` that hold a vertex of
+        the domain (at most ``2^d`` live at a time), and forget those of the rows just rewritten that do not: the
+        domain-corner checks (:meth:`_domain_corners`) read a box's centre and corner nodes and its smooth models
+        from them instead of evaluating the integrand there again."""
+        if (self.geometry.kind != "box" or "corner5" not in self.rule.extra.get("groups", {})
+                or not has_probes(self.rule) or "centre" not in g or self.store is None):
+            return
+        rows = np.asarray(rows, np.int64)
+        lo, hi = self.geometry.engine_bounds(g)
+        if self._domain_box is None:
+            slo, shi = self.geometry.engine_bounds({name: self.store[name] for name in self.geometry.columns})
+            self._domain_box = (slo.min(axis=0), shi.max(axis=0))
+        dlo, dhi = self._domain_box
+        tol = 1e-12 * np.maximum(1.0, np.abs(dlo) + np.abs(dhi))
+        holds = ((np.abs(hi - dhi) <= tol) | (np.abs(lo - dlo) <= tol)).all(axis=1)
+        box = np.concatenate([g["centre"], g["halfw"]], axis=1)
+        if self._corner_cache is not None and fr.shape[1:] == self._corner_cache[1].shape[1:]:
+            old_rows, old_values, old_box = self._corner_cache
+            keep = ~np.isin(old_rows, rows)
+            self._corner_cache = (np.concatenate([old_rows[keep], rows[holds]]),
+                                  np.concatenate([old_values[keep], fr[holds]]),
+                                  np.concatenate([old_box[keep], box[holds]]))
+        else:
+            self._corner_cache = (rows[holds], fr[holds].copy(), box[holds])
+
+    def _corner_nodes(self, rows: np.ndarray, c: np.ndarray, h: np.ndarray,
+                      use: np.ndarray) -> tuple[np.ndarray | None, np.ndarray]:
+        """The node values kept for the live rows ``rows`` (boxes ``c``, ``h``) where ``use``
+        (:meth:`_cache_corner_nodes`): (values (j, p, m), the index into them of each row; -1 where none is kept
+        for that very box)."""
+        at = np.full(len(rows), -1, dtype=np.intp)
+        if self._corner_cache is None or not use.any():
+            return None, at
+        crow, values, box = self._corner_cache
+        where = {int(r): i for i, r in enumerate(crow)}
+        for j in np.nonzero(use)[0]:
+            i = where.get(int(rows[j]), -1)
+            if i >= 0 and np.array_equal(box[i], np.concatenate([c[j], h[j]])) and values.shape[2] == self.m:
+                at[j] = i
+        return values, at
+
     def _rank_corners(self, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray) -> None:
         """Score the domain's vertices by how far the sharpest smooth model misses the first region's vertex
         probes (:func:`~cubage.engine.estimate.vertex_misses`), when that region is the whole domain (one
@@ -2184,6 +2232,11 @@ class Run:
         vol0 = self.geometry.volume({"centre": c, "halfw": h})
         # a probed box's own vertex probes were its check at its own scale: its checks start at half the size
         probed = (st["flags"][rows] & FLAG_PROBED) != 0
+        # the others start at their own size, where their centre and corner nodes are the rule's: read from the
+        # node values kept (:meth:`_cache_corner_nodes`) with the box's axis lines and pair groups, whose
+        # separable and plane-wave models then may explain the probes too, as they do a region's vertex probes
+        nodes, at = self._corner_nodes(rows, c, h, ~probed)
+        vidx = ((sgn < 0) * (1 << np.arange(d - 1, -1, -1))[None, :]).sum(axis=1)
         c[probed] = c[probed] + 0.5 * h[probed] * sgn[probed]
         h[probed] = 0.5 * h[probed]
         # each box's signed deviation from each smooth model at the level above (this call): plain f and the
@@ -2191,16 +2244,29 @@ class Run:
         lams = _estimate.probe_powers(d)
         wcub = _estimate._lagrange_weights(np.array([-T, -a, 0.0, a]), T)
         prev = np.full((1 + len(lams), k, self.m), np.nan)
-        for _ in range(CORNER_LEVELS):
+        nv = 2 ** d
+        for level in range(CORNER_LEVELS):
             if todo.size == 0:
                 break
             if self.evaluations + 7 * todo.size > self.settings.budget:
                 break
             cc, hh, ss = c[todo], h[todo], sgn[todo]
             t = cc[:, None, :] + pos[None, :, None] * (hh * ss)[:, None, :]
-            fv = self._values_at(t.reshape(-1, d)).reshape(todo.size, len(pos), -1)
-            self.evaluations += fv.shape[0] * fv.shape[1]
-            self.checks["corner_probes"] = int(self.checks.get("corner_probes", 0)) + fv.shape[0] * fv.shape[1]
+            known = at[todo] >= 0 if level == 0 else np.zeros(todo.size, dtype=bool)
+            fv = np.empty((todo.size, len(pos), self.m))
+            if known.any():
+                fk = nodes[at[todo][known]]
+                vk = vidx[todo][known]
+                r_ = np.arange(len(vk))
+                fv[known, 0] = fk[:, 0]
+                fv[known, 1] = fk[r_, grp[0] + vk]
+                fv[known, 2] = fk[r_, grp[0] + nv - 1 - vk]
+                fv[known, 3:] = self._values_at(t[known, 3:].reshape(-1, d)).reshape(int(known.sum()), len(pos) - 3, -1)
+            if (~known).any():
+                fv[~known] = self._values_at(t[~known].reshape(-1, d)).reshape(int((~known).sum()), len(pos), -1)
+            spent = fv.shape[0] * fv.shape[1] - 3 * int(known.sum())
+            self.evaluations += spent
+            self.checks["corner_probes"] = int(self.checks.get("corner_probes", 0)) + spent
             node = fv[:, :3, :]
             scale = np.maximum(np.abs(node).max(axis=1), np.asarray(self.checks["f_scale"]))
             with np.errstate(over="ignore", invalid="ignore"):
@@ -2210,6 +2276,17 @@ class Run:
             vol = self.geometry.volume({"centre": cc, "halfw": hh})
             f1, d1 = _estimate.probe_errors(node[:, 0, :], f_plus, f_plus[:, ::-1, :], pr[:, 0:2, :], a, vol,
                                             np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :], dim=d)
+            again = known & d1
+            if again.any():
+                fk = nodes[at[todo][again]]
+                axes, pairs = self._node_lines(fk)
+                vk = vidx[todo][again]
+                f1[again], d1[again] = _estimate.probe_errors(
+                    node[again, 0, :], f_plus[again], f_plus[again, ::-1, :], pr[again, 0:2, :], a, vol[again],
+                    np.abs(node[again]).max(axis=1), f_mid=pr[again, 2:4, :], dim=d, axes=axes, pairs=pairs,
+                    vertices=np.stack([vk, nv - 1 - vk], axis=1))
+                self.checks["corner_explained"] = (int(self.checks.get("corner_explained", 0))
+                                                   + int(again.sum() - d1[again].sum()))
             # two of the box's 2^d vertices were probed: the floor is their share of a full probe's mean
             fl[todo] = np.maximum(fl[todo], f1 * (2.0 / 2 ** d))
             dv[todo] |= d1
