@@ -650,3 +650,24 @@ def test_remainder_bound_clears_two_waves_but_keeps_them_watched_and_a_kink_or_j
         floor, dev = E.probe_errors(*args, f_mid=mid, axes=axes, pairs=_genz_malik_pairs(changed, c, h),
                                     watch=watch)
         assert dev[0] and floor[0, 0] > 0.0 if must_flag else (dev[0] or watch[0][0])
+
+
+@pytest.mark.parametrize("p", [0.25, 0.5, 0.75])
+def test_extrapolation_floor_of_a_power_law_climb_is_its_mass_beyond_the_outermost_node(p):
+    """Issue 12 (x^(-1/2) e^y on the unit square at 1e-6 spent its budget reporting 7.9e-5 against a true
+    4.7e-9): along a diagonal towards a singular face, (1 - s)^-p (0 < p < 1) reads at the probe (1 - s = 2^-20)
+    hundreds of times its outermost node, and volume times the mean excess made the box's floor 300-400 times
+    its whole integral at every depth.  The floor is now at most the power law's mass beyond the outermost node
+    u0 = 1 - s0: int_0^u0 u^-p du = u0^(1-p) / (1 - p) (elementary), a slab of thickness u0 over the width 2 at
+    each vertex, counted at every vertex (both climb here): volume * u0^(1-p) / (1 - p), against the old
+    volume * (2^20)^p (the probe's value).  A jump at the same place (1 + 50 [s > 0.995]) climbs like no power law
+    and keeps its full floor (as in the test above)."""
+    f_diag, xs, f_vertex = _gk_diagonal(lambda s: (1.0 - s) ** -p)
+    floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[f_vertex.max()]]))
+    u0 = 1.0 - xs[0]
+    assert dev[0]
+    assert floor[0, 0] == pytest.approx(4.0 * u0 ** (1 - p) / (1 - p), rel=1e-9)
+    assert floor[0, 0] < 0.01 * 4.0 * f_vertex.min()
+    f_diag, xs, f_vertex = _gk_diagonal(lambda s: 1.0 + 50.0 * (s > 0.995))
+    floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[51.0]]))
+    assert floor[0, 0] == pytest.approx(4.0 * 50.0, rel=1e-6)

@@ -979,3 +979,17 @@ def test_jump_reaching_past_the_smallest_checked_box_keeps_its_floor_through_the
                            rel_tol=1e-4, budget=2_000_000, raise_on_failure=False)
     assert res.converged
     _honest(res, exact, 1e-4)
+
+
+@pytest.mark.parametrize("tol", [1e-4, 1e-6, 1e-8])
+def test_singular_face_on_the_unit_square_converges_with_an_honest_estimate(tol):
+    """Issue 12: x^(-1/2) e^y on [0, 1]^2.  Exact: int_0^1 x^(-1/2) dx (e - 1) = 2 (e - 1) (elementary).  The
+    vertex probes along x = 0 read the singularity's value, and the boxes there kept a floor of 300-400 times
+    their whole integral at every depth: at 1e-6 the box along the face could no longer be split in floating
+    point (width 2^-48) and the run spent its 2e6 budget reporting 7.9e-5 against a true 4.7e-9.  A probe that
+    climbs like the inner nodes' power law now costs that power law's mass beyond the outermost node."""
+    exact = 2 * (math.e - 1)
+    res = cubage.integrate(lambda X: X[:, 0] ** -0.5 * np.exp(X[:, 1]), cubage.Box([0, 0], [1, 1]), rel_tol=tol,
+                           budget=2_000_000, raise_on_failure=False)
+    assert res.converged
+    _honest(res, exact, tol)
