@@ -97,6 +97,14 @@ CORNER_STEADY = 2.0
 AUDIT_LATTICE = 233
 #: ... whose estimate counts this many times (a feature that spans few lattice points is measured only roughly)
 AUDIT_LATTICE_MARGIN = 2.0
+#: ... after a failed check, the lattice points whose residual is at least this share of the box's largest carry
+#: what the split that follows did not measure (Run._lattice_hidden)
+LATTICE_HIT_SHARE = 0.1
+#: ... and are dropped once the splits inside the box have measured all but this share of it
+LATTICE_HIT_LEFT = 0.05
+#: ... or, each, once its box is this many times smaller than the lattice's box (the node lines of a tensor
+#: Gauss-Kronrod box, at most 0.104 of its width apart, are then as close as the lattice's 233 coordinates)
+LATTICE_HIT_FINE = 24.0
 #: the node values of at most this many live regions are kept for that check (Run._cache_nodes)
 NODE_CACHE_REGIONS = 64
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
@@ -598,6 +606,7 @@ class Run:
         self._last_snap = -math.inf
         # the honesty checks (counters for the trust report; part of a checkpoint)
         self._hidden = np.zeros(1)
+        self._lattice_miss = None
         self._missed = np.zeros(1)
         self.checks = {"splits": 0, "disagreed": 0, "lower_closer": 0, "audits": 0, "audit_regions": 0,
                        "audit_evaluations": 0, "audit_disagreed": 0, "audit": "not run",
@@ -1671,6 +1680,8 @@ class Run:
         # it did not split: the children's estimates may now cover their share, the unsplit regions' do not)
         self._missed = np.maximum(np.maximum(D, implied) - parents["error"], 0.0).sum(axis=0) + probe_extra
         err = np.maximum(err, floor)
+        err, hidden_here = self._carry_lattice_hits(parents, kids, child_sum, err)
+        deviates = deviates | hidden_here
         pd, pl = disagree.any(axis=1), lower.any(axis=1)
         flags = (np.where(self._non_asymptotic(q, absq, kids, fr), FLAG_NON_ASYMPTOTIC, 0)
                  | np.where(deviates, FLAG_PROBE, 0) | np.where(wary, FLAG_WARY, 0)
@@ -1886,6 +1897,7 @@ class Run:
             top = -1
         parents = {name: st[name][idx] for name in st.columns}
         nch = self.geometry.children_per_split
+        self._lattice_miss = None
         if both and AUDIT_LATTICE and self._audit_check(idx, parents, w_total, per):
             return None
         if both:
@@ -1921,6 +1933,8 @@ class Run:
         w_sample = float(w[idx].sum())
         _, new_rows, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED, nch)
         self._keep_corner_floors(np.concatenate([idx, new_rows]))
+        if both and self._lattice_miss is not None:
+            self._lattice_hidden(idx, new_rows, parents, kids, q)
         self.queue.rebuild(st["key"], 1)
         self._exact_totals()
         # the sample's hidden error, extrapolated to the whole partition by value share, must fit in the goal
@@ -1971,6 +1985,124 @@ class Run:
         st["error"][r] = err
         st["key"][r] = self._keys(err, st["tol"][r] if "tol" in st.columns else None)
         self.checks["corner_floors_kept"] = int(self.checks.get("corner_floors_kept", 0)) + int(raise_.sum())
+
+    def _lattice_hidden(self, idx: np.ndarray, new_rows: np.ndarray, parents: dict, kids: dict,
+                        q: np.ndarray) -> None:
+        """After a failed lattice check (:meth:`_audit_check`) and the split into four that followed it: what the
+        lattice measured the box's rule missed (``vol * mean(f - P)``, signed) beyond the split's correction
+        (children's sum minus the box's value) is error no estimate holds where it is more than the children's
+        estimates (their nodes can miss a slab between the box's nodes as the box's did: the split then measures
+        nothing and the audit passed, 2-D stress runs 290x beyond their goal).  The box is remembered with what is
+        left (``checks["lattice_groups"]``) and the lattice points that carry it (``checks["lattice_hits"]``: those
+        whose residual is at least :data:`LATTICE_HIT_SHARE` of the box's largest, each with its share); the
+        children holding them get :data:`AUDIT_LATTICE_MARGIN` times their share as a floor added to their
+        estimates and a probe signature, and the audit counts it as missed.  :meth:`_carry_lattice_hits` follows it
+        down the splits inside the box."""
+        S, res, ref = self._lattice_miss
+        self._lattice_miss = None
+        k, m = len(idx), q.shape[2]
+        corr = q[:, 0, :].reshape(4, k, m).sum(axis=0) - parents["value"]
+        left = S - corr                                                                     # (k, m), signed
+        kid_err = self.store["error"][np.concatenate([idx, new_rows])].reshape(4, k, m).sum(axis=0)
+        hidden = (AUDIT_LATTICE_MARGIN * np.abs(left) > kid_err).any(axis=1)
+        if not hidden.any():
+            return
+        groups = list(self.checks.get("lattice_groups") or [])
+        hits = list(self.checks.get("lattice_hits") or [])
+        mag = np.abs(res).max(axis=2)                                                       # (k, n)
+        for i in np.nonzero(hidden)[0]:
+            sel = mag[i] >= LATTICE_HIT_SHARE * mag[i].max()
+            share = mag[i, sel] / mag[i, sel].sum()
+            pts = parents["centre"][i] + parents["halfw"][i] * ref[sel]
+            hits += np.concatenate([pts, np.full((len(share), 1), len(groups)), share[:, None]], axis=1).tolist()
+            groups.append(np.concatenate([parents["centre"][i], parents["halfw"][i], left[i],
+                                          np.abs(left[i])]).tolist())
+        self.checks["lattice_groups"], self.checks["lattice_hits"] = groups, hits
+        self._lattice_floors(np.concatenate([idx, new_rows]), kids)
+        self._missed = self._missed + AUDIT_LATTICE_MARGIN * np.abs(left[hidden]).sum(axis=0)
+        self.checks["lattice_hidden"] = int(self.checks.get("lattice_hidden", 0)) + int(hidden.sum())
+
+    def _lattice_floors(self, rows: np.ndarray, g: dict) -> None:
+        """Add to the store's regions ``rows`` (boxes ``g``, just written) the lattice's hidden error of the points
+        they hold (:meth:`_lattice_hidden`), with a probe signature."""
+        add = self._hit_floors(g, self.store["error"].shape[1])
+        hit = (add > 0).any(axis=1)
+        if not hit.any():
+            return
+        st = self.store
+        r = rows[hit]
+        err = st["error"][r] + add[hit]
+        st["error"][r] = err
+        st["flags"][r] = st["flags"][r] | FLAG_PROBE
+        st["key"][r] = self._keys(err, st["tol"][r] if "tol" in st.columns else None)
+
+    def _hit_floors(self, g: dict, m: int) -> np.ndarray:
+        """(b, m): :data:`AUDIT_LATTICE_MARGIN` times the hidden error left of the lattice points each box of ``g``
+        holds."""
+        out = np.zeros((len(g["centre"]), m))
+        hits = self.checks.get("lattice_hits")
+        if not hits:
+            return out
+        H = np.asarray(hits, dtype=float)
+        G = np.asarray(self.checks["lattice_groups"], dtype=float)
+        d = self.domain.dim
+        owner = self._owners(H[:, :d], g["centre"], g["halfw"])
+        ok = owner >= 0
+        if ok.any():
+            gid = H[ok, d].astype(int)
+            np.add.at(out, owner[ok], AUDIT_LATTICE_MARGIN * np.abs(G[gid, 2 * d:2 * d + m]) * H[ok, d + 1:d + 2])
+        return out
+
+    @staticmethod
+    def _owners(pts: np.ndarray, centre: np.ndarray, halfw: np.ndarray) -> np.ndarray:
+        """Index of the first box (``centre``, ``halfw``) holding each point, -1 for none."""
+        inside = np.all(np.abs(pts[None, :, :] - centre[:, None, :]) <= halfw[:, None, :], axis=2)   # (b, p)
+        owner = np.argmax(inside, axis=0)
+        return np.where(inside.any(axis=0), owner, -1)
+
+    def _carry_lattice_hits(self, parents: dict, kids: dict, child_sum: np.ndarray,
+                            err: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Splits inside a box whose lattice check left hidden error (:meth:`_lattice_hidden`) measure it: their
+        corrections (children's sum minus parent) are taken off what is left, and once no more than
+        :data:`LATTICE_HIT_LEFT` of it is (or its sign turned), the box and its points are forgotten; otherwise
+        the children holding its points get their share of what is left added to their estimates.  Returns the
+        children's errors and which of them got some."""
+        none = np.zeros(len(err), dtype=bool)
+        groups = self.checks.get("lattice_groups")
+        if not groups or self.geometry.kind != "box":
+            return err, none
+        G = np.asarray(groups, dtype=float)
+        d, m = self.domain.dim, err.shape[1]
+        c, h = parents["centre"], parents["halfw"]
+        within = np.all(np.abs(c[:, None, :] - G[None, :, :d]) + h[:, None, :]
+                        <= G[None, :, d:2 * d] * (1 + 1e-12), axis=2)                    # (k, g)
+        if within.any():
+            corr = child_sum - parents["value"]
+            G[:, 2 * d:2 * d + m] -= within.T.astype(float) @ corr
+            left, first = G[:, 2 * d:2 * d + m], G[:, 2 * d + m:2 * d + 2 * m]
+            done = np.all((np.abs(left) <= LATTICE_HIT_LEFT * first) | (left * np.sign(
+                np.asarray(groups, dtype=float)[:, 2 * d:2 * d + m]) <= 0), axis=1)
+            G[done, 2 * d:2 * d + m] = 0.0
+            self.checks["lattice_groups"] = G.tolist()
+            if done.any():
+                H = np.asarray(self.checks.get("lattice_hits") or [], dtype=float).reshape(-1, d + 2)
+                self.checks["lattice_hits"] = H[~done[H[:, d].astype(int)]].tolist()
+        hits = self.checks.get("lattice_hits")
+        if hits:
+            # a point whose box is finer than the lattice (its node lines closer than the lattice's) is the
+            # rule's to see from there on
+            H = np.asarray(hits, dtype=float)
+            G = np.asarray(self.checks["lattice_groups"], dtype=float)
+            kid = self._owners(H[:, :d], kids["centre"], kids["halfw"])
+            fine = np.zeros(len(H), dtype=bool)
+            at = kid >= 0
+            fine[at] = (kids["halfw"][kid[at]].max(axis=1)
+                        < G[H[at, d].astype(int), d:2 * d].min(axis=1) / LATTICE_HIT_FINE)
+            if fine.any():
+                self.checks["lattice_hits"] = H[~fine].tolist()
+        add = self._hit_floors(kids, m)
+        none = (add > 0).any(axis=1)
+        return err + add, none
 
     def _audit_check(self, idx: np.ndarray, parents: dict, w_total: float, per: int) -> bool:
         """The 2-D audit's first, cheaper step (tensor Gauss-Kronrod boxes ``parents``, rows ``idx``): a quasi-Monte
@@ -2048,6 +2180,8 @@ class Run:
             ok = bool(np.all(missed * scale <= np.maximum(goal - self.total_error, AUDIT_SMALL * goal)))
         if not ok:
             c_["audit_check_failed"] = int(c_.get("audit_check_failed", 0)) + 1
+            if np.isfinite(D).all():                           # read by _lattice_hidden after the split
+                self._lattice_miss = ((fv - interp).mean(axis=1) * vol[:, None], fv - interp, ref)
             return False
         c_["audits"] += 1
         c_["audit_regions"] += int(k)
