@@ -941,13 +941,14 @@ class Run:
         with np.errstate(over="ignore", invalid="ignore"):     # a bound beyond the float range is no bound
             big = np.where(scale > 0, _estimate.PROBE_WILD * scale, np.inf)
             self._note_singular({name: arr[probe] for name, arr in g.items()}, pv, big, fp)
+            wild = (np.abs(pv) > big[:, None, :]).any(axis=(1, 2))     # clipped: the excess is no jump's size
             pv = np.clip(pv, -big[:, None, :], big[:, None, :])
         if "diagonal" in self.rule.extra:                       # tensor rule: nodes all along each diagonal
             diag = self.rule.extra["diagonal"]
             fl, dv, ex = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
                                                         np.abs(fp).max(axis=1), by_vertex=True)
         else:
-            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol)
+            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol, wild)
             # a region only the remainder allowance cleared is watched: its children get the short checks
             remainder_watch[probe] = watch & ~dv
             if dv.any():
@@ -966,11 +967,15 @@ class Run:
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
         return floor, deviates, steer, remainder_watch
 
-    def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray,
-                           vol: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray, vol: np.ndarray,
+                           wild: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Floors (k, m), deviation flags (k,), per-vertex excess (k, v) and the boxes that only the remainder
         allowance cleared (k,; :func:`~cubage.engine.estimate.probe_errors` ``watch``) of Genz–Malik boxes with
-        node values ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken)."""
+        node values ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken).
+        ``wild`` (k,): boxes whose probe values were clipped (:data:`~cubage.engine.estimate.PROBE_WILD`); their
+        floors are not capped (:func:`~cubage.engine.estimate.beyond_cap` reads the excess as the feature's size)."""
+        if wild is None:
+            wild = np.zeros(len(fp), dtype=bool)
         grp = self.rule.extra["groups"]["corner5"]
         nv = grp[1] - grp[0]
         if pv.shape[1] > nv:
@@ -979,8 +984,8 @@ class Run:
             if only.all():
                 pv = pv[:, :nv]
             elif only.any():
-                fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only])
-                fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only])
+                fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only], wild[~only])
+                fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only], wild[only])
                 out = (np.empty((len(fp), *fl.shape[1:])), np.empty(len(fp), bool), np.empty((len(fp), nv)),
                        np.empty(len(fp), bool))
                 for o, a_, b_ in zip(out, (fl, dv, ex, wt), (fl1, dv1, ex1, wt1)):
@@ -994,6 +999,14 @@ class Run:
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
                                             np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes,
                                             pairs=pairs, watch=watch)
+        if dv.any():
+            # a feature the probes see beyond a resolved box's nodes lies outside their hull: its share of the
+            # box is at most the slab beyond the outermost nodes (:func:`~cubage.engine.estimate.beyond_nodes`)
+            q = np.einsum("rp,kpm->krm", self._w, fp) * vol[:, None, None]
+            absq = np.abs(np.einsum("p,kpm->km", self.rule.weights, np.abs(fp))) * vol[:, None]
+            fl = _estimate.beyond_cap(fl, ex, vol, _estimate.beyond_nodes(self.rule.nodes),
+                                      self._looks_resolved(q, absq) & ~wild,
+                                      _estimate.corner_share(a, self.domain.dim))
         if pv.shape[1] > 2 * nv:
             f_ax2, f_ax3, l2, l3 = axes
             ff, fd = _estimate.face_errors(fp[:, 0, :], f_ax2, f_ax3, pv[:, 2 * nv:], l2, l3, vol,
