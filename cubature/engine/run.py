@@ -105,6 +105,9 @@ LATTICE_HIT_LEFT = 0.05
 #: ... or, each, once its box is this many times smaller than the lattice's box (the node lines of a tensor
 #: Gauss-Kronrod box, at most 0.104 of its width apart, are then as close as the lattice's 233 coordinates)
 LATTICE_HIT_FINE = 24.0
+#: ... and when all its points are gone with more left, the audit checks the largest boxes inside it again, at most
+#: this many
+LATTICE_ORPHAN_BOXES = 8
 #: the node values of at most this many live regions are kept for that check (Run._cache_nodes)
 NODE_CACHE_REGIONS = 64
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
@@ -1908,6 +1911,12 @@ class Run:
                 top = -1
         elif st.n == 1:
             top = -1
+        if both and AUDIT_LATTICE and k < afford:
+            more = self._orphan_leaves()
+            more = more[~np.isin(more, idx)][: int(afford) - k]
+            if more.size:
+                idx = np.sort(np.concatenate([idx, more]))
+                k = len(idx)
         parents = {name: st[name][idx] for name in st.columns}
         nch = self.geometry.children_per_split
         self._lattice_miss = None
@@ -2035,6 +2044,37 @@ class Run:
         self._missed = self._missed + AUDIT_LATTICE_MARGIN * np.abs(left[hidden]).sum(axis=0)
         self.checks["lattice_hidden"] = int(self.checks.get("lattice_hidden", 0)) + int(hidden.sum())
 
+    def _orphan_leaves(self) -> np.ndarray:
+        """Rows of the live boxes the audit checks again for a lattice check's hidden error whose points are all
+        gone (their boxes refined finer than the lattice) while much of it is left (:meth:`_lattice_hidden`): the
+        rest of a slab lies in boxes no point of it lies in.  The largest such boxes inside the checked box, at most
+        :data:`LATTICE_ORPHAN_BOXES`; the box is forgotten (a failed check there starts a new one)."""
+        groups = self.checks.get("lattice_groups")
+        if not groups:
+            return np.zeros(0, np.int64)
+        G = np.asarray(groups, dtype=float)
+        d, m = self.domain.dim, self.m
+        H = np.asarray(self.checks.get("lattice_hits") or [], dtype=float).reshape(-1, d + 2)
+        left, first = np.abs(G[:, 2 * d:2 * d + m]), G[:, 2 * d + m:2 * d + 2 * m]
+        orphan = (left > LATTICE_HIT_LEFT * first).any(axis=1)
+        orphan[H[:, d].astype(int)] = False
+        if not orphan.any():
+            return np.zeros(0, np.int64)
+        st = self.store
+        c, h = st["centre"], st["halfw"]
+        out = []
+        for gi in np.nonzero(orphan)[0]:
+            gc, gh = G[gi, :d], G[gi, d:2 * d]
+            inside = np.all(np.abs(c - gc) + h <= gh * (1 + 1e-12), axis=1)
+            inside &= h.max(axis=1) >= gh.min() / LATTICE_HIT_FINE
+            rows = np.nonzero(inside)[0]
+            rows = rows[np.argsort(-np.prod(h[rows], axis=1), kind="stable")][:LATTICE_ORPHAN_BOXES]
+            out.append(rows)
+            G[gi, 2 * d:2 * d + m] = 0.0
+        self.checks["lattice_groups"] = G.tolist()
+        self.checks["lattice_orphans"] = int(self.checks.get("lattice_orphans", 0)) + int(orphan.sum())
+        return np.unique(np.concatenate(out)).astype(np.int64)
+
     def _lattice_floors(self, rows: np.ndarray, g: dict) -> None:
         """Add to the store's regions ``rows`` (boxes ``g``, just written) the lattice's hidden error of the points
         they hold (:meth:`_lattice_hidden`), with a probe signature."""
@@ -2077,7 +2117,7 @@ class Run:
                             err: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Splits inside a box whose lattice check left hidden error (:meth:`_lattice_hidden`) measure it: their
         corrections (children's sum minus parent) are taken off what is left, and once no more than
-        :data:`LATTICE_HIT_LEFT` of it is (or its sign turned), the box and its points are forgotten; otherwise
+        :data:`LATTICE_HIT_LEFT` of it is, the box and its points are forgotten; otherwise
         the children holding its points get their share of what is left added to their estimates.  Returns the
         children's errors and which of them got some."""
         none = np.zeros(len(err), dtype=bool)
@@ -2093,8 +2133,7 @@ class Run:
             corr = child_sum - parents["value"]
             G[:, 2 * d:2 * d + m] -= within.T.astype(float) @ corr
             left, first = G[:, 2 * d:2 * d + m], G[:, 2 * d + m:2 * d + 2 * m]
-            done = np.all((np.abs(left) <= LATTICE_HIT_LEFT * first) | (left * np.sign(
-                np.asarray(groups, dtype=float)[:, 2 * d:2 * d + m]) <= 0), axis=1)
+            done = np.all(np.abs(left) <= LATTICE_HIT_LEFT * first, axis=1)
             G[done, 2 * d:2 * d + m] = 0.0
             self.checks["lattice_groups"] = G.tolist()
             if done.any():
