@@ -1903,10 +1903,12 @@ class Run:
         # second node set across the directions its rule did not choose: along the rule's axis, narrow bumps and
         # slabs between the nodes went unseen, 4 more silent answers in benchmarks/stress.py, d = 3..6)
         top = order[int(np.argmax(st["key"][order]))]
+        top_only = False                                # the largest-error region is no value region of the sample
         if top not in idx:
             if k < afford:
                 idx = np.sort(np.append(idx, top))
                 k += 1
+                top_only = True
             else:
                 top = -1
         elif st.n == 1:
@@ -1951,6 +1953,10 @@ class Run:
         # 1e-4 and 1e-6, true errors 1e-10 of the goal) and refining them 3-5x further
         probe = ((np.ones(len(q), dtype=bool) if "diagonal" in self.rule.extra else self._looks_resolved(q, absq))
                  & ~np.tile((parents["flags"] & FLAG_PROBED) != 0, nch))
+        if top_only and "diagonal" not in self.rule.extra:
+            # the largest-error region's split measures its estimate (its children's nodes are the second opinion);
+            # its vertices are the value regions' probes' job unless it carries a signature or a watch
+            probe &= ~np.tile((idx == top) & ((parents["flags"] & (_NON_SMOOTH | FLAG_WATCH)) == 0), nch)
         pv = self._probe_values(kids, probe)
         w_sample = float(w[idx].sum())
         _, new_rows, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED, nch)
