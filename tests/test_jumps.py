@@ -140,3 +140,16 @@ def test_a_huge_jump_in_a_corner_whose_probes_were_clipped_is_not_capped(d, c, s
         return np.exp(0.2 * x.sum(axis=1)) + h * (x > c).all(axis=1)
     res = cubage.integrate(f, cubage.Box([0.0] * d, [1.0] * d), rel_tol=tol, budget=300_000)
     assert res.status != "converged" or abs(res.value - exact) <= 2 * tol * exact
+
+
+def test_one_deviating_vertex_is_a_corner_only_for_a_jump():
+    """The corner share applies where one vertex deviates by more than the spread of the node values (a jump);
+    beside a kink vertices beyond it can stay within their allowances, and the slab's share holds."""
+    floor = np.array([[1.0], [1.0]])
+    excess = np.zeros((2, 16))
+    excess[:, 3] = 0.5
+    vol = np.ones(2)
+    slab, corner = estimate.beyond_nodes(box_rule("genz-malik", 4).nodes), 0.0122
+    capped = estimate.beyond_cap(floor, excess, vol, slab, np.ones(2, bool), corner, spread=np.array([0.1, 2.0]))
+    assert capped[0, 0] == pytest.approx(corner * 0.5)     # deviation 0.5 above a spread of 0.1: a jump
+    assert capped[1, 0] == pytest.approx(slab * 0.5)       # within a spread of 2: the slab

@@ -782,7 +782,7 @@ def corner_share(a: float, d: int) -> float:
 
 
 def beyond_cap(floor: np.ndarray, excess: np.ndarray, volume: np.ndarray, share: float,
-               resolved: np.ndarray, single: float | None = None) -> np.ndarray:
+               resolved: np.ndarray, single: float | None = None, spread: np.ndarray | None = None) -> np.ndarray:
     """Vertex-probe floors (k, m) of the boxes ``resolved`` (k,) capped at ``share * volume * max_v excess_v``
     (``excess`` (k, v), summed over components: the cap is the same for every component, and no smaller than
     any component's own).
@@ -797,8 +797,15 @@ def beyond_cap(floor: np.ndarray, excess: np.ndarray, volume: np.ndarray, share:
     share 1.4 % of a box (the cap: 2.57 %).  Not where a probe value was clipped (:data:`PROBE_WILD`): the excess
     is then no measure of the feature (``benchmarks/stress.py``: jumps of 1e7 times the integrand in the last
     0.3-1.5 % of a corner, four silent answers when capped).  Where a single vertex deviates, the cap holds that
-    vertex alone: at most ``single`` of the box (:func:`corner_share`, when smaller)."""
+    vertex alone: at most ``single`` of the box (:func:`corner_share`, when smaller); with ``spread`` (k,: the
+    range of the node values), only where that vertex's excess exceeds it: beside a kink other vertices beyond
+    it can stay within their allowances, and the slab's share holds."""
     one = (excess > 0).sum(axis=1) == 1
+    if spread is not None:
+        # a kink's deviation grows from 0 at the kink, so vertices beyond it may stay within their allowance (and
+        # where kinks meet, several planes): one deviating vertex is one vertex beyond the feature only for a
+        # jump, whose deviation exceeds the spread of the values on the nodes (k,; summed over components)
+        one &= excess.max(axis=1) > spread
     if single is not None:
         share = np.where(one, min(share, single), share)
     cap = share * volume * np.where(np.isfinite(excess), excess, np.inf).max(axis=1)

@@ -1009,7 +1009,8 @@ class Run:
             absq = np.abs(np.einsum("p,kpm->km", self.rule.weights, np.abs(fp))) * vol[:, None]
             fl = _estimate.beyond_cap(fl, ex, vol, _estimate.beyond_nodes(self.rule.nodes),
                                       self._looks_resolved(q, absq) & ~wild,
-                                      _estimate.corner_share(a, self.domain.dim))
+                                      _estimate.corner_share(a, self.domain.dim),
+                                      (fp.max(axis=1) - fp.min(axis=1)).sum(axis=1))
         if pv.shape[1] > 2 * nv:
             f_ax2, f_ax3, l2, l3 = axes
             ff, fd = _estimate.face_errors(fp[:, 0, :], f_ax2, f_ax3, pv[:, 2 * nv:], l2, l3, vol,
