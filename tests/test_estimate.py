@@ -671,3 +671,37 @@ def test_extrapolation_floor_of_a_power_law_climb_is_its_mass_beyond_the_outermo
     f_diag, xs, f_vertex = _gk_diagonal(lambda s: 1.0 + 50.0 * (s > 0.995))
     floor, dev = E.extrapolation_errors(f_diag, xs, f_vertex, np.array([4.0]), np.array([[51.0]]))
     assert floor[0, 0] == pytest.approx(4.0 * 50.0, rel=1e-6)
+
+
+def test_vertex_misses_bound_a_kink_beyond_the_corner_nodes():
+    """What lets a suspect skip its second probes (Run._suspect_probes): the sharpest smooth model's miss at the
+    vertex probes.  The box of the test above with f = |x - c| e^(y + z/2), the kink 1.6 % of the box's width
+    from its face (c = 0.4918): the sharpest model misses each probe beyond it by 10-30 % of the kink's size
+    there (the value 2 (x - c) e^(y + z/2) by which |x - c| leaves the line through the nodes; elementary), far
+    above PROBE_SKIP times any goal up to rel_tol 1e-2 per unit volume (1e-3 of f's mean): the second probes
+    are taken.  A Gaussian e^(-(x - 0.3)^2 - y - z/2) has a quadratic log f, which the separable model of the
+    axis lines predicts to rounding.  Genz-Malik nodes: lambda2 = sqrt(9/70), lambda3 = lambda4 = sqrt(9/10),
+    lambda5 = sqrt(9/19) (Genz & Malik 1980)."""
+    import itertools
+    a, l2, l3 = math.sqrt(9 / 19), math.sqrt(9 / 70), math.sqrt(9 / 10)
+    signs = np.array(list(itertools.product((1.0, -1.0), repeat=3)))
+    eye = np.repeat(np.eye(3), 2, axis=0) * np.tile([1.0, -1.0], 3)[:, None]       # +e0, -e0, +e1, ...
+    ctr, h = np.array([0.25, 0.5, 0.5]), np.array([0.25, 0.5, 0.5])
+
+    def misses(f):
+        at = lambda P: f(ctr + P * h)[None, :, None]
+        f0 = f(ctr[None]).reshape(1, 1)
+        axes = (at(l2 * eye), at(l3 * eye), l2, l3)
+        m = E.vertex_misses(f0, at(a * signs), at(E.PROBE_POSITION * signs), a, np.abs(at(a * signs)).max(axis=1),
+                            axes)
+        return m[0], at(E.PROBE_POSITION * signs)[0, :, 0], f0[0, 0]
+
+    c = 0.4918
+    miss, _, f0 = misses(lambda X: np.abs(X[:, 0] - c) * np.exp(X[:, 1] + 0.5 * X[:, 2]))
+    beyond = signs[:, 0] > 0                                 # the vertices on the face x = 0.5, beyond the kink
+    kink = 2 * (ctr[0] + E.PROBE_POSITION * h[0] - c) * np.exp(
+        (ctr[1:] + E.PROBE_POSITION * h[1:] * signs[:, 1:]) @ np.array([1.0, 0.5]))
+    assert np.all(miss[beyond] >= 0.05 * kink[beyond])
+    assert np.all(miss[beyond] > E.PROBE_SKIP * 1e-2 * f0)
+    miss, fprobe, _ = misses(lambda X: np.exp(-(X[:, 0] - 0.3) ** 2 - X[:, 1] - 0.5 * X[:, 2]))
+    assert np.all(miss <= 1e-12 * np.abs(fprobe).max())

@@ -410,6 +410,9 @@ PROBE_GATE = 1e-3
 #: a vertex probe's climb from the outermost diagonal node and the inner nodes' climb read as one power law when
 #: their exponents agree within this share (:func:`extrapolation_errors`; as ``SINGULAR_POWER_MATCH`` in run.py)
 POWER_MATCH = 0.25
+#: a Genz-Malik suspect's second probes (mid and face probes) are skipped where the sharpest smooth model predicts
+#: every vertex probe within this fraction of the goal per unit volume of the domain (:meth:`Run._suspect_probes`)
+PROBE_SKIP = 0.1
 #: per-axis decay check of tensor Gauss-Kronrod boxes (:func:`axis_kink_errors`): Legendre coefficients 11..14 of
 #: an axis' 15-point interpolant above KINK_DECAY times coefficients 6..10 (algebraic, not geometric decay) mark a
 #: kink or jump inside the box along that axis; KINK_FLOOR times their largest, times the volume, is the floor

@@ -794,6 +794,48 @@ class Run:
             t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d), *tf], axis=1).reshape(-1, d)
         return self._values_at(t).reshape(int(probe.sum()), -1, self.m or 1)
 
+    def _suspect_probes(self, g: dict, probe: np.ndarray, fr: np.ndarray) -> tuple[np.ndarray | None, int | None]:
+        """Probe values (kp, 2 v + 2 d, m) of the Genz-Malik suspects ``probe`` of ``g`` (node values ``fr``) and
+        the evaluations they cost: the vertex probes, then the second probe per vertex and the face probes
+        (:meth:`_faces_to_probe`) where the vertex probes leave room for a feature (NaN elsewhere).
+
+        A suspect whose every vertex probe one smooth model read from its nodes predicts
+        (:func:`~cubage.engine.estimate.vertex_misses`: the quadratics of ``f``, ``log|f|`` and the powers along
+        the diagonal, the separable models of the axis lines, the plane wave of the pair groups) within
+        :data:`~cubage.engine.estimate.PROBE_SKIP` times the goal per unit volume of the domain takes no second
+        probes: a kink or jump beyond its corner nodes adds about its size at the vertex beyond it to that
+        model's miss there, so what such a feature can hide in the box is at most that share of the goal."""
+        pv = self._probe_values(g, probe)
+        if pv is None:
+            return None, None
+        kp, nv, m = pv.shape
+        d = self.domain.dim
+        fp = fr[probe]
+        grp = self.rule.extra["groups"]["corner5"]
+        axes, pairs = self._node_lines(fp)
+        miss = _estimate.vertex_misses(fp[:, 0, :], fp[:, grp[0]:grp[1], :], pv,
+                                       float(np.abs(self.rule.nodes[grp[0]]).max()), np.abs(fp).max(axis=1),
+                                       axes, pairs)
+        dlo, dhi = self._domain_bounds()
+        tight = ((miss.max(axis=1) <= _estimate.PROBE_SKIP * float(self.goal().min()) / float(np.prod(dhi - dlo)))
+                 & np.isfinite(pv).all(axis=(1, 2)))
+        out = np.full((kp, 2 * nv + 2 * d, m), np.nan)
+        out[:, :nv] = pv
+        more = ~tight
+        sub = {name: a[probe] for name, a in g.items()}
+        if more.any():
+            part = {name: a[more] for name, a in sub.items()}
+            out[more, nv:2 * nv] = self._values_at(self.geometry.probe_points(part, _estimate.PROBE_MID)
+                                                   ).reshape(int(more.sum()), nv, m)
+        # the face probes where the diagonal checks of the face's vertices are less sharp than theirs
+        need = np.zeros((kp, 2 * d), dtype=bool)
+        if more.any():
+            need[more] = self._faces_to_probe(fp[more], out[more, :2 * nv])
+        out[:, 2 * nv:] = self._face_values(sub, need)
+        self.checks["face_probes_spared"] = int(self.checks.get("face_probes_spared", 0)) + int((~need[more]).sum())
+        self.checks["second_probes_skipped"] = int(self.checks.get("second_probes_skipped", 0)) + int(tight.sum())
+        return out, kp * nv + int(more.sum()) * nv + int(need.sum())
+
     def _face_points(self, g: dict) -> np.ndarray:
         """Points (k, 2 d, d) just inside the centre of every face of the boxes ``g`` (order ``+e_0, -e_0, +e_1,
         ...``): the axis lines through the centre carry five nodes each, so a kink parallel to a face in its last
@@ -1610,15 +1652,11 @@ class Run:
         # children that look resolved although their parent showed a non-smooth signature: probe their vertices
         suspect = self._suspects(parents, q, absq, kids)
         # may raise: nothing changed yet
-        pv = self._probe_values(kids, suspect, mid=True, faces=False)
         spent = None
-        if pv is not None and "diagonal" not in self.rule.extra:
-            # the face probes where the diagonal checks of the face's vertices are less sharp than theirs
-            sub = {name: a[suspect] for name, a in kids.items()}
-            need = self._faces_to_probe(fr[suspect], pv)
-            pv = np.concatenate([pv, self._face_values(sub, need)], axis=1)
-            spent = pv.shape[0] * (pv.shape[1] - need.shape[1]) + int(need.sum())
-            self.checks["face_probes_spared"] = int(self.checks.get("face_probes_spared", 0)) + int((~need).sum())
+        if "diagonal" in self.rule.extra:
+            pv = self._probe_values(kids, suspect, mid=True, faces=False)
+        else:
+            pv, spent = self._suspect_probes(kids, suspect, fr)
         # resolved children a known singularity explains: their vertex probes only (a feature that does not
         # come from the singularity may still cross them, and only a probe sees it)
         light = (self._explained(parents, kids) & self._looks_resolved(q, absq) & ~suspect
@@ -2312,10 +2350,7 @@ class Run:
             return
         rows = np.asarray(rows, np.int64)
         lo, hi = self.geometry.engine_bounds(g)
-        if self._domain_box is None:
-            slo, shi = self.geometry.engine_bounds({name: self.store[name] for name in self.geometry.columns})
-            self._domain_box = (slo.min(axis=0), shi.max(axis=0))
-        dlo, dhi = self._domain_box
+        dlo, dhi = self._domain_bounds()
         tol = 1e-12 * np.maximum(1.0, np.abs(dlo) + np.abs(dhi))
         holds = ((np.abs(hi - dhi) <= tol) | (np.abs(lo - dlo) <= tol)).all(axis=1)
         box = np.concatenate([g["centre"], g["halfw"]], axis=1)
@@ -2327,6 +2362,13 @@ class Run:
                                   np.concatenate([old_box[keep], box[holds]]))
         else:
             self._corner_cache = (rows[holds], fr[holds].copy(), box[holds])
+
+    def _domain_bounds(self) -> tuple[np.ndarray, np.ndarray]:
+        """The domain's lower and upper corners in engine coordinates (the live boxes' extremes; boxes only)."""
+        if self._domain_box is None:
+            lo, hi = self.geometry.engine_bounds({name: self.store[name] for name in self.geometry.columns})
+            self._domain_box = (lo.min(axis=0), hi.max(axis=0))
+        return self._domain_box
 
     def _corner_nodes(self, rows: np.ndarray, c: np.ndarray, h: np.ndarray,
                       use: np.ndarray) -> tuple[np.ndarray | None, np.ndarray]:
