@@ -104,6 +104,52 @@ def test_version_1_checkpoints_still_load(tmp_path):
     assert again.evaluations == run.evaluations
 
 
+
+@pytest.mark.parametrize("generation", [None, 1, 99])
+def test_a_checkpoint_of_another_error_control_is_refused(tmp_path, generation):
+    """A checkpoint written under another error control (the first release wrote no generation) must not resume:
+    the regions the run never splits again would keep estimates this version does not vouch for, and its
+    ``converged`` could rest on them.  Before, it resumed without a word."""
+    from cubage.engine import checkpoint as ck
+    _, path = _checkpoint(tmp_path)
+
+    def other(meta):
+        with np.load(path, allow_pickle=False) as z:
+            arrays = {k: z[k] for k in z.files if k != "meta"}
+        if generation is None:
+            meta.pop("estimator")
+        else:
+            meta["estimator"] = generation
+        meta["digest"] = ck._digest(arrays, meta)
+    _rewrite(path, other)
+    with pytest.raises(CheckpointError, match="another version of the error control") as err:
+        cubage.Run.from_checkpoint(path, peaks, BOX2)
+    assert "\n" not in str(err.value)
+
+
+def test_resume_refuses_a_run_directory_of_another_error_control(tmp_path, cli):
+    """The same through ``cubage resume``: one line, exit 2, and the checkpoint left as it was."""
+    from cubage.engine import checkpoint as ck
+    prob = tmp_path / "p.toml"
+    prob.write_text('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\n'
+                    'expr = "1 / (1e-4 + (x - 0.3)**2 + (y - 0.6)**2)"\n[goal]\nrel_tol = 1e-13\nbudget = 30000\n')
+    d = tmp_path / "rd"
+    code, out, err = cli("run", prob, "--run-dir", d)
+    assert code == 3 and (d / "partition.npz").is_file(), err     # budget spent: a checkpoint to resume
+    path = d / "partition.npz"
+
+    def first_release(meta):
+        with np.load(path, allow_pickle=False) as z:
+            arrays = {k: z[k] for k in z.files if k != "meta"}
+        meta.pop("estimator")
+        meta["digest"] = ck._digest(arrays, meta)
+    _rewrite(path, first_release)
+    before = path.read_bytes()
+    code, out, err = cli("resume", d, "--budget", "60000")
+    assert code == 2
+    assert "another version of the error control" in err and len(err.strip().splitlines()) == 1, err
+    assert path.read_bytes() == before
+
 def test_temporary_files_of_a_crashed_write_are_removed_on_resume(tmp_path):
     """issue 10 item 15f: a crash during a checkpoint write leaves .NAME.tmp-PID; resuming removes it
     (when its writer is gone), and leaves the one of a live writer alone."""

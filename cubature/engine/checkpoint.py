@@ -26,6 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
+from cubage.engine.estimate import GENERATION
 from cubage.engine.regions import RegionStore
 
 FORMAT = "cubage-checkpoint"
@@ -103,7 +104,7 @@ def save_run(run, path) -> None:
     if run._corner_cache is not None:                     # the corner checks' node values (Run._cache_corner_nodes)
         arrays["corner_rows"], arrays["corner_values"], arrays["corner_boxes"] = run._corner_cache
     meta = {
-        "format": FORMAT, "version": VERSION, "fingerprint": run.fingerprint(),
+        "format": FORMAT, "version": VERSION, "estimator": GENERATION, "fingerprint": run.fingerprint(),
         "domain": run.domain.to_json(), "integrand": run.integrand_id,
         "settings": dict(run.settings.__dict__), "components": run.m,
         "step": run.step_count, "evaluations": run.evaluations, "elapsed": run.elapsed(),
@@ -184,6 +185,13 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     """Rebuild a :class:`~cubage.engine.run.Run` from ``path`` (and remove temporary files a crash left there)."""
     clean_temporaries(path)
     meta, arrays = read_checkpoint(path)
+    if meta.get("estimator") != GENERATION:
+        # the regions it never splits again would keep the estimates of another error control (the first release
+        # wrote no generation: its estimates converged silently on jumps and kinks)
+        theirs = meta.get("estimator")
+        raise CheckpointError(f"{path}: written by another version of the error control (generation "
+                              f"{theirs if theirs is not None else 1}, this cubage {GENERATION}); resume it with the "
+                              f"cubage that wrote it, or start the run again")
     settings = dict(meta["settings"])
     path_keys = ("rule", "degree", "split", "queue", "batch", "estimate", "batch_points")
     for k, v in overrides.items():

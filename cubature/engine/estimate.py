@@ -348,6 +348,11 @@ import math
 
 import numpy as np
 
+#: generation of the error control, written into every checkpoint: bump it with any change that alters a region's
+#: error estimate or the checks before ``converged`` (a run resumed under another generation would keep, on the
+#: regions it never splits again, estimates this one does not vouch for; the first release wrote none)
+GENERATION = 2
+
 #: ratio |q7-q5| / |q5-q3| at or below which the ratio opinion is used
 RATIO_LIMIT = 0.25
 #: factor on the ratio in the ratio opinion
