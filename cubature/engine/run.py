@@ -1306,6 +1306,12 @@ class Run:
             key = np.where(key > tol, key, -np.inf)
         return key
 
+    def _set_errors(self, rows: np.ndarray, err: np.ndarray) -> None:
+        """Write the live rows' new errors ``err`` (k, m) and their queue keys (the caller rebuilds the queue)."""
+        st = self.store
+        st["error"][rows] = err
+        st["key"][rows] = self._keys(err, st["tol"][rows] if "tol" in st.columns else None)
+
     def _axis_values(self, fr: np.ndarray, err: np.ndarray) -> np.ndarray:
         if fr.shape[2] == 1:
             return fr[:, :, 0]
@@ -2041,9 +2047,7 @@ class Run:
         if not (short > 0).any():
             return
         err = err + short[None, :, :] / nch
-        flat = rows.ravel()
-        st["error"][flat] = err.reshape(-1, err.shape[2])
-        st["key"][flat] = self._keys(st["error"][flat], st["tol"][flat] if "tol" in st.columns else None)
+        self._set_errors(rows.ravel(), err.reshape(-1, err.shape[2]))
         kept = int((short > 0).any(axis=1).sum())
         self.checks["probe_floors_kept"] = int(self.checks.get("probe_floors_kept", 0)) + kept
 
@@ -2072,9 +2076,7 @@ class Run:
         if not raise_.any():
             return
         r = rows[raise_]
-        err = np.maximum(st["error"][r], need[raise_])
-        st["error"][r] = err
-        st["key"][r] = self._keys(err, st["tol"][r] if "tol" in st.columns else None)
+        self._set_errors(r, np.maximum(st["error"][r], need[raise_]))
         self.checks["corner_floors_kept"] = int(self.checks.get("corner_floors_kept", 0)) + int(raise_.sum())
 
     def _lattice_hidden(self, idx: np.ndarray, new_rows: np.ndarray, parents: dict, kids: dict,
@@ -2153,10 +2155,8 @@ class Run:
             return
         st = self.store
         r = rows[hit]
-        err = st["error"][r] + add[hit]
-        st["error"][r] = err
+        self._set_errors(r, st["error"][r] + add[hit])
         st["flags"][r] = st["flags"][r] | FLAG_PROBE
-        st["key"][r] = self._keys(err, st["tol"][r] if "tol" in st.columns else None)
 
     def _hit_floors(self, g: dict, m: int) -> np.ndarray:
         """(b, m): :data:`AUDIT_LATTICE_MARGIN` times the hidden error left of the lattice points each box of ``g``
@@ -2314,9 +2314,7 @@ class Run:
         # 1e-4: true error within the reported one in 67 -> 71 of 80 runs, evaluations +0.04 %)
         if (D > parents["error"]).any():
             st = self.store
-            err = np.maximum(parents["error"], D)
-            st["error"][idx] = err
-            st["key"][idx] = self._keys(err, st["tol"][idx] if "tol" in st.columns else None)
+            self._set_errors(idx, np.maximum(parents["error"], D))
             self.queue.rebuild(st["key"], 1)
             self._exact_totals()
         return True
@@ -2614,10 +2612,8 @@ class Run:
         if not dv.any():
             return "audit"
         hit = rows[dv]
-        err = np.maximum(st["error"][hit], fl[dv])
-        st["error"][hit] = err
+        self._set_errors(hit, np.maximum(st["error"][hit], fl[dv]))
         st["flags"][hit] = st["flags"][hit] | FLAG_PROBE
-        st["key"][hit] = self._keys(err, st["tol"][hit] if "tol" in st.columns else None)
         # the jump found at each vertex, kept for the audit's split of the box (see _keep_corner_floors)
         vert = g["centre"][hit] + g["halfw"][hit] * sgn[dv]
         old = {tuple(e[:d]): e for e in self.checks.get("corner_floors", []) if len(e) == d + self.m}
