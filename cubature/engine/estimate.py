@@ -444,6 +444,14 @@ PLANE_WAVE_GRID = 48
 PLANE_WAVE_STEPS = 8
 
 
+def ratio_scale(n1: np.ndarray, n2: np.ndarray) -> np.ndarray:
+    """The ratio opinion's factor on ``n1 = |q7 - q5|``: ``min(1, SAFETY r)`` where ``r = n1 / n2 <= RATIO_LIMIT``,
+    else 1 (``r`` is 0 where both vanish, infinite where only ``n2`` does)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r = np.where(n2 > 0, n1 / n2, np.where(n1 > 0, np.inf, 0.0))
+    return np.where(r <= RATIO_LIMIT, np.minimum(1.0, SAFETY * r), 1.0)
+
+
 def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: np.ndarray,
                   method: str = "sharp") -> np.ndarray:
     """Error estimates per region (and component).
@@ -462,10 +470,7 @@ def region_errors(q7: np.ndarray, q5: np.ndarray, q3: np.ndarray | None, absq: n
         err = n1
     elif method == "sharp":
         n2 = np.abs(q5 - q3)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            r = np.where(n2 > 0, n1 / n2, np.where(n1 > 0, np.inf, 0.0))
-        scale = np.where(r <= RATIO_LIMIT, np.minimum(1.0, SAFETY * r), 1.0)
-        err = n1 * scale
+        err = n1 * ratio_scale(n1, n2)
         if FLOOR > 0:
             with np.errstate(divide="ignore", invalid="ignore"):
                 rel2 = np.where(absq > 0, np.minimum(1.0, n2 / absq), 1.0)
@@ -511,10 +516,8 @@ def log_errors(ql: np.ndarray, absl: np.ndarray, one: np.ndarray, fbar: np.ndarr
     """
     m1 = np.abs(ql[:, 0] - ql[:, 1])
     m2 = np.abs(ql[:, 1] - ql[:, 2])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        r = np.where(m2 > 0, m1 / m2, np.inf)
-        scale = np.where(r <= RATIO_LIMIT, np.minimum(1.0, SAFETY * r), 1.0)
-        err = fbar * m1 * scale
+    with np.errstate(invalid="ignore", over="ignore"):
+        err = fbar * m1 * ratio_scale(m1, m2)
         live = (one & np.isfinite(err) & (m1 > 16 * ROUNDING * np.maximum(absl, volume[:, None]))
                 & (m1 > LOG_RATIO_LIMIT * m2) & (fbar * m1 <= LOG_AGREE * n1))
     return np.where(live, np.minimum(err, n1), 0.0)
