@@ -10,6 +10,7 @@ import importlib.util
 import json
 import math
 import os
+import re
 import subprocess
 import sys
 import tomllib
@@ -560,6 +561,50 @@ def test_second_opinion_on_a_kink_the_first_rule_used_to_miss(tmp_path, cli):
     assert rec["trust"]["audit"] == "passed"
     assert so["method"] == "gauss-kronrod" and abs(so["value"] - exact) < 1e-5 * exact
     assert so["agree"] is True
+
+
+DIVERGENT3 = """
+[domain]
+variables = ["x", "y", "z"]
+box = [[0, 1], [0, 1], [0, 1]]
+[integrand]
+expr = "1/x + y*z"
+[goal]
+rel_tol = 1e-4
+budget = 100_000
+"""
+
+
+def test_summary_says_why_a_run_stopped_short_and_where(tmp_path, cli):
+    """issue 12 item 5 (the plain summary): a run that cannot meet its goal says why (the engine's message) and
+    what its trust checks found, with the bounds of the worst non-smooth regions; the summary used to show
+    only the status word.  The integral of 1/x over [0, 1] diverges (any calculus text), so the run must stop
+    short, and the flagged regions must lie on the face x = 0."""
+    f = write(tmp_path, "div.toml", DIVERGENT3)
+    p = cli("run", f, cwd=tmp_path)
+    assert p.returncode == 3, p.stderr
+    out = p.stdout.splitlines()
+    assert any(ln.startswith("status      budget-spent") for ln in out), p.stdout
+    why = [ln for ln in out if ln.startswith("why ")]
+    assert why and "not smooth" in " ".join(out), p.stdout
+    assert any(ln.startswith("checks      no audit · non-smooth") for ln in out), p.stdout
+    where = [ln for ln in out if ln.startswith("non-smooth ")]
+    spans = [re.search(r"x∈\[([^,]+),([^\]]+)\] y∈\[", ln) for ln in where]
+    assert where and all(m and float(m.group(2)) < 1e-9 for m in spans), p.stdout
+
+
+def test_summary_of_a_converged_run_states_its_checks(tmp_path, cli):
+    """issue 12 item 5: a converged run's summary says the audit passed and no region looked non-smooth.
+    Closed form (pi/4) erf(1) erf(2) (Abramowitz & Stegun 7.1.1)."""
+    f = write(tmp_path, "g.toml", GAUSS2)
+    p = cli("run", f, "--json", cwd=tmp_path)
+    rec = _one_json(p.stdout)
+    assert abs(rec["value"] - math.pi / 4 * math.erf(1.0) * math.erf(2.0)) < 1e-8
+    p = cli("run", f, cwd=tmp_path)
+    assert p.returncode == 0, p.stderr
+    checks = [ln for ln in p.stdout.splitlines() if ln.startswith("checks ")]
+    assert checks and checks[0].startswith("checks      audit ok · smooth: audit passed (1 audit"), p.stdout
+    assert not any(ln.startswith(("why ", "non-smooth ")) for ln in p.stdout.splitlines()), p.stdout
 
 
 # --------------------------------------------------------------------------

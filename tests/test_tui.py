@@ -940,7 +940,7 @@ def test_trust_checks_are_shown(probs, tmp_path):
             assert "non-smooth" in screen_text(app)
             notes = "\n".join(view.notes.lines_text)
             # the kink x + y + z = 1.4 crosses the flagged regions: their bounds name the variables
-            assert re.search(r"non-smooth region \(.*\), error .*: x∈\[.*\] y∈\[.*\] z∈\[", notes)
+            assert re.search(r"non-smooth region x∈\[.*\] y∈\[.*\] z∈\[.*\], error .* \(.*\)", notes)
             worst = view.run.result().trust["worst"]
             assert worst
             for w in worst:          # each flagged region is cut by the plane x + y + z = 1.4 (the kink)

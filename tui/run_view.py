@@ -25,13 +25,13 @@ from cubage.session.jsonio import write_json
 from cubage.session.prepare import InputError, Overrides, PreparedRun, prepare_run
 from cubage.session.result_record import result_record
 from cubage.session.status import REOPENABLE, is_final
+from cubage.session.trust import trust_details, trust_line, trust_of
 
 from .confirm import AskModal
 from .goal_editor import GoalEditor
 from .key_help import KeyHelp
 from .problem_facts import ProblemFacts
 from .results import result_path
-from .trust_text import trust_details, trust_line, trust_of
 from .widgets.convergence import ConvergenceChart
 from .widgets.density import RefinementMap
 from .widgets.guard import PanelFailed

@@ -361,7 +361,7 @@ def _execute(prep, args, *, name: str, guard, rundir=None, log_after: float = -1
             more.append(f"{'next':<11} {hint}")
         if second is not None:
             more.extend(_second_opinion_lines(second))
-        for line in summary_lines(res, None, problem.reference, more):
+        for line in summary_lines(res, None, problem.reference, more, names=problem.spec.variables):
             print(line, flush=True)
     if out.display_errors:
         _err(f"cubage: note: the display failed {out.display_errors} time(s) ({out.display_error}); "

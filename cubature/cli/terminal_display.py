@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import math
 import sys
+import textwrap
 import time
 from collections.abc import Sequence
 
@@ -32,6 +33,7 @@ import numpy as np
 from cubage.session.forecast import duration_text as fmt_duration
 from cubage.session.forecast import eta_text, forecast
 from cubage.session.status import meaning
+from cubage.session.trust import trust_of, trust_rows
 
 __all__ = ["CAUTION", "PlainTicker", "LivePanel", "summary_lines", "fmt_duration", "fmt_count", "fmt_rate",
            "fmt_value", "fmt_err", "reference_array"]
@@ -223,8 +225,19 @@ class LivePanel:
 # the summary
 # --------------------------------------------------------------------------
 
-def summary_lines(result, statuses: dict | None = None, reference=None, extra: Sequence[str] = ()) -> list[str]:
-    """Plain text lines summarising a finished (or stopped) run (``statuses``: meanings, default the session's)."""
+def _wrapped(label: str, text: str, width: int = 110) -> list[str]:
+    """``label`` in the summary's label column, ``text`` wrapped under it."""
+    return textwrap.wrap(f"{label:<11} {text}", width=width, subsequent_indent=" " * 12,
+                         break_long_words=False, break_on_hyphens=False) or [label]
+
+
+def summary_lines(result, statuses: dict | None = None, reference=None, extra: Sequence[str] = (),
+                  names: Sequence[str] = ()) -> list[str]:
+    """Plain text lines summarising a finished (or stopped) run (``statuses``: meanings, default the session's).
+
+    Besides value, status and work: the engine's message when it has one (why a run stopped short, what an
+    audit could not do) and its trust checks (issue 12 item 5), with the bounds of the worst non-smooth
+    regions in the variables ``names``."""
     vals = np.atleast_1d(result.values) if len(np.atleast_1d(result.values)) else np.atleast_1d(result.value)
     errs = np.atleast_1d(result.errors) if len(np.atleast_1d(result.errors)) else np.atleast_1d(result.error)
     m = vals.size
@@ -238,6 +251,11 @@ def summary_lines(result, statuses: dict | None = None, reference=None, extra: S
         lines.append(line)
     said = statuses.get(result.status, "") if statuses else meaning(result.status)
     lines.append(f"{'status':<11} {result.status}: {said}")
+    message = str(getattr(result, "message", "") or "")
+    if message:
+        lines.extend(_wrapped("why", message))
+    for label, text in trust_rows(trust_of(result), list(names)):
+        lines.extend(_wrapped(label, text))
     lines.append(f"{'work':<11} {fmt_count(result.evaluations)} evaluations, {fmt_count(result.regions)} "
                  f"region{'' if result.regions == 1 else 's'}, "
                  f"{fmt_duration(result.seconds)} (rule {result.rule})")

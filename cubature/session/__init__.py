@@ -21,6 +21,7 @@ Module map::
     jsonio.py           the one JSON rule for non-finite numbers; write_json over the one atomic write
     forecast.py         the one time-to-goal forecast, and the one duration format (duration_text)
     status.py           the status words (engine + session), which are final or reopenable, exit codes
+    trust.py            the engine's trust checks in words (the UI's read-out and notes, the summary)
     scan.py             scans: one integral over a grid of constants, warm-started, resumable
                         (cubage.scan; its run-directory files sit beside the ones above)
     scan_follower.py    ScanFollower: follows a scan's run directory from another process (the scan
