@@ -2650,12 +2650,22 @@ class Run:
         if share < 0.5:
             return ""
         i = int(np.argmax(np.where(bad, e, -1.0)))
-        lo, hi = self.geometry.user_bounds({name: self.store[name][i:i + 1] for name in self.geometry.columns})
+        g = {name: self.store[name][i:i + 1] for name in self.geometry.columns}
+        lo, hi = self.geometry.user_bounds(g)
         where = " x ".join(f"[{a:.6g}, {b:.6g}]" for a, b in zip(lo[0], hi[0]))
-        return (f"{100 * share:.0f} % of the error estimate sits in {int(bad.sum())} regions where the integrand "
-                f"is not smooth at their scale (a jump, kink or singularity; the worst at {where}); bisection "
-                "reduces such an error slowly, so this goal may be out of reach: put region boundaries on the "
-                "feature, transform it away, or loosen the goal")
+        n = int(bad.sum())
+        text = (f"{100 * share:.0f} % of the error estimate sits in {n} region{'' if n == 1 else 's'} where the "
+                f"integrand is not smooth at their scale (a jump, kink or singularity; the worst at {where}); "
+                "bisection reduces such an error slowly, so this goal may be out of reach: put region boundaries "
+                "on the feature, transform it away, or loosen the goal")
+        if not bool(self.geometry.splittable(g)[0]) and e[i] > 0.1 * total:
+            # bisected to floating-point resolution and still holding a tenth of the error: an integrable
+            # singularity's error falls with the region's width (x^p, p > -1: like width^(1 + p)), a
+            # non-integrable one's does not
+            text += (f"; that region is as narrow as floating point allows and still holds {100 * e[i] / total:.0f} "
+                     "% of the error: the integral may diverge there (a non-integrable singularity), or the "
+                     "singularity is too strong for bisection and needs a transformation")
+        return text
 
     def trust(self, worst: int = 3) -> dict:
         """How far to trust the current result (JSON-ready; issue 12 item 5).

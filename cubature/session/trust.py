@@ -62,7 +62,13 @@ def _bounds(lo, hi, names) -> str:
     out = []
     for k, (a, b) in enumerate(zip(lo, hi)):
         n = names[k] if k < len(names) else f"x{k}"
-        out.append(f"{n}∈[{a:.4g},{b:.4g}]" if math.isfinite(a) and math.isfinite(b) else f"{n}∈[{a},{b}]")
+        if not (math.isfinite(a) and math.isfinite(b)):
+            out.append(f"{n}∈[{a},{b}]")
+            continue
+        digits = 4      # enough digits to tell the ends of a narrow region apart
+        while digits < 17 and f"{a:.{digits}g}" == f"{b:.{digits}g}" and a != b:
+            digits += 1
+        out.append(f"{n}∈[{a:.{digits}g},{b:.{digits}g}]")
     return " ".join(out)
 
 
