@@ -453,6 +453,24 @@ def test_watch_says_the_runner_is_gone_and_how_to_continue(tmp_path, cli):
     assert "runner-gone" not in err and "Traceback" not in err
 
 
+def test_watch_of_an_ended_run_says_why_and_what_the_checks_found(tmp_path, cli):
+    """issue 12 item 5: `cubage watch` of a run that ended short prints the engine's reason and its trust checks
+    from the verdict, as `cubage run` does (it printed the status word alone).  The integral of 1/x over
+    [0, 1] diverges (any calculus text): the reason names the face x = 0 and says the integral may diverge."""
+    a = tmp_path / "a.toml"
+    a.write_text('[domain]\nvariables = ["x", "y"]\nbox = [[0, 1], [0, 1]]\n[integrand]\nexpr = "1/x + y"\n'
+                 '[goal]\nrel_tol = 1e-4\n')
+    d = tmp_path / "rd"
+    assert cli("run", a, "--run-dir", d, "--budget", "50000")[0] == 3
+    code, out, err = cli("watch", d, "--plain")
+    assert code == 3, err
+    lines = out.splitlines()
+    assert any(ln.startswith("cubage watch: ended: budget-spent") for ln in lines), out
+    assert any(ln.startswith("why ") for ln in lines) and "may diverge" in out, out
+    assert any(ln.startswith("checks      no audit") for ln in lines), out
+    assert any(ln.startswith("non-smooth  x∈[0,") for ln in lines), out
+
+
 def test_watch_survives_lines_that_are_not_objects(tmp_path, cli):
     """issue 10 item 15i: a trail line that is valid JSON but not an object must not kill `cubage watch`."""
     a = tmp_path / "a.toml"

@@ -689,12 +689,13 @@ def cmd_watch(args) -> int:
     """Follow a run directory: the text UI on a terminal, else plain lines until the run ends."""
     import time
 
-    from cubage.cli.terminal_display import PlainTicker
+    from cubage.cli.terminal_display import PlainTicker, verdict_lines
     from cubage.session.follower import RunFollower
     from cubage.session.jsonio import number_from_json
     from cubage.session.run_directory import LEDGER, OLD_LAYOUT_FILES, OUR_FILES, RunDir
     from cubage.session.status import EXIT_SHORT as SHORT
     from cubage.session.status import exit_code
+    from cubage.session.trust import trust_of
     d = Path(args.dir)
     if not d.is_dir():
         raise UsageError(f"{d}: no such run directory")
@@ -740,6 +741,9 @@ def cmd_watch(args) -> int:
                     print(f"cubage watch: ended: {status}: {v} ± {e} (estimate)", flush=True)
                 except (TypeError, ValueError, KeyError):
                     print(f"cubage watch: ended: {status}", flush=True)
+                names = (res.get("problem") or {}).get("variables") or []
+                for line in verdict_lines(res.get("message"), trust_of(res), names if isinstance(names, list) else []):
+                    print(line, flush=True)
                 return exit_code(status)
             if status == "runner-gone":
                 print(f"cubage watch: {f.gone_message}", flush=True)

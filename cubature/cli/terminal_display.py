@@ -35,8 +35,8 @@ from cubage.session.forecast import eta_text, forecast
 from cubage.session.status import meaning
 from cubage.session.trust import trust_of, trust_rows
 
-__all__ = ["CAUTION", "PlainTicker", "LivePanel", "summary_lines", "fmt_duration", "fmt_count", "fmt_rate",
-           "fmt_value", "fmt_err", "reference_array"]
+__all__ = ["CAUTION", "PlainTicker", "LivePanel", "summary_lines", "verdict_lines", "fmt_duration", "fmt_count",
+           "fmt_rate", "fmt_value", "fmt_err", "reference_array"]
 
 CAUTION = "the error is the engine's estimate, not a guaranteed bound"
 
@@ -231,6 +231,14 @@ def _wrapped(label: str, text: str, width: int = 110) -> list[str]:
                          break_long_words=False, break_on_hyphens=False) or [label]
 
 
+def verdict_lines(message, trust: dict | None, names: Sequence[str] = ()) -> list[str]:
+    """The ``why`` (the engine's message, when it has one) and ``checks`` lines of a result, wrapped."""
+    lines = _wrapped("why", str(message)) if message else []
+    for label, text in trust_rows(trust, list(names)):
+        lines.extend(_wrapped(label, text))
+    return lines
+
+
 def summary_lines(result, statuses: dict | None = None, reference=None, extra: Sequence[str] = (),
                   names: Sequence[str] = ()) -> list[str]:
     """Plain text lines summarising a finished (or stopped) run (``statuses``: meanings, default the session's).
@@ -251,11 +259,7 @@ def summary_lines(result, statuses: dict | None = None, reference=None, extra: S
         lines.append(line)
     said = statuses.get(result.status, "") if statuses else meaning(result.status)
     lines.append(f"{'status':<11} {result.status}: {said}")
-    message = str(getattr(result, "message", "") or "")
-    if message:
-        lines.extend(_wrapped("why", message))
-    for label, text in trust_rows(trust_of(result), list(names)):
-        lines.extend(_wrapped(label, text))
+    lines.extend(verdict_lines(getattr(result, "message", ""), trust_of(result), names))
     lines.append(f"{'work':<11} {fmt_count(result.evaluations)} evaluations, {fmt_count(result.regions)} "
                  f"region{'' if result.regions == 1 else 's'}, "
                  f"{fmt_duration(result.seconds)} (rule {result.rule})")
