@@ -753,6 +753,26 @@ def test_fibonacci_lattice_of_the_2d_audit_check_has_distinct_lines():
     assert abs(np.cos(np.pi * (pts[:, 0] + 1)).mean()) < 1e-13
 
 
+def test_2d_lattice_check_passes_a_cone_at_a_vertex_of_the_box():
+    """Regression: the box integral B_2(1) = int_[0,1]^2 sqrt(x^2 + y^2) = (sqrt 2 + asinh 1)/3 (Bailey, Borwein &
+    Crandall, "Box integrals", J. Comput. Appl. Math. 206 (2007) 196-208) at rel_tol 1e-6.  The lattice of the
+    audit's check had a point 1/466 of the box's side from the vertex holding the cone on both axes, where the
+    box's interpolant misses the cone most; that one point read 5.1e-7 of missed error in [0, 1/2]^2 whose rule
+    was 1.7e-9 off the closed form (scipy.integrate.dblquad), the check failed and the run refined 4.7x
+    further.  No lattice point lies that near a vertex now, and the check passes on the first audit."""
+    from cubage.engine.run import AUDIT_LATTICE, _fibonacci_lattice
+    p = (_fibonacci_lattice(AUDIT_LATTICE) + 1) / 2
+    near = np.maximum(np.minimum(p[:, 0], 1 - p[:, 0]), np.minimum(p[:, 1], 1 - p[:, 1]))
+    assert near.min() > 0.04
+    exact = (math.sqrt(2.0) + math.asinh(1.0)) / 3
+    run = cubage.Run(lambda X: np.sqrt((X * X).sum(axis=1)), cubage.Box([0, 0], [1, 1]), rel_tol=1e-6,
+                     budget=300_000)
+    res = run.run()
+    assert res.converged
+    _honest(res, exact, 1e-6)
+    assert run.checks.get("audit_check_failed", 0) == 0
+
+
 def test_lattice_basis_interpolates_polynomials_of_the_rule_exactly():
     """The check's interpolant P (tensor Lagrange interpolation on the 15 Kronrod abscissae, barycentric form of
     Berrut & Trefethen 2004) reproduces any polynomial of degree <= 14 per axis (uniqueness of polynomial

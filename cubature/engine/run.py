@@ -441,14 +441,26 @@ def _make_geometry(domain, settings: Settings):
 def _fibonacci_lattice(n: int) -> np.ndarray:
     """The 2-D Fibonacci lattice with ``n`` points (a Fibonacci number; generator the previous one), shifted by
     half a step, on [-1, 1]^2 (Korobov 1959; Sloan & Joe, *Lattice Methods for Multiple Integration*, 1994):
-    ``n`` points whose coordinates on either axis are ``n`` distinct values ``2 (i + 1/2) / n - 1``."""
+    ``n`` points whose coordinates on either axis are ``n`` distinct values ``2 (i + 1/2) / n - 1``.
+
+    The second coordinate is shifted by the whole number of steps that keeps the points farthest from the
+    square's vertices (ties: the smallest shift; for ``n = 233``, 188 steps, no point within 0.045 of the side of
+    a vertex on both axes): unshifted, the first point lay ``1/(2n)`` from a vertex on both axes, where a box's
+    interpolant misses a cone or a kink at that vertex most (the partition puts singular points at vertices),
+    and that one point weighs ``1/n`` of the box while the residual's mass there is far smaller.  The box
+    integral ``B_2(1)`` (``sqrt(x^2 + y^2)`` on the unit square) failed its check at 1e-6 on that point alone
+    (lattice 5.1e-7 against the rule's true error 1.7e-9) and refined to 7,541 evaluations against 1,611."""
     a, b = 1, 1
     while b < n:
         a, b = b, a + b
     if b != n:
         raise ValueError(f"{n} is not a Fibonacci number")
     i = np.arange(n)
-    t = np.stack([(i + 0.5) / n, ((i * a) % n + 0.5) / n], axis=1)
+    x = (i + 0.5) / n
+    y = ((i[None, :] * a + i[:, None]) % n + 0.5) / n                       # row s: shifted by s steps
+    near = np.maximum(np.minimum(x, 1 - x)[None, :], np.minimum(y, 1 - y)).min(axis=1)
+    shift = int(np.argmax(near))
+    t = np.stack([x, y[shift]], axis=1)
     out = 2.0 * t - 1.0
     out.flags.writeable = False
     return out
