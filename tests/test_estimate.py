@@ -68,6 +68,24 @@ def test_probe_quiet_on_smooth_functions(fun):
     assert not dev[0] and floor[0, 0] == 0.0
 
 
+def test_probe_read_beside_the_vertex_is_allowed_its_shift():
+    """A probe value read at a neighbouring box's probe point (3 * 2^-20 half-widths beyond the box's own, across the
+    face they share: Run._explained_probes) differs from the value at the box's own probe by the function's change
+    over that distance: on the linear 1 + s the cubic is exact (allowance: rounding), so the shifted value deviates
+    unless the check is told the shift; a jump of 0.01 there still deviates.  Values of 1 + s (exact)."""
+    delta = 3 * 2.0 ** -20
+    f0, fp, fm, _, a = _diagonal(lambda s: 1.0 + s)
+    t = E.PROBE_POSITION
+    probe = np.array([[[1.0 + t + delta], [1.0 - t]]])
+    shift = np.array([[delta, 0.0]])
+    args = (f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
+    assert E.probe_errors(*args)[1][0]                          # told nothing: a deviation of 2.9e-6
+    floor, dev = E.probe_errors(*args, shift=shift)
+    assert not dev[0] and floor[0, 0] == 0.0
+    jumped = (f0, fp, fm, probe + np.array([[[0.01], [0.0]]]), a, np.array([2.0]), np.array([[1.0]]))
+    assert E.probe_errors(*jumped, shift=shift)[1][0]
+
+
 def test_trend_floor_on_a_geometric_tail():
     """Issue 12 item 1: a value converging geometrically (ratio 0.8 per doubling) has remaining error
     0.8^j; the trend's extrapolation Delta2 * rho / (1 - rho) recovers it exactly (geometric series)."""

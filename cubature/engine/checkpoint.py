@@ -103,6 +103,8 @@ def save_run(run, path) -> None:
         arrays["node_rows"], arrays["node_values"] = run._node_cache
     if run._corner_cache is not None:                     # the corner checks' node values (Run._cache_corner_nodes)
         arrays["corner_rows"], arrays["corner_values"], arrays["corner_boxes"] = run._corner_cache
+    if run._vertex_memo is not None:                      # explained children's probes (Run._explained_probes)
+        arrays["memo_vertices"], arrays["memo_points"], arrays["memo_values"] = run._vertex_memo
     meta = {
         "format": FORMAT, "version": VERSION, "estimator": GENERATION, "fingerprint": run.fingerprint(),
         "domain": run.domain.to_json(), "integrand": run.integrand_id,
@@ -232,6 +234,8 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     if all(k in arrays for k in ("corner_rows", "corner_values", "corner_boxes")):
         run._corner_cache = (arrays["corner_rows"].astype(np.int64), arrays["corner_values"].astype(np.float64),
                              arrays["corner_boxes"].astype(np.float64))
+    if all(k in arrays for k in ("memo_vertices", "memo_points", "memo_values")):
+        run._vertex_memo = tuple(arrays[k].astype(np.float64) for k in ("memo_vertices", "memo_points", "memo_values"))
     run.step_count = int(meta["step"])
     run.evaluations = int(meta["evaluations"])
     run.elapsed_before = float(meta["elapsed"])

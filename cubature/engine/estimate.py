@@ -369,6 +369,11 @@ CALIBRATION_LIMIT = 1e3
 #: jump or kink crossing a box always separates some vertex from the centre, however close to a face it lies; a
 #: jump exactly on a face, as on a declared break or at x < 0.5, is not mistaken for one inside)
 PROBE_POSITION = 1.0 - 2.0 ** -20
+#: a probe value read at a neighbour's probe point beside a shared vertex (``shift`` half-widths of the box from its
+#: own, :func:`probe_errors`) is allowed this many times ``shift`` times the values' magnitude beyond its allowance:
+#: the change of ``f`` over the shift, up to a power law ``|x - s|^-p`` with ``p <= d`` one half-width from ``s``
+#: (``SHIFT_SLACK * d``)
+SHIFT_SLACK = 2.0
 #: the non-asymptotic signature of a region whose values share one sign must show in log|f| too, with this ratio
 #: limit (:func:`non_asymptotic`)
 LOG_RATIO_LIMIT = 0.1
@@ -648,7 +653,8 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                  volume: np.ndarray, scale: np.ndarray, by_vertex: bool = False,
                  f_mid: np.ndarray | None = None, axes: tuple | None = None,
                  pairs: tuple | None = None, dim: int | None = None,
-                 watch: list | None = None, vertices: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+                 watch: list | None = None, vertices: np.ndarray | None = None,
+                 shift: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
     """Error floors of boxes from values near their vertices, where the rule has no nodes.
 
     Along the diagonal from a box's centre towards vertex ``v`` (``t`` in
@@ -732,8 +738,19 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         For a check of some vertices only (with ``dim``): the index of each checked vertex among the box's
         ``2^d`` (:func:`~cubage.engine.geometry.vertex_signs` order), for the separable and plane-wave models
         of ``axes`` and ``pairs``.  Such a check gets no remainder allowance (no region is watched).
+    shift : ndarray, shape (k, v), optional
+        Where a probe value was read at another point than the box's own probe (a neighbouring box's probe beside
+        the same vertex, :meth:`~cubage.engine.run.Run._explained_probes`), the largest distance between the two
+        points in half-widths of this box along any axis (0 for the box's own probes): the probe is allowed
+        ``SHIFT_SLACK * d * shift`` times the larger of its value and the nodes' magnitude beyond its allowance
+        (the change of a smooth factor or of a power law ``|x - s|^-p``, ``p <= d``, over that distance).
     """
     rounding = 1e3 * ROUNDING * scale[:, None, :]
+    if shift is not None and np.any(shift > 0):
+        nd = dim if dim is not None else f_plus.shape[1].bit_length() - 1
+        with np.errstate(invalid="ignore"):
+            mag = np.fmax(scale[:, None, :], np.abs(f_probe))
+        rounding = rounding + SHIFT_SLACK * nd * shift[:, :, None] * np.where(np.isfinite(mag), mag, 0.0)
     remainder = None
     if axes is not None and PROBE_REMAINDER > 0 and vertices is None:
         remainder = PROBE_REMAINDER * diagonal_remainder(f0, *axes)

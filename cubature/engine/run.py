@@ -110,6 +110,12 @@ LATTICE_HIT_FINE = 24.0
 LATTICE_ORPHAN_BOXES = 8
 #: the node values of at most this many live regions are kept for that check (Run._cache_nodes)
 NODE_CACHE_REGIONS = 64
+#: vertex probes of explained children kept for their neighbours (:meth:`Run._explained_probes`): at most this many
+#: times ``2^d``, the newest
+VERTEX_MEMO = 8
+#: a kept probe is read for a neighbour's vertex only where it lies within this many of the neighbour's half-widths
+#: of the neighbour's own probe (two boxes of at most twice each other's width beside a shared vertex: 3 * 2^-20)
+SHIFT_MAX = 2.0 ** -17
 #: Warm start (scans): share of the audit sample taken when the start partition passed its own audit at the
 #: neighbouring constants and neither run shows a non-smooth signature (:meth:`Run._warm_audit_share`).
 #: Chosen on benchmarks/scan.py's smooth scan (warm/cold 0.517 with 1, 0.491 with 0.5, 0.476 with 0.25,
@@ -633,6 +639,9 @@ class Run:
         # node values of the live Genz-Malik boxes holding a domain vertex (rows, values (k, p, m), centres and
         # half-widths (k, 2 d)), for the domain-corner checks (:meth:`_domain_corners`); part of a checkpoint
         self._corner_cache: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        # the vertex probes of the last explained children (vertices (n, d), probe points (n, d), values (n, m)),
+        # read again for their neighbours' shared vertices (:meth:`_explained_probes`); part of a checkpoint
+        self._vertex_memo: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
         self._domain_box: tuple[np.ndarray, np.ndarray] | None = None
 
     # -- fingerprint ---------------------------------------------------------
@@ -863,6 +872,58 @@ class Run:
             out[need] = self._values_at(self._face_points(g)[need])
         return out
 
+    def _explained_probes(self, g: dict, light: np.ndarray) -> tuple[np.ndarray | None, int, np.ndarray | None]:
+        """Vertex probe values (kl, 2^d, m) of the Genz–Malik boxes ``light`` of ``g`` (children a known singularity
+        explains, :meth:`_explained`), the evaluations they cost, and how far each value was read from the box's
+        own probe (kl, 2^d; in half-widths of the box, the largest over the axes; 0 for its own probes).
+
+        A vertex that one of the last explained children probed (``_vertex_memo``, the newest
+        :data:`VERTEX_MEMO` times ``2^d``) is read from that probe when the two probe points lie within
+        :data:`SHIFT_MAX` half-widths of each other: the lineage beside a singular face splits the face's box
+        again and again, and each new explained child shares the vertices of its face away from the singularity
+        with the one before it (``x0^(-1/2) (x1 + x2 + x3)`` on [0, 1]^4: 8 of its 16), probed there 3 * 2^-20
+        of its half-width across the face they share.  The check allows for the shift
+        (:func:`~cubage.engine.estimate.probe_errors` ``shift``); a jump exactly on that face reads as a
+        deviation (a floor, never a miss)."""
+        sub = {name: a[light] for name, a in g.items()}
+        t = self.geometry.probe_points(sub, _estimate.PROBE_POSITION)
+        if t is None:
+            return None, 0, None
+        kl, d, m = int(light.sum()), self.domain.dim, self.m or 1
+        nv = 2 ** d
+        t = t.reshape(kl, nv, d)
+        h = sub["halfw"][:, None, :]
+        v = sub["centre"][:, None, :] + h * vertex_signs(d)[None]
+        pv = np.full((kl, nv, m), np.nan)
+        shift = np.zeros((kl, nv))
+        found = np.zeros((kl, nv), dtype=bool)
+        memo = self._vertex_memo
+        if memo is not None and memo[0].shape[1] == d and memo[2].shape[1] == m and len(memo[0]):
+            mv, mt, mf = memo
+            step = max(1, 4_000_000 // (nv * len(mv) * d))
+            for i in range(0, kl, step):
+                vi, hi, ti = v[i:i + step], h[i:i + step], t[i:i + step]
+                close = (np.abs(vi[:, :, None, :] - mv[None, None]) <= 1e-6 * hi[:, :, None, :]).all(axis=3)
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    sh = np.where(close, (np.abs(mt[None, None] - ti[:, :, None, :]) / hi[:, :, None, :]).max(axis=3),
+                                  np.inf)
+                j = np.argmin(sh, axis=2)
+                sh = np.take_along_axis(sh, j[:, :, None], axis=2)[:, :, 0]
+                ok = sh <= SHIFT_MAX
+                pv[i:i + step][ok] = mf[j[ok]]
+                shift[i:i + step][ok] = sh[ok]
+                found[i:i + step] = ok
+        need = ~found
+        if need.any():
+            pv[need] = self._values_at(t[need])
+            new = (v[need], t[need], pv[need])
+            if memo is not None and memo[0].shape[1] == d and memo[2].shape[1] == m:
+                new = tuple(np.concatenate([o, n]) for o, n in zip(memo, new))
+            keep = VERTEX_MEMO * nv
+            self._vertex_memo = tuple(a[-keep:].copy() for a in new)
+        self.checks["probes_shared"] = int(self.checks.get("probes_shared", 0)) + int(found.sum())
+        return pv, int(need.sum()), shift
+
     def _values_at(self, t: np.ndarray) -> np.ndarray:
         """Integrand values (n, m) at engine points ``t`` (n, d) outside the rule's nodes, in one call: NaN where
         the integrand gives no finite value, fails there, or the point maps to infinity."""
@@ -955,8 +1016,8 @@ class Run:
             fbar = np.abs(absq) / vol[:, None]
         return np.maximum(raw, _estimate.log_errors(ql, absl, one, fbar, vol, np.abs(q[:, 0, :] - q[:, 1, :])))
 
-    def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
-                     probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
+                     shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Error floors (k, m), signature flags (k,), the axis to bisect (k,; -1 for the rule's choice) and
         the regions to watch (k,; those only the remainder allowance cleared, whose children get the short
         checks) from what the rule's differences miss: the vertex probes of the regions ``probe``
@@ -964,7 +1025,7 @@ class Run:
         (:func:`~cubage.engine.estimate.axis_kink_errors`: a kink across the middle of a box biases its
         15-, 7- and 8-point rules alike, and no probe sees it).  Where the decay check sets the larger
         floor, the box is bisected across the axis it points to."""
-        floor, deviates, steer, watch = self._vertex_floor(g, fr, pv, probe)
+        floor, deviates, steer, watch = self._vertex_floor(g, fr, pv, probe, shift)
         if "diagonal" not in self.rule.extra or fr.shape[0] == 0:
             return floor, deviates, steer, watch
         vol = self.geometry.volume(g)
@@ -974,11 +1035,11 @@ class Run:
         steer = np.where(own, np.argmax(per_axis, axis=1), steer)
         return np.maximum(floor, kf), deviates | kinked, steer, watch
 
-    def _vertex_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None,
-                      probe: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _vertex_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
+                      shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Error floors (k, m), deviation flags (k,), the axis the deviating probes point to (k,; -1
         for none, :func:`~cubage.engine.estimate.probe_axis`) and the regions only the remainder allowance
-        cleared (k,) from the vertex probes of the regions ``probe``."""
+        cleared (k,) from the vertex probes of the regions ``probe`` (``shift``: :meth:`_explained_probes`)."""
         k, m = fr.shape[0], fr.shape[2]
         floor = np.zeros((k, m))
         deviates = np.zeros(k, dtype=bool)
@@ -1005,7 +1066,7 @@ class Run:
             fl, dv, ex = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
                                                         np.abs(fp).max(axis=1), by_vertex=True)
         else:
-            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol, wild)
+            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol, wild, shift)
             # a region only the remainder allowance cleared is watched: its children get the short checks
             remainder_watch[probe] = watch & ~dv
             if dv.any():
@@ -1015,7 +1076,8 @@ class Run:
                 ok = np.isfinite(w).all(axis=1) & np.isfinite(wp).all(axis=1)
                 if ok.any():
                     _, dvm, _, _ = self._genz_malik_probes(fp[dv][ok] * w[ok][:, :, None],
-                                                        pv[dv][ok] * wp[ok][:, :, None], vol[dv][ok])
+                                                        pv[dv][ok] * wp[ok][:, :, None], vol[dv][ok],
+                                                        shift=None if shift is None else shift[dv][ok])
                     rows = np.nonzero(dv)[0][ok][~dvm]
                     fl[rows], dv[rows], ex[rows] = 0.0, False, 0.0
                     self.checks["singular_explained"] = int(self.checks.get("singular_explained", 0)) + len(rows)
@@ -1024,13 +1086,15 @@ class Run:
         steer[probe] = _estimate.probe_axis(ex, vertex_signs(ex.shape[1].bit_length() - 1))   # 2^d vertices
         return floor, deviates, steer, remainder_watch
 
-    def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray, vol: np.ndarray,
-                           wild: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray, vol: np.ndarray, wild: np.ndarray | None = None,
+                           shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Floors (k, m), deviation flags (k,), per-vertex excess (k, v) and the boxes that only the remainder
         allowance cleared (k,; :func:`~cubage.engine.estimate.probe_errors` ``watch``) of Genz–Malik boxes with
         node values ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken).
         ``wild`` (k,): boxes whose probe values were clipped (:data:`~cubage.engine.estimate.PROBE_WILD`); their
-        floors are not capped (:func:`~cubage.engine.estimate.beyond_cap` reads the excess as the feature's size)."""
+        floors are not capped (:func:`~cubage.engine.estimate.beyond_cap` reads the excess as the feature's size).
+        ``shift`` (k, probes): where a value was read beside its probe
+        (:func:`~cubage.engine.estimate.probe_errors`)."""
         if wild is None:
             wild = np.zeros(len(fp), dtype=bool)
         grp = self.rule.extra["groups"]["corner5"]
@@ -1040,9 +1104,11 @@ class Run:
             only = np.isnan(pv[:, nv:]).all(axis=(1, 2))
             if only.all():
                 pv = pv[:, :nv]
+                shift = None if shift is None else shift[:, :nv]
             elif only.any():
                 fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only], wild[~only])
-                fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only], wild[only])
+                fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only], wild[only],
+                                                             None if shift is None else shift[only, :nv])
                 out = (np.empty((len(fp), *fl.shape[1:])), np.empty(len(fp), bool), np.empty((len(fp), nv)),
                        np.empty(len(fp), bool))
                 for o, a_, b_ in zip(out, (fl, dv, ex, wt), (fl1, dv1, ex1, wt1)):
@@ -1055,7 +1121,8 @@ class Run:
         watch: list = []
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
                                             np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes,
-                                            pairs=pairs, watch=watch)
+                                            pairs=pairs, watch=watch,
+                                            shift=None if shift is None else shift[:, :nv])
         if dv.any():
             # a feature the probes see beyond a resolved box's nodes lies outside their hull: its share of the
             # box is at most the slab beyond the outermost nodes (:func:`~cubage.engine.estimate.beyond_nodes`)
@@ -1679,20 +1746,24 @@ class Run:
         # come from the singularity may still cross them, and only a probe sees it)
         light = (self._explained(parents, kids) & self._looks_resolved(q, absq) & ~suspect
                  if "diagonal" not in self.rule.extra else np.zeros(len(q), bool))
+        shift = None
         if light.any():
-            pl = self._probe_values(kids, light)
+            pl, spent_light, shift_light = self._explained_probes(kids, light)
             if pl is not None:
                 nv = pl.shape[1]
                 both = suspect | light
                 full = np.full((int(both.sum()), pv.shape[1] if pv is not None else 2 * nv + 2 * self.domain.dim,
                                 pl.shape[2]), np.nan)
                 full[light[both], :nv] = pl
+                shift = np.zeros(full.shape[:2])
+                shift[light[both], :nv] = shift_light
                 if pv is not None:
                     full[suspect[both]] = pv
-                spent = (spent if spent is not None else 0) + pl.shape[0] * nv
+                spent = (spent if spent is not None else 0) + spent_light
                 pv, suspect = full, both
         self.queue.pop(k)
-        key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0, spent=spent)
+        key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0, spent=spent,
+                                            shift=shift)
         if disagreed and np.any(self._hidden > 0.1 * self.goal()):
             self._audit_ok = False                   # a large new discrepancy: the next convergence needs an audit
         self.queue.push(np.concatenate([idx, new]), key)
@@ -1704,12 +1775,13 @@ class Run:
     def _replace(self, idx: np.ndarray, parents: dict, kids: dict, q: np.ndarray, absq: np.ndarray,
                  fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
                  extra_flag: int, nch: int | None = None,
-                 spent: int | None = None) -> tuple[np.ndarray, np.ndarray, int]:
+                 spent: int | None = None, shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, int]:
         """Write the children of the split parents ``idx`` into the store (the parent's row is reused,
         the other children appended) after the split check; returns (children's keys, appended rows,
         number of surprises: parents whose children disagreed with them beyond their estimate, plus
         children whose vertex probes raised their estimate).  ``spent``: the probes evaluated, when not
-        every entry of ``pv`` was."""
+        every entry of ``pv`` was; ``shift``: where a probe value was read beside the probe
+        (:meth:`_explained_probes`)."""
         st = self.store
         k = len(idx)
         nch = nch or self.geometry.children_per_split
@@ -1742,7 +1814,7 @@ class Run:
         if "dwin" in st.columns:
             err, windows, implied = self._lineage_tails(parents, child_sum, raw.reshape(nch, k, m), err, wary,
                                                         noise, D)
-        floor, deviates, steer, watched = self._probe_floor(kids, fr, pv, probe)
+        floor, deviates, steer, watched = self._probe_floor(kids, fr, pv, probe, shift)
         raised = (floor > err).any(axis=1)
         # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
         # what the vertex probes added on top of the children's corrected estimates
