@@ -105,7 +105,7 @@ def test_version_1_checkpoints_still_load(tmp_path):
 
 
 
-@pytest.mark.parametrize("generation", [None, 1, 99])
+@pytest.mark.parametrize("generation", [None, 1, "previous", 99])
 def test_a_checkpoint_of_another_error_control_is_refused(tmp_path, generation):
     """A checkpoint written under another error control (the first release wrote no generation) must not resume:
     the regions the run never splits again would keep estimates this version does not vouch for, and its
@@ -119,7 +119,7 @@ def test_a_checkpoint_of_another_error_control_is_refused(tmp_path, generation):
         if generation is None:
             meta.pop("estimator")
         else:
-            meta["estimator"] = generation
+            meta["estimator"] = ck.GENERATION - 1 if generation == "previous" else generation
         meta["digest"] = ck._digest(arrays, meta)
     _rewrite(path, other)
     with pytest.raises(CheckpointError, match="another version of the error control") as err:

@@ -350,8 +350,10 @@ import numpy as np
 
 #: generation of the error control, written into every checkpoint: bump it with any change that alters a region's
 #: error estimate or the checks before ``converged`` (a run resumed under another generation would keep, on the
-#: regions it never splits again, estimates this one does not vouch for; the first release wrote none)
-GENERATION = 2
+#: regions it never splits again, estimates this one does not vouch for; the first release wrote none; 2: the honest
+#: error control; 3: the 2-D lattice shifted off the vertices, smooth models held to the corner node, probes shared
+#: between explained children)
+GENERATION = 3
 
 #: ratio |q7-q5| / |q5-q3| at or below which the ratio opinion is used
 RATIO_LIMIT = 0.25
