@@ -1082,3 +1082,26 @@ def test_bump_between_the_nodes_beside_a_separable_factor_4d():
                            cubage.Box([0.0] * d, [1.0] * d), rel_tol=1e-6, budget=300_000, raise_on_failure=False)
     _honest(res, base + h * unit, 1e-6)
 
+
+
+@pytest.mark.parametrize("d, k, s, c, tol", [(5, 0, 0.10047541582242941, 0.004994587090607687, 1e-6),
+                                             (5, 1, 0.3891293146296639, 0.003681730130333562, 1e-4),
+                                             (6, 1, 0.07487725739897813, 0.004395471784288223, 1e-6)])
+def test_log_opinion_on_a_kink_beside_an_exponential_holds(d, k, s, c, tol):
+    """Issue 12 (benchmarks/silent_cases.py, seed 31, kink draws 5, 0 and 2): exp(0.3 sum x) (1 + c |x_k - s|) on
+    [0, 1]^d.  Exact: E^(d-1) (E + c K) with E = (e^0.3 - 1)/0.3 and K = int_0^1 e^(0.3 t) |t - s| dt, by parts
+    on each side of s (checked against mpmath's quadrature).  All three converged within their goals with estimates
+    below their true errors (0.54 / 0.75, 0.064 / 0.096 and 0.014 / 0.17 of the goal): the rules' opinion on
+    log|f| was capped at f's |q7 - q5|, in which the exponential's difference cancelled part of the kink's, or
+    silent in a child of a non-smooth region whose log|f| ratio fell below LOG_RATIO_LIMIT by the kink's position
+    (0.099 and 0.084)."""
+    import mpmath
+    b = 0.3
+    E = math.expm1(b) / b
+    K = math.exp(b) * ((1 - s) / b - 1 / b ** 2) + 2 * math.exp(b * s) / b ** 2 - s / b - 1 / b ** 2
+    assert K == pytest.approx(float(mpmath.quad(lambda t: mpmath.exp(b * t) * abs(t - s), [0, s, 1])), rel=1e-12)
+    exact = E ** (d - 1) * (E + c * K)
+    res = cubage.integrate(lambda X: np.exp(b * X.sum(axis=1)) * (1 + c * np.abs(X[:, k] - s)),
+                           cubage.Box([0] * d, [1] * d), rel_tol=tol, budget=2_000_000, raise_on_failure=False)
+    assert res.converged
+    _honest(res, exact, tol)

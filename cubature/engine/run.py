@@ -1002,10 +1002,12 @@ class Run:
         q3 = q[:, 2, :] if q.shape[1] > 2 else None
         return _estimate.region_errors(q[:, 0, :], q[:, 1, :], q3, absq, self.settings.estimate)
 
-    def _rule_errors(self, g: dict, q: np.ndarray, absq: np.ndarray, fr: np.ndarray) -> np.ndarray:
+    def _rule_errors(self, g: dict, q: np.ndarray, absq: np.ndarray, fr: np.ndarray,
+                     lineage: np.ndarray | None = None) -> np.ndarray:
         """The regions' rule estimates (:meth:`_errors`), on Genz–Malik boxes whose values share one sign at least
         the opinion of the same rules on ``log|f|`` (:func:`~cubage.engine.estimate.log_errors`: a small kink
-        beside a smooth factor whose low-degree error the ratio opinion reads as convergence)."""
+        beside a smooth factor whose low-degree error the ratio opinion reads as convergence; ``lineage`` (k,):
+        children of a region with a non-smooth signature, where that opinion needs no ratio test)."""
         raw = self._errors(q, absq)
         if (q.shape[1] < 3 or self.geometry.kind != "box" or "diagonal" in self.rule.extra
                 or self.settings.estimate != "sharp" or fr.shape[0] == 0):
@@ -1014,7 +1016,8 @@ class Run:
         ql, absl, one = self._log_rules(fr, vol)
         with np.errstate(divide="ignore", invalid="ignore"):
             fbar = np.abs(absq) / vol[:, None]
-        return np.maximum(raw, _estimate.log_errors(ql, absl, one, fbar, vol, np.abs(q[:, 0, :] - q[:, 1, :])))
+        return np.maximum(raw, _estimate.log_errors(ql, absl, one, fbar, vol, np.abs(q[:, 0, :] - q[:, 1, :]),
+                                                   np.abs(q[:, 1, :] - q[:, 2, :]), lineage))
 
     def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
                      shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -1787,7 +1790,7 @@ class Run:
         nch = nch or self.geometry.children_per_split
         m = q.shape[2]
         val, low = q[:, 0, :], q[:, 1, :]
-        raw = self._rule_errors(kids, q, absq, fr)
+        raw = self._rule_errors(kids, q, absq, fr, np.tile((parents["flags"] & _NON_SMOOTH) != 0, nch))
         # measure, not assume: each parent's value against the sum of its children's
         child_sum = val.reshape(nch, k, m).sum(axis=0)
         noise = _estimate.ROUNDING * absq.reshape(nch, k, m).sum(axis=0)
