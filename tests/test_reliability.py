@@ -1105,3 +1105,20 @@ def test_log_opinion_on_a_kink_beside_an_exponential_holds(d, k, s, c, tol):
                            cubage.Box([0] * d, [1] * d), rel_tol=tol, budget=2_000_000, raise_on_failure=False)
     assert res.converged
     _honest(res, exact, tol)
+
+
+@pytest.mark.parametrize("tol", [1e-4, 1e-6])
+def test_slab_beside_the_boxes_that_found_it_is_checked_along_its_axis_2d(tol):
+    """Issue 12 (benchmarks/stress.py, seed 31, 2-D slab index 1): exp(0.2 (x + y)) + h on 0.78022 < x < 0.78627,
+    worth 3e-4 of the integral.  Exact: ((e^0.2 - 1) / 0.2)^2 + h (b - a) (elementary).  The first region's
+    lattice check read the slab at one point; the boxes around it were refined, and the lattice check's hidden
+    error went to the largest boxes of the domain, beside the slab, while five boxes of [0.75, 0.875] x [0.375, 1]
+    held it between their nodes: converged 188x beyond its goal at 1e-6 (1.8x, reporting 0.49 of its goal, at
+    1e-4).  The boxes checked again now meet the axis lines through the points that carried that error."""
+    a, b = 0.78022, 0.78627
+    base = (math.expm1(0.2) / 0.2) ** 2
+    h = 3e-4 * base / (b - a)
+    res = cubage.integrate(lambda X: np.exp(0.2 * X.sum(axis=1)) + h * ((X[:, 0] > a) & (X[:, 0] < b)),
+                           cubage.Box([0.0, 0.0], [1.0, 1.0]), rel_tol=tol, budget=2_000_000, raise_on_failure=False)
+    assert res.converged
+    _honest(res, base + h * (b - a), tol)
