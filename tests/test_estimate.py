@@ -86,6 +86,20 @@ def test_probe_read_beside_the_vertex_is_allowed_its_shift():
     assert E.probe_errors(*jumped, shift=shift)[1][0]
 
 
+def test_a_vertex_without_a_mid_probe_keeps_the_models_of_log_f():
+    """Mid probes are taken only at the vertices whose probe the smooth models miss (Run._suspect_probes): a vertex
+    without one (NaN) has no short check, and the region's values still share one sign, so the model of log|f|
+    still explains the probes.  exp(4 s^2): its logarithm is a quadratic, while f's cubic misses the probe by more
+    than its allowance (the check deviated with the missing mid probe before).  Values of exp(4 s^2) (exact)."""
+    fun = lambda s: math.exp(4 * s * s)                        # noqa: E731
+    f0, fp, fm, probe, a = _diagonal(fun)
+    mid = np.array([[[fun(E.PROBE_MID)], [np.nan]]])
+    args = (f0, fp, fm, probe, a, np.array([2.0]), np.array([[1.0]]))
+    assert (E._probe_excess(f0, fp, fm, probe, a, 1e-11, None) > 0).all()      # f's cubic alone deviates
+    floor, dev = E.probe_errors(*args, f_mid=mid)
+    assert not dev[0] and floor[0, 0] == 0.0
+
+
 def test_trend_floor_on_a_geometric_tail():
     """Issue 12 item 1: a value converging geometrically (ratio 0.8 per doubling) has remaining error
     0.8^j; the trend's extrapolation Delta2 * rho / (1 - rho) recovers it exactly (geometric series)."""

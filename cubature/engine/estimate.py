@@ -429,7 +429,8 @@ PROBE_GATE = 1e-3
 #: their exponents agree within this share (:func:`extrapolation_errors`; as ``SINGULAR_POWER_MATCH`` in run.py)
 POWER_MATCH = 0.25
 #: a Genz-Malik suspect's second probes (mid and face probes) are skipped where the sharpest smooth model predicts
-#: every vertex probe within this fraction of the goal per unit volume of the domain (:meth:`Run._suspect_probes`)
+#: every vertex probe within this fraction of the goal per unit volume of the domain, and its mid probes at the
+#: vertices it predicts so (:meth:`Run._suspect_probes`)
 PROBE_SKIP = 0.1
 #: per-axis decay check of tensor Gauss-Kronrod boxes (:func:`axis_kink_errors`): Legendre coefficients 11..14 of
 #: an axis' 15-point interpolant above KINK_DECAY times coefficients 6..10 (algebraic, not geometric decay) mark a
@@ -925,8 +926,8 @@ def _one_sign(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, f_mid: np
     s0 = np.sign(f0)
     ok = (s0 != 0) & np.all(np.sign(f_plus) == s0[:, None, :], axis=1) & \
         np.all(np.sign(f_probe) == s0[:, None, :], axis=1)
-    if f_mid is not None:
-        ok &= np.all(np.sign(f_mid) == s0[:, None, :], axis=1)
+    if f_mid is not None:            # (a mid probe not taken at a vertex, NaN, is no value of the region)
+        ok &= np.all((np.sign(f_mid) == s0[:, None, :]) | np.isnan(f_mid), axis=1)
     return ok
 
 
@@ -1021,7 +1022,9 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
                 p3 = pred
             dev2 = np.abs(f_probe - p3)
         ok2 = np.isfinite(dev2) & np.isfinite(allow2)
-        excess = np.maximum(excess, np.where(ok2, np.maximum(dev2 - allow2, 0.0), np.inf if modelled else 0.0))
+        # (no mid probe at a vertex, NaN: no short check there)
+        excess = np.maximum(excess, np.where(ok2, np.maximum(dev2 - allow2, 0.0),
+                                             np.where(np.isnan(f_mid), 0.0, np.inf if modelled else 0.0)))
     return excess
 
 
@@ -1755,7 +1758,8 @@ def faces_to_probe(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pr
         p3 = sum(w * r for w, r in zip(w3, rows))
         p2 = sum(w * r for w, r in zip(w2, rows[1:]))
         allow2 = PROBE_MID_TOLERANCE * np.abs(p3 - p2)
-        diag = (np.minimum(allow1, allow2) / np.abs(f_probe)).max(axis=2)                # (k, v), relative
+        # (a vertex without a mid probe, NaN: its long check alone)
+        diag = (np.fmin(allow1, allow2) / np.abs(f_probe)).max(axis=2)                   # (k, v), relative
         q4 = sum(w * r for w, r in zip(v4, axis))
         q3 = sum(w * r for w, r in zip(v3, axis[1:]))
         q2 = sum(w * r for w, r in zip(v2, axis[2:]))
