@@ -351,9 +351,11 @@ import numpy as np
 #: generation of the error control, written into every checkpoint: bump it with any change that alters a region's
 #: error estimate or the checks before ``converged`` (a run resumed under another generation would keep, on the
 #: regions it never splits again, estimates this one does not vouch for; the first release wrote none; 2: the honest
-#: error control; 3: the 2-D lattice shifted off the vertices, smooth models held to the corner node, probes shared
-#: between explained children)
-GENERATION = 3
+#: error control; 3: an intermediate state; 4: the 2-D lattice shifted off the vertices and its orphaned error
+#: re-checked along its points' axis lines, smooth models held to the corner node, probes shared between explained
+#: children, mid probes per missed vertex, the plain log|f| opinion, the audit's largest-error split only where it
+#: weighs, floors kept by children blind to what their parent saw)
+GENERATION = 4
 
 #: ratio |q7-q5| / |q5-q3| at or below which the ratio opinion is used
 RATIO_LIMIT = 0.25
