@@ -217,10 +217,6 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
                        flags=np.zeros(len(regions["error"]), np.uint8))
     if "dwin" in cols and "dwin" not in regions and "value" in regions:   # simplex, written before lineage windows
         regions["dwin"] = np.full((len(regions["value"]),) + cols["dwin"][0], np.nan)
-    if "blind" in cols and "blind" not in regions and "value" in regions:   # written before blind floors
-        regions["blind"] = np.zeros_like(regions["value"])
-        regions["blind_axis"] = np.full(len(regions["value"]), -1, np.int8)
-        regions["blind_cuts"] = np.zeros(len(regions["value"]), np.int8)
     try:
         run.store = RegionStore.from_arrays(cols, regions)
     except (KeyError, ValueError) as exc:

@@ -2922,7 +2922,7 @@ class Run:
         total = float(e.sum())
         out["flagged_regions"] = int(bad.size)
         out["flagged_error_share"] = float(e[bad].sum() / total) if total > 0 and bad.size else 0.0
-        out["smooth"] = bool(bad.size == 0 and c["disagreed"] == 0 and c["lower_closer"] == 0)
+        out["smooth"] = self._smooth_so_far()
         if bad.size:
             top = bad[np.argsort(-e[bad], kind="stable")[:worst]]
             g = {name: self.store[name][top] for name in self.geometry.columns}
