@@ -212,11 +212,6 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
     run.m = int(meta["components"])
     cols = run.region_columns()
     regions = {k[2:]: v for k, v in arrays.items() if k.startswith("r_")}
-    if "raw" not in regions and "error" in regions:   # written before the split check existed
-        regions.update(raw=regions["error"], low=regions.get("value"),
-                       flags=np.zeros(len(regions["error"]), np.uint8))
-    if "dwin" in cols and "dwin" not in regions and "value" in regions:   # simplex, written before lineage windows
-        regions["dwin"] = np.full((len(regions["value"]),) + cols["dwin"][0], np.nan)
     try:
         run.store = RegionStore.from_arrays(cols, regions)
     except (KeyError, ValueError) as exc:

@@ -2541,10 +2541,8 @@ class Run:
                 or not has_probes(self.rule) or "centre" not in g or self.store is None):
             return
         rows = np.asarray(rows, np.int64)
-        lo, hi = self.geometry.engine_bounds(g)
-        dlo, dhi = self._domain_bounds()
-        tol = 1e-12 * np.maximum(1.0, np.abs(dlo) + np.abs(dhi))
-        holds = ((np.abs(hi - dhi) <= tol) | (np.abs(lo - dlo) <= tol)).all(axis=1)
+        at_lo, at_hi = self._at_domain_faces(g)
+        holds = (at_lo | at_hi).all(axis=1)
         box = np.concatenate([g["centre"], g["halfw"]], axis=1)
         if self._corner_cache is not None and fr.shape[1:] == self._corner_cache[1].shape[1:]:
             old_rows, old_values, old_box = self._corner_cache
@@ -2556,11 +2554,25 @@ class Run:
             self._corner_cache = (rows[holds], fr[holds].copy(), box[holds])
 
     def _domain_bounds(self) -> tuple[np.ndarray, np.ndarray]:
-        """The domain's lower and upper corners in engine coordinates (the live boxes' extremes; boxes only)."""
+        """The domain's lower and upper corners in engine coordinates (the geometry's own: the same before and
+        after a resume, where the live regions' extremes could differ from them in the last digit)."""
         if self._domain_box is None:
-            lo, hi = self.geometry.engine_bounds({name: self.store[name] for name in self.geometry.columns})
-            self._domain_box = (lo.min(axis=0), hi.max(axis=0))
+            self._domain_box = self.geometry.map_extent()
         return self._domain_box
+
+    def _domain_tol(self) -> np.ndarray:
+        """Per axis (d,): how far apart two engine coordinates may lie and still be the same point (1e-12 of the
+        domain's scale, for the last digits a chain of halvings may leave)."""
+        dlo, dhi = self._domain_bounds()
+        return 1e-12 * np.maximum(1.0, np.abs(dlo) + np.abs(dhi))
+
+    def _at_domain_faces(self, g: dict) -> tuple[np.ndarray, np.ndarray]:
+        """Per box of ``g`` and axis (k, d): whether its lower / upper end lies on the domain's
+        (:meth:`_domain_tol`)."""
+        lo, hi = self.geometry.engine_bounds(g)
+        dlo, dhi = self._domain_bounds()
+        tol = self._domain_tol()
+        return np.abs(lo - dlo) <= tol, np.abs(hi - dhi) <= tol
 
     def _corner_nodes(self, rows: np.ndarray, c: np.ndarray, h: np.ndarray,
                       use: np.ndarray) -> tuple[np.ndarray | None, np.ndarray]:
@@ -2631,10 +2643,8 @@ class Run:
             return "audit"
         st, d = self.store, self.domain.dim
         g = {name: st[name] for name in self.geometry.columns}
-        lo, hi = self.geometry.engine_bounds(g)
-        tol = 1e-12 * np.maximum(1.0, np.abs(lo).max(axis=0) + np.abs(hi).max(axis=0))
-        at_hi = np.abs(hi - hi.max(axis=0)) <= tol
-        at_lo = np.abs(lo - lo.min(axis=0)) <= tol
+        at_lo, at_hi = self._at_domain_faces(g)
+        tol = self._domain_tol()
         # a box holds a domain vertex when every axis ends at the domain's bound (its sign on that axis)
         holds = (at_hi | at_lo).all(axis=1)
         holds &= (st["flags"] & _NON_SMOOTH) == 0
