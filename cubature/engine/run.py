@@ -2637,7 +2637,10 @@ class Run:
         ``[0.5, 1]^2 x [0, 1]`` was probed and agreed, its descendants never were, and the run converged 3.2x
         beyond its goal with the corner missing).  Each such box gets the two probes of the diagonal through the
         domain's vertex (and the second probe per vertex on it) with the centre and the two corner nodes on that
-        diagonal (:func:`~cubage.engine.estimate.probe_errors`), 7 evaluations.  A check that agreed bounds a jump
+        diagonal (:func:`~cubage.engine.estimate.probe_errors`), 7 evaluations (5 from the second level on: the
+        vertex probe and the centre of the level above are read as this box's vertex probe and opposite probe, at
+        their own positions on its diagonal, 2^-20 of its half-width beside its own probes, ``checks["corner_reused"]``;
+        the vertex probe is evaluated again once it lies :data:`SHIFT_MAX` away).  A check that agreed bounds a jump
         at the vertex only by its allowance there (the cubic's own terms, which shrink with the square of the
         box's size): where that allowance times the box's volume beyond its corner node exceeds the vertex's share
         of :data:`AUDIT_SMALL` times the goal, the box of half the size holding the vertex is checked in turn, up to
@@ -2724,6 +2727,12 @@ class Run:
         wcub = _estimate._lagrange_weights(np.array([-T, -a, 0.0, a]), T)
         prev = np.full((1 + len(lams), k, self.m), np.nan)
         nv = 2 ** d
+        # from the second level on, two of a check's seven values are the level above's: its probe at the domain's
+        # vertex (a point 2^-20 of that box's half-width from the vertex, within SHIFT_MAX of this box's own probe
+        # for three levels) and its centre (this box's opposite vertex, 2^-20 of its half-width beside its
+        # opposite probe): the checks read them at their own positions on the diagonal
+        above = np.full((k, 2, self.m), np.nan)                 # the level above's vertex probe and centre
+        t_level = 0                                             # the level whose vertex probe `above` holds
         for level in range(CORNER_LEVELS):
             if todo.size == 0:
                 break
@@ -2741,9 +2750,29 @@ class Run:
                 fv[known, 1] = fk[r_, grp[0] + vk]
                 fv[known, 2] = fk[r_, grp[0] + nv - 1 - vk]
                 fv[known, 3:] = self._values_at(t[known, 3:].reshape(-1, d)).reshape(int(known.sum()), len(pos) - 3, -1)
-            if (~known).any():
-                fv[~known] = self._values_at(t[~known].reshape(-1, d)).reshape(int((~known).sum()), len(pos), -1)
-            spent = fv.shape[0] * fv.shape[1] - 3 * int(known.sum())
+            # positions on the diagonal of the values read for the vertex probe and the opposite one
+            t_pos, o_pos = T, -T
+            shift = None
+            if level == 0:
+                if (~known).any():
+                    fv[~known] = self._values_at(t[~known].reshape(-1, d)).reshape(int((~known).sum()), len(pos), -1)
+                spent = fv.shape[0] * fv.shape[1] - 3 * int(known.sum())
+            else:
+                reuse = (2.0 ** (level - t_level) - 1.0) * (1.0 - T) <= SHIFT_MAX
+                cols = [0, 1, 2, 5, 6] if reuse else [0, 1, 2, 3, 5, 6]
+                fv[:, cols] = self._values_at(t[:, cols].reshape(-1, d)).reshape(todo.size, len(cols), -1)
+                fv[:, 4] = above[todo, 1]
+                o_pos = -1.0
+                if reuse:
+                    fv[:, 3] = above[todo, 0]
+                    t_pos = 1.0 - (1.0 - T) * 2.0 ** (level - t_level)
+                else:
+                    t_level = level
+                shift = np.tile([[(T - t_pos), (1.0 - T)]], (todo.size, 1))
+                spent = todo.size * len(cols)
+                self.checks["corner_reused"] = (int(self.checks.get("corner_reused", 0))
+                                                + todo.size * (len(pos) - len(cols)))
+            above[todo, 0], above[todo, 1] = fv[:, 3], fv[:, 0]
             self.evaluations += spent
             self.checks["corner_probes"] = int(self.checks.get("corner_probes", 0)) + spent
             node = fv[:, :3, :]
@@ -2754,7 +2783,7 @@ class Run:
             f_plus = node[:, 1:3, :]                           # towards the vertex, towards its opposite
             vol = self.geometry.volume({"centre": cc, "halfw": hh})
             f1, d1 = _estimate.probe_errors(node[:, 0, :], f_plus, f_plus[:, ::-1, :], pr[:, 0:2, :], a, vol,
-                                            np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :], dim=d)
+                                            np.abs(node).max(axis=1), f_mid=pr[:, 2:4, :], dim=d, shift=shift)
             again = known & d1
             if again.any():
                 fk = nodes[at[todo][again]]
@@ -2772,11 +2801,17 @@ class Run:
             # the largest jump the check at the domain's vertex lets pass (the cubic's allowance there) times the
             # volume beyond the corner node: where it exceeds the vertex's share of the goal, look again at the
             # box of half the size holding the vertex (its allowance shrinks with the square of its size)
+            if o_pos == -T:
+                coef_l, wcub_l = coef, wcub
+            else:
+                xs = np.array([o_pos, -a, 0.0, a])
+                coef_l = np.linalg.inv(np.vander(xs, 4, increasing=True))
+                wcub_l = _estimate._lagrange_weights(xs, t_pos)
             with np.errstate(invalid="ignore"):
-                cf = np.einsum("ij,jkm->ikm", coef, np.stack([pr[:, 1, :], node[:, 2, :], node[:, 0, :],
-                                                                node[:, 1, :]]))
+                cf = np.einsum("ij,jkm->ikm", coef_l, np.stack([pr[:, 1, :], node[:, 2, :], node[:, 0, :],
+                                                                  node[:, 1, :]]))
                 allow = _estimate.PROBE_CURVATURE * np.abs(cf[2]) * T * T + np.abs(cf[3]) * T ** 3
-                sdev = pr[:, 0, :] - (cf[0] + cf[1] * T + cf[2] * T * T + cf[3] * T ** 3)
+                sdev = pr[:, 0, :] - (cf[0] + cf[1] * t_pos + cf[2] * t_pos ** 2 + cf[3] * t_pos ** 3)
                 dev = np.abs(sdev)
                 # read with the level above: the probe at the vertex is the same point at every level (within
                 # 2^-20 of the box), so a jump there adds the same J to both levels' signed deviations e from a
@@ -2794,7 +2829,7 @@ class Run:
                 for lam in lams:
                     fwd, back = _estimate._power_transform(lam, sg)
                     with np.errstate(all="ignore"):
-                        pred = back(np.einsum("j,jkm->km", wcub, fwd(line)))
+                        pred = back(np.einsum("j,jkm->km", wcub_l, fwd(line)))
                     esg.append(np.where(one, pr[:, 0, :] - pred, np.nan))
                 esg = np.stack(esg)
                 if CORNER_DECAY > 1.0:
