@@ -367,6 +367,21 @@ def test_one_region_audit_costs_one_split():
     assert abs(res.value - exact) <= res.error
 
 
+@pytest.mark.parametrize("d", [3, 4])
+def test_audit_children_share_the_probes_of_their_common_face(d):
+    """Issue 12 (smooth cost): the two children of the audit's split share the 2^(d-1) vertices of the face between
+    them, so their vertex probes cost 2^(d+1) - 2^(d-1) evaluations, besides the children's 2 (2^d + 2 d^2 + 2 d
+    + 1) Genz-Malik nodes (Genz & Malik 1980).  exp(-3 |x - 0.3|^2) on [0, 1]^d at rel_tol 1e-4, whose value region
+    was never probed.  Closed form: (sqrt(pi/3)/2 (erf(0.7 sqrt 3) + erf(0.3 sqrt 3)))^d (product of 1-D Gaussian
+    integrals, common practice)."""
+    exact = (math.sqrt(math.pi / 3) / 2 * (math.erf(math.sqrt(3) * 0.7) + math.erf(math.sqrt(3) * 0.3))) ** d
+    res = cubage.integrate(lambda X: np.exp(-3.0 * ((X - 0.3) ** 2).sum(axis=1)), cubage.Box([0] * d, [1] * d),
+                           rel_tol=1e-4)
+    assert res.converged and res.trust["audit"] == "passed" and res.trust["audit_regions"] == 1
+    assert res.trust["audit_evaluations"] == 2 * (2 ** d + 2 * d * d + 2 * d + 1) + 2 ** (d + 1) - 2 ** (d - 1)
+    _honest(res, exact, 1e-4)
+
+
 @pytest.mark.parametrize("d", [2, 3])
 def test_support_missed_by_every_node_of_the_first_region(d):
     """Issue 12 item 3: [x0 < 0.02][x1 < 0.03] exp(x0 + ... ) is 0 on every node of the first region, so its

@@ -835,7 +835,8 @@ class Run:
             t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d), *tf], axis=1).reshape(-1, d)
         return self._values_at(t).reshape(int(probe.sum()), -1, self.m or 1)
 
-    def _suspect_probes(self, g: dict, probe: np.ndarray, fr: np.ndarray) -> tuple[np.ndarray | None, int | None]:
+    def _suspect_probes(self, g: dict, probe: np.ndarray,
+                        fr: np.ndarray) -> tuple[np.ndarray | None, int | None, np.ndarray | None]:
         """Probe values (kp, 2 v + 2 d, m) of the Genz-Malik suspects ``probe`` of ``g`` (node values ``fr``) and
         the evaluations they cost: the vertex probes, then the second probe per vertex and the face probes
         (:meth:`_faces_to_probe`) where the vertex probes leave room for a feature (NaN elsewhere).
@@ -847,10 +848,16 @@ class Run:
         probes: a kink or jump beyond its corner nodes adds about its size at the vertex beyond it to that
         model's miss there, so what such a feature can hide in the box is at most that share of the goal.  For the
         same reason the others take their second probe per vertex only at the vertices the models miss so (the
-        4-D diagonal kink's suspects: 7,700 of their 10,256 vertices spared, 167,783 -> 160,091 evaluations)."""
-        pv = self._probe_values(g, probe)
+        4-D diagonal kink's suspects: 7,700 of their 10,256 vertices spared, 167,783 -> 160,091 evaluations).
+        Two suspects of one bisection share the vertices of the face between them (:meth:`_sibling_probes`); the
+        third value is how far each value was read from the box's own probe (kp, 2 v + 2 d)."""
+        if self.geometry.kind == "box" and self.geometry.children_per_split == 2:
+            pv, spent_v, shift_v = self._sibling_probes(g, probe)
+        else:
+            pv = self._probe_values(g, probe)
+            spent_v = shift_v = None
         if pv is None:
-            return None, None
+            return None, None, None
         kp, nv, m = pv.shape
         d = self.domain.dim
         fp = fr[probe]
@@ -883,7 +890,61 @@ class Run:
         out[:, 2 * nv:] = self._face_values(sub, need)
         self.checks["face_probes_spared"] = int(self.checks.get("face_probes_spared", 0)) + int((~need[more]).sum())
         self.checks["second_probes_skipped"] = int(self.checks.get("second_probes_skipped", 0)) + int(tight.sum())
-        return out, kp * nv + int((~each[more]).sum()) + int(need.sum())
+        shift = np.zeros(out.shape[:2])
+        if shift_v is not None:
+            shift[:, :nv] = shift_v
+        return (out, (kp * nv if spent_v is None else spent_v) + int((~each[more]).sum()) + int(need.sum()),
+                shift)
+
+    def _sibling_probes(self, g: dict, probe: np.ndarray) -> tuple[np.ndarray | None, int, np.ndarray | None]:
+        """Vertex probe values (kp, 2^d, m) of the Genz-Malik boxes ``probe`` of the bisection children ``g``
+        (block layout: the lower children, then the upper ones), the evaluations they cost, and how far each
+        value was read from the box's own probe (kp, 2^d; in half-widths of the box; 0 for its own probes).
+
+        Two children of one split share the ``2^(d-1)`` vertices of the face between them, and their probes there
+        lie ``2 (1 - PROBE_POSITION)`` of a child's half-width apart across it: where both are probed, the upper
+        child reads those vertices from the lower child's probes (2^-19 of its half-width away; the check
+        allows for it, :func:`~cubage.engine.estimate.probe_errors` ``shift``, as for the neighbours of
+        :meth:`_explained_probes`), a quarter fewer evaluations.  A jump exactly between the two points reads as
+        a deviation of the upper child (a floor, never a miss)."""
+        if not probe.any():
+            return None, 0, None
+        sub = {name: a[probe] for name, a in g.items()}
+        t = self.geometry.probe_points(sub, _estimate.PROBE_POSITION)
+        if t is None:
+            return None, 0, None
+        kp, d, m = int(probe.sum()), self.domain.dim, self.m or 1
+        nv = 2 ** d
+        t = t.reshape(kp, nv, d)
+        k = len(probe) // 2
+        c = g["centre"]
+        pair = np.nonzero(probe[:k] & probe[k:])[0]                      # parents both of whose children are probed
+        pos = np.cumsum(probe) - 1                                        # row of each probed child in t
+        need = np.ones((kp, nv), dtype=bool)
+        src = dst = np.zeros(0, np.intp)
+        if pair.size:
+            axis = np.argmax(np.abs(c[k + pair] - c[pair]), axis=1)         # the split axis of each pair
+            signs = vertex_signs(d)
+            lo_rows, hi_rows = pos[pair], pos[k + pair]
+            # the upper child's vertices on the shared face (sign -1 on the split axis) and the lower child's same
+            # points (sign +1 there, the other signs equal)
+            vv = np.arange(nv)
+            bit = (1 << (d - 1 - axis))[:, None]                             # (p, 1)
+            face = signs[:, axis].T < 0                                       # (p, nv)
+            hv = np.broadcast_to(vv[None, :], face.shape)[face].reshape(pair.size, -1)          # (p, nv/2)
+            lv = hv & ~bit
+            dst = (np.repeat(hi_rows, hv.shape[1]), hv.ravel())
+            src = (np.repeat(lo_rows, lv.shape[1]), lv.ravel())
+            need[dst] = False
+        pv = np.full((kp, nv, m), np.nan)
+        pv[need] = self._values_at(t[need])
+        shift = np.zeros((kp, nv))
+        if pair.size:
+            pv[dst] = pv[src]
+            h = sub["halfw"][dst[0]]
+            shift[dst] = (np.abs(t[src] - t[dst]) / h).max(axis=1)
+            self.checks["probes_shared"] = int(self.checks.get("probes_shared", 0)) + int(dst[0].size)
+        return pv, int(need.sum()), shift
 
     def _face_points(self, g: dict) -> np.ndarray:
         """Points (k, 2 d, d) just inside the centre of every face of the boxes ``g`` (order ``+e_0, -e_0, +e_1,
@@ -1155,7 +1216,8 @@ class Run:
                 pv = pv[:, :nv]
                 shift = None if shift is None else shift[:, :nv]
             elif only.any():
-                fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only], wild[~only])
+                fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only], wild[~only],
+                                                         None if shift is None else shift[~only])
                 fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only], wild[only],
                                                              None if shift is None else shift[only, :nv])
                 out = (np.empty((len(fp), *fl.shape[1:])), np.empty(len(fp), bool), np.empty((len(fp), nv)),
@@ -1799,16 +1861,15 @@ class Run:
         # children that look resolved although their parent showed a non-smooth signature: probe their vertices
         suspect = self._suspects(parents, q, absq, kids)
         # may raise: nothing changed yet
-        spent = None
+        spent = shift = None
         if "diagonal" in self.rule.extra:
             pv = self._probe_values(kids, suspect, mid=True, faces=False)
         else:
-            pv, spent = self._suspect_probes(kids, suspect, fr)
+            pv, spent, shift = self._suspect_probes(kids, suspect, fr)
         # resolved children a known singularity explains: their vertex probes only (a feature that does not
         # come from the singularity may still cross them, and only a probe sees it)
         light = (self._explained(parents, kids) & self._looks_resolved(q, absq) & ~suspect
                  if "diagonal" not in self.rule.extra else np.zeros(len(q), bool))
-        shift = None
         if light.any():
             pl, spent_light, shift_light = self._explained_probes(kids, light)
             if pl is not None:
@@ -1817,10 +1878,12 @@ class Run:
                 full = np.full((int(both.sum()), pv.shape[1] if pv is not None else 2 * nv + 2 * self.domain.dim,
                                 pl.shape[2]), np.nan)
                 full[light[both], :nv] = pl
+                own = shift
                 shift = np.zeros(full.shape[:2])
                 shift[light[both], :nv] = shift_light
                 if pv is not None:
                     full[suspect[both]] = pv
+                    shift[suspect[both]] = own
                 spent = (spent if spent is not None else 0) + spent_light
                 pv, suspect = full, both
         self.queue.pop(k)
@@ -2200,9 +2263,14 @@ class Run:
             # the largest-error region's split measures its estimate (its children's nodes are the second opinion);
             # its vertices are the value regions' probes' job unless it carries a signature or a watch
             probe &= ~np.tile((idx == top) & ((parents["flags"] & (_NON_SMOOTH | FLAG_WATCH)) == 0), nch)
-        pv = self._probe_values(kids, probe)
+        spent = shift = None
+        if nch == 2 and self.geometry.kind == "box" and "diagonal" not in self.rule.extra:
+            pv, spent, shift = self._sibling_probes(kids, probe)
+        else:
+            pv = self._probe_values(kids, probe)
         w_sample = float(w[idx].sum())
-        _, new_rows, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED, nch)
+        _, new_rows, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, probe, FLAG_AUDITED, nch,
+                                               spent=spent, shift=shift)
         self._keep_corner_floors(np.concatenate([idx, new_rows]))
         self._keep_probe_floors(idx, parents, new_rows, nch)
         if both and self._lattice_miss is not None:
