@@ -642,6 +642,23 @@ def test_jump_beside_a_singular_face_is_seen_by_the_explained_children():
     assert abs(res.value - exact) <= res.error
 
 
+def test_small_jump_near_a_vertex_beside_a_singular_face_is_not_hidden_by_the_audit_axis():
+    """Issue 12 "no silent wrong answer" (regression): x0^(-1/2) (x1 + x2 + x3) + 0.01 (x1 + x2 + x3 > 2.566) on
+    [0, 1]^4 at 1e-6.  The singular face x0 = 0 has every split across x0, and the audit split its one value region,
+    the largest-error one too, along x0 as well: no node line moved along x1..x3, the jump's corner lies beyond the
+    corner nodes (x1 + x2 + x3 = 2.53) of every box, and the run converged after 4,632 evaluations reporting 7.6e-7
+    of the value against a true 4.6e-5.  With a singularity known, the next value region joins the audit, split
+    across another axis: its child's corner nodes read the jump, and the run refines it.  Closed form: 3 (int_0^1
+    x^(-1/2) dx = 2 times int (x1 + x2 + x3) = 3/2, elementary) plus 0.01 times the volume of x1 + x2 + x3 > s in
+    the unit cube, (3 - s)^3 / 6 for 2 <= s <= 3 (Irwin-Hall distribution, common practice)."""
+    s = 2.566
+    exact = 3 + 0.01 * (3 - s) ** 3 / 6
+    res = cubage.integrate(lambda X: X[:, 0] ** -0.5 * X[:, 1:].sum(axis=1) + 0.01 * (X[:, 1:].sum(axis=1) > s),
+                           cubage.Box([0] * 4, [1] * 4), rel_tol=1e-6, budget=300_000, raise_on_failure=False)
+    true = _honest(res, exact, 1e-6)
+    assert true <= res.error
+
+
 def test_explained_children_read_the_vertices_they_share_from_the_one_before():
     """Issue 12 (smooth cost): x0^(-1/2) (x1 + x2 + x3) on [0, 1]^4 at 1e-6.  Each child away from the singular face
     x0 = 0 shares the 8 vertices of its face towards x0 = 1 with the explained child split off before it, whose probes

@@ -1407,6 +1407,10 @@ class Run:
             return ((shi >= lo) & (slo <= hi)).all(axis=2).any(axis=1)
         return np.tile(only & touches(parents), nch) & ~touches(kids)
 
+    def _singular_known(self) -> bool:
+        """Whether a point singularity or a singular face is known (:meth:`_note_singular`)."""
+        return bool(self.checks.get("singular_vertices") or self.checks.get("singular_faces"))
+
     def _steer_axes(self, g: dict, steer: np.ndarray, floor: np.ndarray, raw: np.ndarray) -> None:
         """Bisect along the axis the probes point to where their floor, not the rule, sets the estimate:
         the rule chose its axis from node values that do not see the feature.  Tensor Gauss–Kronrod
@@ -2219,6 +2223,17 @@ class Run:
                 top = -1
         elif st.n == 1:
             top = -1
+        elif k < afford and self._singular_known():
+            # the value sample's region is the largest-error one, split along the rule's axis; beside a known
+            # singular face or point the partition refines across it alone, and a split along that axis moves no
+            # node line along the others: the next value region joins the sample, split across its widest other
+            # axis (x0^(-1/2) (x1 + x2 + x3) + 0.01 (x1 + x2 + x3 > 2.566) on [0, 1]^4 at 1e-6: every split and
+            # the audit's along x0, the jump between the same node lines of every box, converged 15x beyond
+            # its goal)
+            nxt = order[~np.isin(order, idx)][:1]
+            if nxt.size:
+                idx = np.sort(np.append(idx, nxt))
+                k += 1
         if both and AUDIT_LATTICE and k < afford:
             more = self._orphan_leaves()
             more = more[~np.isin(more, idx)][: int(afford) - k]
