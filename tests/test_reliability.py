@@ -845,6 +845,37 @@ def test_narrow_corner_cube_read_as_a_singular_vertex_is_resolved(d, c):
     assert true <= res.error
 
 
+@pytest.mark.parametrize("case, tol", [("slab", 1e-6), ("ridge", 1e-4), ("ridge", 1e-6)])
+def test_feature_along_an_axis_is_checked_in_the_wide_boxes_beside_its_lineage(case, tol):
+    """Issue 12 "no silent wrong answer" (benchmarks/stress.py, seed 31): exp(0.2 sum x) plus a feature along one
+    axis, a slab 0.84987 < x1 < 0.89992 worth 3e-4 of the 4-D integral or a ridge exp(-((x0 - 0.59063)/0.024)^2)
+    worth 3 % of the 3-D one.  The run refined across the feature in some boxes, down to its faces, while wide boxes
+    beside them held it between their node lines along that axis (x1 in [0.5, 1]: lines at 0.84 and 0.92; x0 in
+    [0, 1], an audit child split along x1: lines at 0.5 and 0.68) and converged with half the slab (true 1.5e-4
+    against 9.7e-7 reported at 1e-6) or a quarter of the ridge (7.3e-3 against 2.1e-5 at 1e-4) missing.  The audit
+    now splits such boxes across that axis (Run._straddlers).  Exact: ((e^0.2 - 1)/0.2)^d (elementary
+    antiderivatives, a product of 1-D integrals) plus the slab's h (b - a) (elementary) or the ridge's
+    h w sqrt(pi)/2 (erf((1 - c)/w) + erf(c/w)) (definition of erf, Abramowitz & Stegun 7.1.1)."""
+    base = (math.expm1(0.2) / 0.2) ** (4 if case == "slab" else 3)
+    if case == "slab":
+        d, a, b = 4, 0.84987, 0.89992
+        h = 3e-4 * base / (b - a)
+        f = lambda X: np.exp(0.2 * X.sum(axis=1)) + h * ((X[:, 1] > a) & (X[:, 1] < b))  # noqa: E731
+        exact = base + h * (b - a)
+    else:
+        d, c, w = 3, 0.59063, 0.024
+        unit = w * math.sqrt(math.pi) / 2 * (math.erf((1 - c) / w) + math.erf(c / w))
+        h = 0.03 * base / unit
+        f = lambda X: np.exp(0.2 * X.sum(axis=1)) + h * np.exp(-((X[:, 0] - c) / w) ** 2)  # noqa: E731
+        exact = base + h * unit
+    res = cubage.integrate(f, cubage.Box([0] * d, [1] * d), rel_tol=tol, budget=300_000, raise_on_failure=False)
+    true = abs(res.value - exact)
+    # converged: within its goal (the slab's run reports 0.97 of its true error, 9.2e-7 of the value, goal 1e-6)
+    assert not res.converged or true <= tol * abs(exact), (res.status, true, res.error)
+    if case == "ridge":
+        _honest(res, exact, tol)
+
+
 def test_fibonacci_lattice_of_the_2d_audit_check_has_distinct_lines():
     """The 2-D audit check's lattice (Run._audit_check): a rank-1 lattice with N = 233 points and generator 144
     (Fibonacci numbers; Korobov 1959, Sloan & Joe 1994) has N distinct coordinates on each axis, since the generator

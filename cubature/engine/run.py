@@ -99,6 +99,12 @@ CORNER_DECAY = 4.0
 #: ... and a deviation that shrank less than this many times from the level above under every smooth model is a
 #: jump's when it matters to the goal (a jump at the vertex keeps its size at every level)
 CORNER_STEADY = 2.0
+#: the audit adds the wide neighbours of a feature's lineage (:meth:`Run._straddlers`): boxes at least this many
+#: times wider along an axis than a box of that lineage whose extent there they hold
+STRADDLE_RATIO = 8.0
+#: at most this many such boxes per audit, and read from at most this many boxes of the lineage (largest errors)
+STRADDLE_MAX = 8
+STRADDLE_FEATURES = 64
 #: The 2-D audit first measures each sampled tensor Gauss-Kronrod box's missed error on a Fibonacci lattice of
 #: this many points (a prime Fibonacci number; :meth:`Run._audit_check`); 0: always the full split into four boxes
 AUDIT_LATTICE = 233
@@ -2234,6 +2240,25 @@ class Run:
             if nxt.size:
                 idx = np.sort(np.append(idx, nxt))
                 k += 1
+        straddle = np.full(0, -1, np.intp)
+        if not both and self.geometry.kind == "box" and self.geometry.split_policy == "bisect" and k < afford:
+            more, ax_more = self._straddlers(idx, int(afford) - k)
+            straddle = np.full(k, -1, np.intp)
+            # a value region that straddles such a feature is split across it (not the largest-error region)
+            inx = np.isin(more, idx) & (more != top)
+            where = np.searchsorted(idx, more[inx])
+            straddle[where] = ax_more[inx]
+            more, ax_more = more[~np.isin(more, idx)], ax_more[~np.isin(more, idx)]
+            if more.size or inx.any():
+                idx = np.concatenate([idx, more])
+                o = np.argsort(idx, kind="stable")
+                straddle = np.concatenate([straddle, ax_more])[o]
+                idx = idx[o]
+                k = len(idx)
+                self.checks["audit_straddlers"] = (int(self.checks.get("audit_straddlers", 0)) + int(more.size)
+                                                   + int(inx.sum()))
+            else:
+                straddle = np.full(0, -1, np.intp)
         if both and AUDIT_LATTICE and k < afford:
             more = self._orphan_leaves()
             more = more[~np.isin(more, idx)][: int(afford) - k]
@@ -2262,6 +2287,8 @@ class Run:
                 # (the added largest-error region is split along the rule's own axis, the direction its error
                 # comes from: split along a flat axis its children agree with it whatever its error)
                 parents["axis"] = np.where(idx == top, rule_axis, np.argmax(pref, axis=1)).astype(np.int8)
+                if straddle.size:
+                    parents["axis"] = np.where(straddle >= 0, straddle, parents["axis"]).astype(np.int8)
             kids = self.geometry.split(parents)
         before = self.evaluations
         q, absq, fr = self._evaluate(kids)           # may raise: nothing changed yet
@@ -2310,6 +2337,50 @@ class Run:
         # what the last failed audit extrapolated: part of the error of a run that ends before passing one
         c["audit_hidden"] = [0.0] * self.m if self._audit_ok else [float(v) for v in hidden]
         return None
+
+    def _straddlers(self, sample: np.ndarray, room: int) -> tuple[np.ndarray, np.ndarray]:
+        """Live boxes to add to the audit (rows) and the axis to split each across: boxes with no non-smooth
+        signature that hold, along some axis, the whole extent of a box of a feature's lineage (a non-smooth
+        signature or a wary ancestor) at least :data:`STRADDLE_RATIO` times narrower there, and meet it along the
+        others.  The lineage refined across a feature there (a slab, a ridge, a jump along that axis); the wide
+        neighbour's node lines along that axis may all miss it where it continues into that box
+        (``benchmarks/stress.py``, seed 31: ``0.84987 < x1 < 0.89992`` in 4-D at 1e-6, converged with half of
+        the slab missing in boxes ``[0.25, 0.75] x [0.5, 1] x ...`` between their node lines at 0.84 and 0.92,
+        beside neighbours refined down to its faces).  At most ``room`` and :data:`STRADDLE_MAX`, the largest
+        ``|value|`` first."""
+        st = self.store
+        none = (np.zeros(0, np.intp), np.zeros(0, np.intp))
+        flags = st["flags"]
+        feat = np.nonzero((flags & (_NON_SMOOTH | FLAG_WARY)) != 0)[0]
+        wide = np.nonzero((flags & _NON_SMOOTH) == 0)[0]
+        if feat.size == 0 or wide.size == 0 or room <= 0:
+            return none
+        err = st["error"][feat]
+        err = err[:, 0] if self.m == 1 else (err * self.key_weight).max(axis=1)
+        feat = feat[np.argsort(-err, kind="stable")[:STRADDLE_FEATURES]]
+        c, h = st["centre"], st["halfw"]
+        flo, fhi, fh = (c[feat] - h[feat]), (c[feat] + h[feat]), h[feat]
+        wlo, whi, wh = (c[wide] - h[wide]), (c[wide] + h[wide]), h[wide]
+        tol = 1e-12 * np.maximum(1.0, np.abs(c).max())
+        found = np.full(len(wide), -1, np.intp)
+        for j in range(len(feat)):
+            inside = (wlo <= flo[j] + tol) & (whi >= fhi[j] - tol)                      # (n, d)
+            meet = (wlo <= fhi[j] + tol) & (whi >= flo[j] - tol)                         # (n, d)
+            narrow = wh >= STRADDLE_RATIO * fh[j][None, :]
+            ax = inside & narrow
+            hit = ax.any(axis=1) & meet.all(axis=1) & (found < 0)
+            if hit.any():
+                found[hit] = np.argmax(ax[hit], axis=1)
+        rows = np.nonzero(found >= 0)[0]
+        if rows.size == 0:
+            return none
+        w = np.abs(st["value"][wide[rows]])
+        w = w[:, 0] if self.m == 1 else (w * self.key_weight).max(axis=1)
+        # (the sample's regions among them are split across the feature and cost nothing more)
+        w = np.where(np.isin(wide[rows], sample), np.inf, w)
+        n_in = int(np.isin(wide[rows], sample).sum())
+        pick = rows[np.argsort(-w, kind="stable")[:n_in + min(room, STRADDLE_MAX)]]
+        return wide[pick], found[pick]
 
     def _keep_probe_floors(self, idx: np.ndarray, parents: dict, new: np.ndarray, nch: int) -> None:
         """After the audit's split of the parents ``idx`` (children ``new``, block layout), the children of a parent
