@@ -365,8 +365,10 @@ import numpy as np
 #: error control; 3: an intermediate state; 4: the 2-D lattice shifted off the vertices and its orphaned error
 #: re-checked along its points' axis lines, smooth models held to the corner node, probes shared between explained
 #: children, mid probes per missed vertex, the plain log|f| opinion, the audit's largest-error split only where it
-#: weighs, floors kept by children blind to what their parent saw); 5: no value-trend floor while a run is smooth)
-GENERATION = 5
+#: weighs, floors kept by children blind to what their parent saw); 5: no value-trend floor while a run is smooth;
+#: 6: wild probes clipped only where a power law climbs, sibling probes shared across their face, corner checks
+#: reading the level above, the audit's extra region beside a known singularity and its straddling neighbours)
+GENERATION = 6
 
 #: ratio |q7-q5| / |q5-q3| at or below which the ratio opinion is used
 RATIO_LIMIT = 0.25
