@@ -21,8 +21,8 @@ d])``.  Seeds 1 and 2 calibrated the first estimator, seed 11 is used by
 tests/test_reliability.py; seeds 7, 8 and 9 were used while tuning the
 discrepancy control, the vertex probes, the audit and the steering of splits
 by the probes.  Seeds 2026, 4099, 5227, 6311, 7177, 8329, 5283, 5855, 6022, 4782, 6965, 6340,
-3896 and 5448 recorded or checked earlier versions and have been seen.  The figures
-in the README and in :mod:`cubage.engine.estimate` come from ``--seed 6569`` (the default),
+3896, 5448 and 6569 recorded or checked earlier versions and have been seen.  The figures
+in the README and in :mod:`cubage.engine.estimate` come from ``--seed 2648`` (the default),
 drawn fresh for the last version and never used for tuning: use a new seed
 to check them again.
 
@@ -30,7 +30,7 @@ Usage::
 
     python benchmarks/calibration.py --quick          # a few minutes
     python benchmarks/calibration.py                  # the full study (long)
-    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 6569)
+    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 2648)
 
 ``--json`` writes every run (for comparing two versions run for run).
 """
@@ -222,7 +222,7 @@ def main(argv=None) -> int:
     p.add_argument("--cases", nargs="*", help="only these published cases (names); none: all")
     p.add_argument("--no-genz", action="store_true")
     p.add_argument("--no-cases", action="store_true")
-    p.add_argument("--seed", type=int, default=6569, help="draw seed (6569: the recorded, never tuned-on seed)")
+    p.add_argument("--seed", type=int, default=2648, help="draw seed (2648: the recorded, never tuned-on seed)")
     p.add_argument("--budget", type=int, help="evaluations per run (default 2e6; --quick 3e5)")
     p.add_argument("--json", help="write every run to this file")
     a = p.parse_args(argv)
