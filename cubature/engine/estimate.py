@@ -319,8 +319,9 @@ peaks, ...), and the probes' smooth models match them; a smooth integrand
 of another shape pays more.  Sign-changing sums of two plane waves
 (``cos(a.x + u) + 0.5 cos(b.x + v)``, seed 515, 5 draws per d, exact by
 the product formula; ``benchmarks/waves.py``) cost at 1e-4, against the
-first release: 3-D 1.49x, 4-D 1.33x, 5-D 1.37x, 6-D 2.4x (9.0x before the
-remainder bound of item 3); at 1e-6 6-D 1.4x.  None was silent.
+first release: 3-D 1.37x, 4-D 1.25x, 5-D 1.32x, 6-D 2.2x (9.0x before the
+remainder bound of item 3); at 1e-6 3-D..5-D 1.06-1.10x, 6-D 1.42x.  None
+was silent.
 
 Integrals with published values (seed-independent; budget 2e6; before -> after
 as status, true / reported error):
