@@ -433,6 +433,35 @@ def test_domain_corner_checks_take_no_mid_probe_away_from_the_vertex():
     assert sum(len(x) for x in seen) == res.evaluations
 
 
+def test_domain_corner_checks_read_the_first_regions_vertex_probe(tmp_path):
+    # exp(-|x|^2) on [0, 1]^3, exact (sqrt(pi)/2 erf(1))^3 (Abramowitz & Stegun 7.1.1).  The first region is the
+    # whole cube and is probed, so the domain-corner check starts at the box of half its size at the best-ranked
+    # vertex; its probe at that vertex lies 2^-20 of its half-width from the first region's (2^-20 of the cube's
+    # half-width inside the vertex), within SHIFT_MAX: the check reads that value instead of evaluating it again.
+    # Evaluations: Genz-Malik's 2^d + 2 d^2 + 2 d + 1 = 33 nodes and 2^d = 8 vertex probes of the first region,
+    # the corner check's first level 7 diagonal points less the mid probe away from the vertex less the vertex
+    # probe read = 5 (6 before), its second level 4 (the level above's vertex probe and centre read), the audit's
+    # split into two boxes 2 x 33: 116 (117 before)
+    d = 3
+    exact = (math.sqrt(math.pi) / 2 * math.erf(1.0)) ** d
+    f = lambda X: np.exp(-(X * X).sum(axis=1))
+    box = Box([0.0] * d, [1.0] * d)
+    run = cubage.Run(f, box, rel_tol=1e-4)
+    res = run.run()
+    assert res.status == "converged"
+    assert abs(res.value - exact) <= res.error <= 1e-4 * exact
+    nodes = 2 ** d + 2 * d * d + 2 * d + 1
+    assert res.evaluations == nodes + 2 ** d + (7 - 1 - 1) + 4 + 2 * nodes
+    assert run.checks.get("corner_first_reused", 0) == 1 and run.checks.get("corner_deviated", 0) == 0
+    # resumed after the first region: the first region's probes are part of the checkpoint
+    part = cubage.Run(f, box, rel_tol=1e-4)
+    part.step()
+    assert not part.done
+    part.save_checkpoint(tmp_path / "cp.npz")
+    again = cubage.Run.from_checkpoint(tmp_path / "cp.npz", f, box).run()
+    assert (again.value, again.error, again.evaluations) == (res.value, res.error, res.evaluations)
+
+
 def test_resume_keeps_the_domain_corner_node_values(tmp_path):
     # a run checkpointed mid-way and resumed takes the same path as one never stopped: the node values the
     # domain-corner checks read are part of the checkpoint (closed form as above)

@@ -105,6 +105,8 @@ def save_run(run, path) -> None:
         arrays["corner_rows"], arrays["corner_values"], arrays["corner_boxes"] = run._corner_cache
     if run._vertex_memo is not None:                      # explained children's probes (Run._explained_probes)
         arrays["memo_vertices"], arrays["memo_points"], arrays["memo_values"] = run._vertex_memo
+    if run._first_probes is not None:                     # the first region's vertex probes (Run._domain_corners)
+        arrays["first_points"], arrays["first_values"] = run._first_probes
     meta = {
         "format": FORMAT, "version": VERSION, "estimator": GENERATION, "fingerprint": run.fingerprint(),
         "domain": run.domain.to_json(), "integrand": run.integrand_id,
@@ -231,6 +233,8 @@ def load_run(cls, path, f, domain, *, evaluator, fingerprint, snapshot_interval,
                              arrays["corner_boxes"].astype(np.float64))
     if all(k in arrays for k in ("memo_vertices", "memo_points", "memo_values")):
         run._vertex_memo = tuple(arrays[k].astype(np.float64) for k in ("memo_vertices", "memo_points", "memo_values"))
+    if all(k in arrays for k in ("first_points", "first_values")):
+        run._first_probes = (arrays["first_points"].astype(np.float64), arrays["first_values"].astype(np.float64))
     run.step_count = int(meta["step"])
     run.evaluations = int(meta["evaluations"])
     run.elapsed_before = float(meta["elapsed"])

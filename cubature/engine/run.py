@@ -668,6 +668,10 @@ class Run:
         # the vertex probes of the last explained children (vertices (n, d), probe points (n, d), values (n, m)),
         # read again for their neighbours' shared vertices (:meth:`_explained_probes`); part of a checkpoint
         self._vertex_memo: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+        # the first region's vertex probes when it is the whole domain (points (2^d, d), values (2^d, m)), read
+        # again as the first-level domain-corner checks' probes at the domain's vertices (:meth:`_domain_corners`);
+        # part of a checkpoint
+        self._first_probes: tuple[np.ndarray, np.ndarray] | None = None
         self._domain_box: tuple[np.ndarray, np.ndarray] | None = None
 
     # -- fingerprint ---------------------------------------------------------
@@ -1645,7 +1649,7 @@ class Run:
         pv = self._probe_values(g, probe, mid=carried is not None)
         raw = self._rule_errors(g, q, absq, fr)
         floor, deviates, steer, watched = self._probe_floor(g, fr, pv, probe)
-        self._rank_corners(fr, pv, probe)
+        self._rank_corners(g, fr, pv, probe)
         err = np.maximum(raw, floor)
         val = q[:, 0, :]
         scale = np.maximum(np.abs(val.sum(axis=0)), np.maximum(err.sum(axis=0), 1e-300))
@@ -2762,7 +2766,7 @@ class Run:
                 at[j] = i
         return values, at
 
-    def _rank_corners(self, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray) -> None:
+    def _rank_corners(self, g: dict, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray) -> None:
         """Score the domain's vertices by how far the sharpest smooth model misses the first region's vertex
         probes (:func:`~cubage.engine.estimate.vertex_misses`), when that region is the whole domain (one
         Genz–Malik box, probed): :meth:`_domain_corners` checks a box holding several domain vertices at the
@@ -2772,6 +2776,7 @@ class Run:
             return
         grp = self.rule.extra["groups"]["corner5"]
         nv = grp[1] - grp[0]
+        self._first_probes = (self.geometry.probe_points(g, _estimate.PROBE_POSITION).copy(), pv[0, :nv, :].copy())
         axes, pairs = self._node_lines(fr)
         score = _estimate.vertex_misses(fr[:, 0, :], fr[:, grp[0]:grp[1], :], pv[:, :nv, :],
                                         float(np.abs(self.rule.nodes[grp[0]]).max()),
@@ -2794,10 +2799,12 @@ class Run:
         diagonal (:func:`~cubage.engine.estimate.probe_errors`), 7 evaluations (5 from the second level on: the
         vertex probe and the centre of the level above are read as this box's vertex probe and opposite probe, at
         their own positions on its diagonal, 2^-20 of its half-width beside its own probes, ``checks["corner_reused"]``;
-        the vertex probe is evaluated again once it lies :data:`SHIFT_MAX` away), one fewer at every level: no mid
-        probe towards the opposite vertex (``checks["corner_mid_spared"]``; the check is of the domain's vertex, and
-        the direction away from it keeps its long check; smooth Genz families 4-6-D at 1e-4, tuning seeds 7, 8, 9, 10
-        draws: corner evaluations 20,493 -> 16,065).  A check that agreed bounds a jump
+        the vertex probe is evaluated again once it lies :data:`SHIFT_MAX` away; at the first level the first
+        region's vertex probe is read likewise where it lies within :data:`SHIFT_MAX` of the box's own, up to about
+        three bisections per axis, ``_first_probes``, ``checks["corner_first_reused"]``), one fewer at every level:
+        no mid probe towards the opposite vertex (``checks["corner_mid_spared"]``; the check is of the domain's
+        vertex, and the direction away from it keeps its long check; smooth Genz families 4-6-D at 1e-4, tuning
+        seeds 7, 8, 9, 10 draws: corner evaluations 20,493 -> 16,065).  A check that agreed bounds a jump
         at the vertex only by its allowance there (the cubic's own terms, which shrink with the square of the
         box's size): where that allowance times the box's volume beyond its corner node exceeds the vertex's share
         of :data:`AUDIT_SMALL` times the goal, the box of half the size holding the vertex is checked in turn, up to
@@ -2889,7 +2896,13 @@ class Run:
         # for three levels) and its centre (this box's opposite vertex, 2^-20 of its half-width beside its
         # opposite probe): the checks read them at their own positions on the diagonal
         above = np.full((k, 2, self.m), np.nan)                 # the level above's vertex probe and centre
-        t_level = 0                                             # the level whose vertex probe `above` holds
+        # per box and axis: how far the probe value read for the domain's vertex lies from it, in units of its own
+        # probe's distance ((1 - T) of the half-width): 1 for its own probe, 2^n for the probe n levels above, the
+        # first region's ratio of half-widths for the first region's probe (first level)
+        rr = np.ones((k, d))
+        first = self._first_probes
+        if first is not None and (first[0].shape != (nv, d) or first[1].shape[1] != self.m):
+            first = None
         for level in range(CORNER_LEVELS):
             if todo.size == 0:
                 break
@@ -2908,29 +2921,46 @@ class Run:
                 fv[known, 0] = fk[:, 0]
                 fv[known, 1] = fk[r_, grp[0] + vk]
                 fv[known, 2] = fk[r_, grp[0] + nv - 1 - vk]
-                fv[known, 3:6] = self._values_at(t[known, 3:6].reshape(-1, d)).reshape(int(known.sum()), 3, -1)
-            # positions on the diagonal of the values read for the vertex probe and the opposite one
-            t_pos, o_pos = T, -T
-            shift = None
+            # positions on the diagonal of the values read for the vertex probe (per box) and the opposite one
+            o_pos = -T
             if level == 0:
-                if (~known).any():
-                    fv[~known, :6] = self._values_at(t[~known, :6].reshape(-1, d)).reshape(int((~known).sum()), 6, -1)
-                spent = fv.shape[0] * 6 - 3 * int(known.sum())
+                # the first region's probe at the domain's vertex, where it lies within SHIFT_MAX of the box's own
+                reuse = np.zeros(todo.size, dtype=bool)
+                if first is not None:
+                    vert = cc + hh * ss
+                    near = np.abs(first[0][None, :, :] - vert[:, None, :]).max(axis=2).argmin(axis=1)
+                    with np.errstate(divide="ignore", invalid="ignore"):
+                        r0 = np.abs(vert - first[0][near]) / ((1.0 - T) * hh)
+                    reuse = ((np.abs(r0 - 1.0).max(axis=1) * (1.0 - T) <= SHIFT_MAX)
+                             & np.isfinite(first[1][near]).all(axis=1))
+                    rr[todo[reuse]] = r0[reuse]
+                    fv[reuse, 3] = first[1][near[reuse]]
+                for sel, cols in ((known & ~reuse, [3, 4, 5]), (known & reuse, [4, 5]),
+                                  (~known & ~reuse, [0, 1, 2, 3, 4, 5]), (~known & reuse, [0, 1, 2, 4, 5])):
+                    if sel.any():
+                        fv[np.ix_(sel, cols)] = self._values_at(t[np.ix_(sel, cols)].reshape(-1, d)).reshape(
+                            int(sel.sum()), len(cols), -1)
+                spent = fv.shape[0] * 6 - 3 * int(known.sum()) - int(reuse.sum())
+                self.checks["corner_first_reused"] = (int(self.checks.get("corner_first_reused", 0))
+                                                      + int(reuse.sum()))
             else:
-                reuse = (2.0 ** (level - t_level) - 1.0) * (1.0 - T) <= SHIFT_MAX
-                cols = [0, 1, 2, 5] if reuse else [0, 1, 2, 3, 5]
-                fv[:, cols] = self._values_at(t[:, cols].reshape(-1, d)).reshape(todo.size, len(cols), -1)
+                rr[todo] *= 2.0
+                reuse = (rr[todo].max(axis=1) - 1.0) * (1.0 - T) <= SHIFT_MAX
+                fv[:, [0, 1, 2, 5]] = self._values_at(t[:, [0, 1, 2, 5]].reshape(-1, d)).reshape(todo.size, 4, -1)
+                if (~reuse).any():
+                    fv[~reuse, 3] = self._values_at(t[~reuse, 3])
                 fv[:, 4] = above[todo, 1]
                 o_pos = -1.0
-                if reuse:
-                    fv[:, 3] = above[todo, 0]
-                    t_pos = 1.0 - (1.0 - T) * 2.0 ** (level - t_level)
-                else:
-                    t_level = level
-                shift = np.tile([[(T - t_pos), (1.0 - T)]], (todo.size, 1))
-                spent = todo.size * len(cols)
+                fv[reuse, 3] = above[todo[reuse], 0]
+                rr[todo[~reuse]] = 1.0
+                spent = todo.size * 4 + int((~reuse).sum())
                 self.checks["corner_reused"] = (int(self.checks.get("corner_reused", 0))
-                                                + todo.size * (2 if reuse else 1))
+                                                + todo.size + int(reuse.sum()))
+            # the vertex probe's position on the diagonal (the mean of its axes' where it lies off the diagonal)
+            # and the largest distance between it and the box's own along any axis, in half-widths
+            t_pos = np.where(reuse, 1.0 - (1.0 - T) * rr[todo].mean(axis=1), T)
+            shift = np.stack([np.where(reuse, (1.0 - T) * np.abs(rr[todo] - 1.0).max(axis=1), 0.0),
+                              np.full(todo.size, 0.0 if level == 0 else 1.0 - T)], axis=1)
             above[todo, 0], above[todo, 1] = fv[:, 3], fv[:, 0]
             self.checks["corner_mid_spared"] = int(self.checks.get("corner_mid_spared", 0)) + int(todo.size)
             self.evaluations += spent
@@ -2961,17 +2991,16 @@ class Run:
             # the largest jump the check at the domain's vertex lets pass (the cubic's allowance there) times the
             # volume beyond the corner node: where it exceeds the vertex's share of the goal, look again at the
             # box of half the size holding the vertex (its allowance shrinks with the square of its size)
-            if o_pos == -T:
-                coef_l, wcub_l = coef, wcub
-            else:
-                xs = np.array([o_pos, -a, 0.0, a])
-                coef_l = np.linalg.inv(np.vander(xs, 4, increasing=True))
-                wcub_l = _estimate._lagrange_weights(xs, t_pos)
+            xs = np.array([o_pos, -a, 0.0, a])
+            coef_l = coef if o_pos == -T else np.linalg.inv(np.vander(xs, 4, increasing=True))
+            wcub_l = np.stack([wcub if tp == T and o_pos == -T else _estimate._lagrange_weights(xs, tp)
+                               for tp in t_pos]) if todo.size else np.zeros((0, 4))
+            tp_ = t_pos[:, None]
             with np.errstate(invalid="ignore"):
                 cf = np.einsum("ij,jkm->ikm", coef_l, np.stack([pr[:, 1, :], node[:, 2, :], node[:, 0, :],
                                                                   node[:, 1, :]]))
                 allow = _estimate.PROBE_CURVATURE * np.abs(cf[2]) * T * T + np.abs(cf[3]) * T ** 3
-                sdev = pr[:, 0, :] - (cf[0] + cf[1] * t_pos + cf[2] * t_pos ** 2 + cf[3] * t_pos ** 3)
+                sdev = pr[:, 0, :] - (cf[0] + cf[1] * tp_ + cf[2] * tp_ ** 2 + cf[3] * tp_ ** 3)
                 dev = np.abs(sdev)
                 # read with the level above: the probe at the vertex is the same point at every level (within
                 # 2^-20 of the box), so a jump there adds the same J to both levels' signed deviations e from a
@@ -2989,7 +3018,7 @@ class Run:
                 for lam in lams:
                     fwd, back = _estimate._power_transform(lam, sg)
                     with np.errstate(all="ignore"):
-                        pred = back(np.einsum("j,jkm->km", wcub_l, fwd(line)))
+                        pred = back(np.einsum("kj,jkm->km", wcub_l, fwd(line)))
                     esg.append(np.where(one, pr[:, 0, :] - pred, np.nan))
                 esg = np.stack(esg)
                 if CORNER_DECAY > 1.0:
