@@ -825,6 +825,27 @@ def test_slab_a_parent_saw_between_its_childrens_node_lines(d, k, a, b, tol):
     assert run.checks.get("blind_splits", 0) >= 1
 
 
+@pytest.mark.parametrize("share, tol", [(3e-4, 1e-4), (3e-3, 1e-6)])
+def test_slab_on_a_first_box_node_line_outlives_three_bisections(share, tol):
+    """Issue 12 "no silent wrong answer": a slab 0.39596 < x0 < 0.39626 on the unit square holds the first box's
+    K15 node line x0 = 0.5 - 0.5 * 0.207784955 = 0.396108 (Kronrod 1965; QUADPACK, Piessens et al. 1983), which saw
+    it; the children carried the discrepancy through three bisections across x0 ([0, 0.5], [0.25, 0.5],
+    [0.375, 0.5]), whose node lines all straddle the slab, and dropped it: converged after 7,332 evaluations with
+    the whole slab missing (3x the goal at share 3e-4 and 1e-4, 2,991x at share 3e-3 and 1e-6) and an estimate of
+    1e-10 of the goal.  The floor now stays in the boxes holding one of the measuring box's node lines until a
+    split sees the slab (Run._blind_floors).
+    exp(0.2 (x0 + x1)) + h [a < x0 < b]: ((e^0.2 - 1)/0.2)^2 (elementary antiderivatives, a product of 1-D
+    integrals) plus h (b - a) (elementary)."""
+    a, b = 0.39596, 0.39626
+    base = (math.expm1(0.2) / 0.2) ** 2
+    h = share * base / (b - a)
+    f = lambda X: np.exp(0.2 * X.sum(axis=1)) + h * ((X[:, 0] > a) & (X[:, 0] < b))  # noqa: E731
+    run = cubage.Run(f, cubage.Box([0, 0], [1, 1]), rel_tol=tol, budget=300_000)
+    res = run.run()
+    _honest(res, base + h * (b - a), tol)
+    assert run.checks.get("blind_splits", 0) >= 1
+
+
 @pytest.mark.parametrize("d, c", [(4, 0.999), (5, 0.998)])
 def test_narrow_corner_cube_read_as_a_singular_vertex_is_resolved(d, c):
     """Issue 12 "no silent wrong answer" (benchmarks/stress.py, seed 31, corner cubes in 5-D and 6-D):
