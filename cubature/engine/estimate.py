@@ -371,8 +371,10 @@ import numpy as np
 #: children, mid probes per missed vertex, the plain log|f| opinion, the audit's largest-error split only where it
 #: weighs, floors kept by children blind to what their parent saw); 5: no value-trend floor while a run is smooth;
 #: 6: wild probes clipped only where a power law climbs, sibling probes shared across their face, corner checks
-#: reading the level above, the audit's extra region beside a known singularity and its straddling neighbours)
-GENERATION = 6
+#: reading the level above, the audit's extra region beside a known singularity and its straddling neighbours;
+#: 7: corner checks reading the first region's probes, blind floors kept by the children holding the measuring
+#: box's node lines, new region columns blind_c and blind_h)
+GENERATION = 7
 
 #: ratio |q7-q5| / |q5-q3| at or below which the ratio opinion is used
 RATIO_LIMIT = 0.25
