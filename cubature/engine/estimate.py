@@ -257,27 +257,27 @@ oscillatory                  1e-08    50  100 % -> 100 %          0 -> 0        
 product-peak                 1e-04    50  100 % -> 100 %          0 -> 0          100 %          1.08
 product-peak                 1e-06    50  100 % -> 100 %          0 -> 0          100 %          1.09
 product-peak                 1e-08    50  100 % -> 100 %          0 -> 0           84 %          1.04
-corner-peak                  1e-04    50  100 % -> 100 %          0 -> 0          100 %          1.17
+corner-peak                  1e-04    50  100 % -> 100 %          0 -> 0          100 %          1.16
 corner-peak                  1e-06    50  100 % -> 100 %          0 -> 0          100 %          1.04
 corner-peak                  1e-08    50  100 % -> 100 %          0 -> 0           84 %          1.01
-gaussian                     1e-04    50  100 % -> 100 %          0 -> 0          100 %          1.16
+gaussian                     1e-04    50  100 % -> 100 %          0 -> 0          100 %          1.15
 gaussian                     1e-06    50  100 % -> 100 %          0 -> 0          100 %          1.13
 gaussian                     1e-08    50  100 % -> 100 %          0 -> 0           90 %          1.03
 c0                           1e-04    50   74 % -> 100 %          8 -> 0           60 %          1.16
 c0                           1e-06    50   72 % -> 100 %          7 -> 0           34 %          1.22
-c0                           1e-08    50   66 % -> 100 %          6 -> 0           28 %          1.17
-discontinuous                1e-04    50   68 % -> 100 %         14 -> 0           74 %         33.28
-discontinuous                1e-06    50   60 % -> 100 %         19 -> 0           66 %         22.36
-discontinuous                1e-08    50   42 % -> 100 %         26 -> 0           48 %         12.26
+c0                           1e-08    50   66 % -> 100 %          6 -> 0           28 %          1.16
+discontinuous                1e-04    50   68 % -> 100 %         14 -> 0           74 %         33.74
+discontinuous                1e-06    50   60 % -> 100 %         19 -> 0           64 %         22.32
+discontinuous                1e-08    50   42 % -> 100 %         26 -> 0           46 %         12.41
 
 No silent wrong answer in the 900 runs (before: 80, all C0 or
 discontinuous).  Smooth: 129.9 M evaluations against 126.6 M before (1.03x
 in total; median run 1.09x; per family over the three tolerances 1.01x to
-1.04x; the runs at 1e-4 cost 1.086x, those at 1e-6 1.055x and those at 1e-8
+1.04x; the runs at 1e-4 cost 1.087x, those at 1e-6 1.055x and those at 1e-8
 1.022x of what they cost before: small runs pay most for the probes, the
 audit and the domain-corner checks; at 1e-4 oscillatory 1.06x, product
-peaks 1.08x, corner peaks 1.17x, Gaussians 1.16x, 2-D runs 1.59x, 3-D
-1.21x, 4-D 1.18x, 5-D 1.12x, 6-D 1.06x; the same share converged, 94.2 %).
+peaks 1.08x, corner peaks 1.163x, Gaussians 1.154x, 2-D runs 1.59x, 3-D
+1.20x, 4-D 1.17x, 5-D 1.12x, 6-D 1.06x; the same share converged, 94.2 %).
 C0 and discontinuous together: true error within the reported one on all
 300 runs (before 64 %).  Published cases: no silent answer in 26 (before
 1), every reported error holds (before 17 of 26).
