@@ -675,6 +675,7 @@ class Run:
         # part of a checkpoint
         self._first_probes: tuple[np.ndarray, np.ndarray] | None = None
         self._domain_box: tuple[np.ndarray, np.ndarray] | None = None
+        self._axis_node_cache: np.ndarray | None = None
 
     # -- fingerprint ---------------------------------------------------------
     def fingerprint(self) -> str:
@@ -921,13 +922,11 @@ class Run:
         a deviation of the upper child (a floor, never a miss)."""
         if not probe.any():
             return None, 0, None
-        sub = {name: a[probe] for name, a in g.items()}
-        t = self.geometry.probe_points(sub, _estimate.PROBE_POSITION)
+        sub, t = self._vertex_probe_points(g, probe)
         if t is None:
             return None, 0, None
-        kp, d, m = int(probe.sum()), self.domain.dim, self.m or 1
-        nv = 2 ** d
-        t = t.reshape(kp, nv, d)
+        kp, nv, d = t.shape
+        m = self.m or 1
         k = len(probe) // 2
         c = g["centre"]
         pair = np.nonzero(probe[:k] & probe[k:])[0]                      # parents both of whose children are probed
@@ -958,6 +957,16 @@ class Run:
             self.checks["probes_shared"] = int(self.checks.get("probes_shared", 0)) + int(dst[0].size)
         return pv, int(need.sum()), shift
 
+    def _vertex_probe_points(self, g: dict, sel: np.ndarray) -> tuple[dict, np.ndarray | None]:
+        """The boxes ``sel`` (a boolean mask) of ``g`` and their vertex probe points (ks, 2^d, d), in
+        :func:`~cubage.engine.geometry.vertex_signs` order; None when the geometry takes no probes."""
+        sub = {name: a[sel] for name, a in g.items()}
+        t = self.geometry.probe_points(sub, _estimate.PROBE_POSITION)
+        if t is None:
+            return sub, None
+        d = self.domain.dim
+        return sub, t.reshape(int(sel.sum()), 2 ** d, d)
+
     def _face_points(self, g: dict) -> np.ndarray:
         """Points (k, 2 d, d) just inside the centre of every face of the boxes ``g`` (order ``+e_0, -e_0, +e_1,
         ...``): the axis lines through the centre carry five nodes each, so a kink parallel to a face in its last
@@ -986,13 +995,11 @@ class Run:
         of its half-width across the face they share.  The check allows for the shift
         (:func:`~cubage.engine.estimate.probe_errors` ``shift``); a jump exactly on that face reads as a
         deviation (a floor, never a miss)."""
-        sub = {name: a[light] for name, a in g.items()}
-        t = self.geometry.probe_points(sub, _estimate.PROBE_POSITION)
+        sub, t = self._vertex_probe_points(g, light)
         if t is None:
             return None, 0, None
-        kl, d, m = int(light.sum()), self.domain.dim, self.m or 1
-        nv = 2 ** d
-        t = t.reshape(kl, nv, d)
+        kl, nv, d = t.shape
+        m = self.m or 1
         h = sub["halfw"][:, None, :]
         v = sub["centre"][:, None, :] + h * vertex_signs(d)[None]
         pv = np.full((kl, nv, m), np.nan)
@@ -2092,8 +2099,11 @@ class Run:
         return np.maximum(err, blind), cols
 
     def _axis_nodes(self) -> np.ndarray:
-        """The rule's node coordinates along one axis on [-1, 1] (the box rules are symmetric in the axes)."""
-        return np.unique(np.round(self.rule.nodes[:, 0], 15))
+        """The rule's node coordinates along one axis on [-1, 1] (the box rules are symmetric in the axes);
+        computed once per run (the blind floors read them at every split that carries one)."""
+        if self._axis_node_cache is None:
+            self._axis_node_cache = np.unique(np.round(self.rule.nodes[:, 0], 15))
+        return self._axis_node_cache
 
     def _lineage_tails(self, parents: dict, child_sum: np.ndarray, raw: np.ndarray, err: np.ndarray,
                        wary: np.ndarray, noise: np.ndarray,
