@@ -21,16 +21,16 @@ d])``.  Seeds 1 and 2 calibrated the first estimator, seed 11 is used by
 tests/test_reliability.py; seeds 7, 8 and 9 were used while tuning the
 discrepancy control, the vertex probes, the audit and the steering of splits
 by the probes.  Seeds 2026, 4099, 5227, 6311, 7177, 8329, 5283, 5855, 6022, 4782, 6965, 6340,
-3896, 5448 and 6569 recorded or checked earlier versions and have been seen.  The figures
-in the README and in :mod:`cubage.engine.estimate` come from ``--seed 2648`` (the default),
-drawn fresh for the last version and never used for tuning: use a new seed
+3896, 5448, 6569 and 2648 recorded or checked earlier versions and have been seen.  The figures
+in the README and in :mod:`cubage.engine.estimate` come from ``--seed 7858 --draws 20`` (the
+default seed), drawn fresh for the last version and never used for tuning: use a new seed
 to check them again.
 
 Usage::
 
     python benchmarks/calibration.py --quick          # a few minutes
-    python benchmarks/calibration.py                  # the full study (long)
-    python benchmarks/calibration.py --draws 10 --json out.json     # the recorded study (seed 2648)
+    python benchmarks/calibration.py                  # the recorded study: seed 7858, 20 draws (~8 min)
+    python benchmarks/calibration.py --json out.json  # the same, writing every run
 
 ``--json`` writes every run (for comparing two versions run for run).
 """
@@ -222,7 +222,7 @@ def main(argv=None) -> int:
     p.add_argument("--cases", nargs="*", help="only these published cases (names); none: all")
     p.add_argument("--no-genz", action="store_true")
     p.add_argument("--no-cases", action="store_true")
-    p.add_argument("--seed", type=int, default=2648, help="draw seed (2648: the recorded, never tuned-on seed)")
+    p.add_argument("--seed", type=int, default=7858, help="draw seed (7858: the recorded, never tuned-on seed)")
     p.add_argument("--budget", type=int, help="evaluations per run (default 2e6; --quick 3e5)")
     p.add_argument("--json", help="write every run to this file")
     a = p.parse_args(argv)
