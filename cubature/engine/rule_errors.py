@@ -17,7 +17,7 @@ class RuleErrors:
 
     Reads ``rule``, ``geometry``, ``settings``, ``key_weight``, ``_w`` and the wary counters in ``checks``
     (``wary_splits``, ``wary_measured``, ``wary_estimated``); writes counters in ``checks``.  Calls
-    :meth:`_singular_factors` (:mod:`cubage.engine.run`).
+    :meth:`_singular_factors` (:mod:`cubage.engine.singular`).
     """
 
     def _errors(self, q: np.ndarray, absq: np.ndarray) -> np.ndarray:
