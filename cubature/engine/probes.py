@@ -29,7 +29,7 @@ class Probes:
     probes, part of a checkpoint) and counters in ``checks`` (``probes_shared``, ``second_probes_skipped``,
     ``mid_probes_spared``, ...).  Calls
     :meth:`_values_at` and :meth:`goal` (:mod:`cubage.engine.run`), :meth:`_domain_bounds`
-    (:mod:`cubage.engine.run`), :meth:`_looks_resolved` (:mod:`cubage.engine.rule_errors`) and
+    (:mod:`cubage.engine.corners`), :meth:`_looks_resolved` (:mod:`cubage.engine.rule_errors`) and
     :meth:`_note_singular`, :meth:`_singular_factors`, :meth:`_unexplained_wild`, :meth:`_explained`
     (:mod:`cubage.engine.singular`).
     """
