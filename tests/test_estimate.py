@@ -737,3 +737,31 @@ def test_vertex_misses_bound_a_kink_beyond_the_corner_nodes():
     assert np.all(miss[beyond] > E.PROBE_SKIP * 1e-2 * f0)
     miss, fprobe, _ = misses(lambda X: np.exp(-(X[:, 0] - 0.3) ** 2 - X[:, 1] - 0.5 * X[:, 2]))
     assert np.all(miss <= 1e-12 * np.abs(fprobe).max())
+
+
+def test_cached_lagrange_weights_reproduce_polynomials_and_keep_signed_zeros_apart():
+    """Lagrange's form reproduces every polynomial of degree < n from its n values (Abramowitz & Stegun 25.2.2):
+    the cached weights applied to a cubic's values at four nodes give its value at t, computed here by Horner's
+    rule; the weights are read-only, and a node at -0.0 is not served the weights built for +0.0."""
+    xs = np.array([-0.9, -0.3, 0.0, 0.7])
+    coeffs = [0.5, -1.25, 2.0, 3.0]                                   # 0.5 - 1.25 x + 2 x^2 + 3 x^3
+    for t in (0.999, -0.999, 0.85):
+        w = E._lagrange_weights(xs, t)
+        values = [((3.0 * x + 2.0) * x - 1.25) * x + 0.5 for x in xs]
+        expected = ((coeffs[3] * t + coeffs[2]) * t + coeffs[1]) * t + coeffs[0]
+        assert sum(wi * v for wi, v in zip(w, values)) == pytest.approx(expected, rel=1e-12, abs=1e-12)
+        assert E._lagrange_weights(xs, t) is w and not w.flags.writeable
+    w_pos = E._lagrange_weights(np.array([0.0, 1.0]), 0.0)
+    w_neg = E._lagrange_weights(np.array([0.0, 1.0]), -0.0)
+    assert list(w_pos) == [1.0, 0.0] and list(w_neg) == [1.0, 0.0]                   # (t - 1)/(0 - 1), t/1
+    assert math.copysign(1.0, w_pos[1]) == 1.0 and math.copysign(1.0, w_neg[1]) == -1.0
+
+
+def test_vertex_table_lists_the_vertices_in_product_order():
+    """The 2^d vertex sign vectors with the last axis changing fastest (the order of itertools.product, as
+    counting in binary with +1 for the digit 0), written out by hand for d = 2 and counted for d = 3."""
+    assert E._vertex_table(2, (1.0, -1.0)).tolist() == [[1.0, 1.0], [1.0, -1.0], [-1.0, 1.0], [-1.0, -1.0]]
+    table = E._vertex_table(3, (True, False))
+    for n in range(8):
+        assert table[n].tolist() == [not (n >> 2) & 1, not (n >> 1) & 1, not n & 1]
+    assert not table.flags.writeable

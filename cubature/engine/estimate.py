@@ -800,9 +800,11 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     remainder = None
     if axes is not None and PROBE_REMAINDER > 0 and vertices is None:
         remainder = PROBE_REMAINDER * diagonal_remainder(f0, *axes)
-    excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
     if remainder is not None:
-        loose = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, remainder=remainder)
+        excess, loose = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, remainder=remainder,
+                                      both=True)
+    else:
+        excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
     # a probe that a smooth model of log|f| predicts within f's own allowance is no signature: at coarse scales a
     # positive integrand is often far closer to exp(cubic) than to a cubic along a long diagonal (a Gaussian's
     # logarithm is a quadratic), while a kink or jump of f is one of log|f| too.  Only where the region's values
@@ -813,13 +815,31 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         sign = np.where(pos, np.sign(f0), np.nan)
         d = dim if dim is not None else f_plus.shape[1].bit_length() - 1          # 2^d vertices
         explained = np.zeros_like(pos)
+        # only (region, component) pairs where an explanation can change the result are modelled: one-signed,
+        # not yet explained by an earlier model, and with some excess that is not +0.0 (explaining sets it to
+        # 0.0, which a +0.0 already is); each model's excess is computed per element, so computing it on those
+        # regions' rows alone gives the same values there
+        live = (excess != 0.0) | np.signbit(excess)
+        if remainder is not None:
+            live |= (loose != 0.0) | np.signbit(loose)
+        open_ = pos & live.any(axis=1)
         for lam in probe_powers(d):
             # a model must explain every probe of the region: where it misses one, that is the kink's
-            explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
-                                        power=lam) == 0.0).all(axis=1)
-            if axes is not None:
-                explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
-                                            power=lam, separable=axes, pick=vertices) == 0.0).all(axis=1)
+            for sep in ((None,) if axes is None else (None, axes)):
+                rows = (open_ & ~explained).any(axis=1)
+                if not rows.any():
+                    break
+                if rows.all():
+                    explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
+                                                power=lam, separable=sep,
+                                                pick=None if sep is None else vertices) == 0.0).all(axis=1)
+                    continue
+                part = None if sep is None else (sep[0][rows], sep[1][rows], sep[2], sep[3])
+                pick = None if sep is None or vertices is None else vertices[rows]
+                explained[rows] |= (_probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a,
+                                                  rounding[rows], None if f_mid is None else f_mid[rows],
+                                                  sign=sign[rows], power=lam, separable=part,
+                                                  pick=pick) == 0.0).all(axis=1)
         excess = np.where((pos & explained)[:, None, :], 0.0, excess)
         if remainder is not None:
             loose = np.where((pos & explained)[:, None, :], 0.0, loose)
@@ -829,7 +849,7 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         f_ax2, f_ax3, l2, l3 = axes
         q, w = plane_wave_fit(f0[rows], f_ax2[rows], f_ax3[rows], pairs[0][rows], l2, l3, pairs[1])
         d = dim if dim is not None else f_plus.shape[1].bit_length() - 1
-        signs = np.array(list(itertools.product((1.0, -1.0), repeat=d)))
+        signs = _vertex_table(d, (1.0, -1.0))
         wave = plane_wave_values(f0[rows], q, w, signs, PROBE_POSITION)
         wave_nodes = plane_wave_values(f0[rows], q, w, signs, a)
         if vertices is not None:
@@ -924,25 +944,53 @@ def vertex_misses(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, a: fl
 
     def quad(v0, vp, vm):
         return w[0] * vm + w[1] * v0[:, None, :] + w[2] * vp
+    small = 1e3 * ROUNDING * scale[:, None, :]
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         miss = np.abs(f_probe - quad(f0, f_plus, f_minus))
         pos = _one_sign(f0, f_plus, f_probe, None)
+        # a region whose every miss is already within rounding (not NaN) reports 0 whatever the later models
+        # give (fmin only lowers a miss): the later models are computed on the other regions' rows alone, each
+        # value per element as on all rows
+        d = f_plus.shape[1].bit_length() - 1
+        models = []
         if pos.any():
             sign = np.where(pos, np.sign(f0), np.nan)
-            d = f_plus.shape[1].bit_length() - 1
             for lam in probe_powers(d):
-                fwd, back = _power_transform(lam, sign[:, None, :])
-                pred = back(quad(fwd(f0), fwd(f_plus), fwd(f_minus)))
-                miss = np.fmin(miss, np.abs(f_probe - pred))
+                models.append(("power", lam))
                 if axes is not None:
-                    pred = sign[:, None, :] * np.exp(separable_log_prediction(f0, *axes, t, power=lam))
-                    miss = np.fmin(miss, np.abs(f_probe - pred))
+                    models.append(("separable", lam))
         if axes is not None and pairs is not None:
-            q, wv = plane_wave_fit(f0, axes[0], axes[1], pairs[0], axes[2], axes[3], pairs[1])
-            signs = np.array(list(itertools.product((1.0, -1.0), repeat=f_plus.shape[1].bit_length() - 1)))
-            miss = np.fmin(miss, np.abs(f_probe - plane_wave_values(f0, q, wv, signs, t)))
-    miss = np.where(miss > 1e3 * ROUNDING * scale[:, None, :], miss, 0.0)
+            models.append(("wave", None))
+        for kind, lam in models:
+            rows = ~(miss <= small).all(axis=(1, 2))
+            if not rows.any():
+                break
+            every = bool(rows.all())
+            take = functools.partial(_take_rows, rows=None if every else rows)
+            f0r, fpr = take(f0), take(f_probe)
+            if kind == "power":
+                sr = take(sign)
+                fwd, back = _power_transform(lam, sr[:, None, :])
+                fp = take(f_plus)
+                pred = back(quad(fwd(f0r), fwd(fp), fwd(fp[:, ::-1, :])))
+            elif kind == "separable":
+                pred = take(sign)[:, None, :] * np.exp(separable_log_prediction(f0r, take(axes[0]), take(axes[1]),
+                                                                                 axes[2], axes[3], t, power=lam))
+            else:
+                q, wv = plane_wave_fit(f0r, take(axes[0]), take(axes[1]), take(pairs[0]), axes[2], axes[3],
+                                       pairs[1])
+                pred = plane_wave_values(f0r, q, wv, _vertex_table(d, (1.0, -1.0)), t)
+            if every:
+                miss = np.fmin(miss, np.abs(fpr - pred))
+            else:
+                miss[rows] = np.fmin(miss[rows], np.abs(fpr - pred))
+    miss = np.where(miss > small, miss, 0.0)
     return np.where(np.isfinite(miss), miss, 0.0).max(axis=2)
+
+
+def _take_rows(x: np.ndarray, rows: np.ndarray | None) -> np.ndarray:
+    """``x`` itself (``rows`` None) or its rows ``rows``."""
+    return x if rows is None else x[rows]
 
 
 def _one_sign(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, f_mid: np.ndarray | None) -> np.ndarray:
@@ -970,7 +1018,7 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
                   rounding, f_mid: np.ndarray | None, sign: np.ndarray | None = None,
                   power: float = 0.0, separable: tuple | None = None,
                   model: np.ndarray | None = None, remainder: np.ndarray | None = None,
-                  pick: np.ndarray | None = None) -> np.ndarray:
+                  pick: np.ndarray | None = None, both: bool = False) -> np.ndarray | tuple[np.ndarray, ...]:
     """Excess (k, v, m) of each probe's deviation from the extrapolations over its allowance (see
     :func:`probe_errors`); 0 where a value is not finite.  With ``sign`` (k, m: the common sign of a region's
     values), the predictions are the same extrapolations of ``log|f|`` (``power`` 0; else of ``|f|^power``),
@@ -984,7 +1032,9 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     :func:`plane_wave_fit`), that is the prediction of every check, held to the same allowances.  Either model
     must also predict the corner node ``f_plus`` of each check within the probe's allowance (the node is none of
     the values it was read from).  ``pick`` (k, v): with ``separable``, the index of each probe's
-    vertex among the box's ``2^d`` (a check of some vertices only; by default the probes are all of them)."""
+    vertex among the box's ``2^d`` (a check of some vertices only; by default the probes are all of them).
+    ``remainder`` (k, m) widens the long check's allowance by the fourth-order remainder term; with ``both``
+    (and ``remainder``, no model), the pair ``(excess without it, excess with it)`` from one pass."""
     t = PROBE_POSITION
     coef = diagonal_cubic(a)
     node_dev = None
@@ -997,6 +1047,7 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
                                     + PROBE_SLOPE * np.abs(c[1]) * t)
                  + rounding)
         pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
+        plain_allow = allow
         if remainder is not None:
             allow = allow + remainder[:, None, :] * abs(2 * t * (t + a) * t * (t - a))
         if sign is not None:
@@ -1028,6 +1079,9 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     bad = ~np.isfinite(dev)                 # no finite value there (a vertex singularity): not data, no signature
     # a model's prediction outside its range (a power of a negative number, an overflow) explains nothing
     excess = np.where(bad, np.inf if modelled else 0.0, np.maximum(dev - allow, 0.0))
+    pair = both and remainder is not None and not modelled
+    if pair:
+        plain = np.where(bad, 0.0, np.maximum(dev - plain_allow, 0.0))
     if f_mid is not None:
         xm = np.array([-a, 0.0, a, PROBE_MID])
         w3 = _lagrange_weights(xm, t)
@@ -1047,9 +1101,12 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
             dev2 = np.abs(f_probe - p3)
         ok2 = np.isfinite(dev2) & np.isfinite(allow2)
         # (no mid probe at a vertex, NaN: no short check there)
-        excess = np.maximum(excess, np.where(ok2, np.maximum(dev2 - allow2, 0.0),
-                                             np.where(np.isnan(f_mid), 0.0, np.inf if modelled else 0.0)))
-    return excess
+        short = np.where(ok2, np.maximum(dev2 - allow2, 0.0), np.where(np.isnan(f_mid), 0.0,
+                                                                        np.inf if modelled else 0.0))
+        excess = np.maximum(excess, short)
+        if pair:
+            plain = np.maximum(plain, short)
+    return (plain, excess) if pair else excess
 
 
 def diagonal_remainder(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, l2: float, l3: float) -> np.ndarray:
@@ -1093,7 +1150,7 @@ def separable_log_prediction(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarra
         up = log_of(sum(w * r for w, r in zip(_lagrange_weights(xs5, t), rows))) - l0[:, None, :]
         down = log_of(sum(w * r for w, r in zip(_lagrange_weights(xs5, -t), rows))) - l0[:, None, :]
     d = f_ax2.shape[1] // 2
-    pos = np.array(list(itertools.product((True, False), repeat=d)))       # (v, d): +1 on axis i
+    pos = _vertex_table(d, (True, False))                                  # (v, d): +1 on axis i
     return (l0[:, None, :] + np.where(pos[None, :, :, None], up[:, None], down[:, None]).sum(axis=2))
 
 
@@ -1205,13 +1262,31 @@ def _power_transform(lam: float, sign: np.ndarray):
 
 
 def _lagrange_weights(x: np.ndarray, t: float) -> np.ndarray:
-    """Weights ``w`` with ``sum_j w_j p(x_j) = p(t)`` for every polynomial ``p`` of degree < len(x)."""
+    """Weights ``w`` with ``sum_j w_j p(x_j) = p(t)`` for every polynomial ``p`` of degree < len(x) (read-only;
+    built once per ``x`` and ``t``, keyed by their bits, so that ``-0.0`` and ``0.0`` stay apart)."""
+    x = np.asarray(x, dtype=float)
+    return _lagrange_weights_of(x.tobytes(), float(t).hex())
+
+
+@functools.lru_cache(maxsize=256)
+def _lagrange_weights_of(xb: bytes, th: str) -> np.ndarray:
+    x, t = np.frombuffer(xb, dtype=float), float.fromhex(th)
     w = np.ones(len(x))
     for j in range(len(x)):
         for i in range(len(x)):
             if i != j:
                 w[j] *= (t - x[i]) / (x[j] - x[i])
+    w.setflags(write=False)
     return w
+
+
+@functools.lru_cache(maxsize=16)
+def _vertex_table(d: int, values: tuple) -> np.ndarray:
+    """``np.array(list(itertools.product(values, repeat=d)))``, read-only (built once per ``d``): the vertex
+    sign vectors (``(1.0, -1.0)``) or where they are +1 (``(True, False)``)."""
+    table = np.array(list(itertools.product(values, repeat=d)))
+    table.setflags(write=False)
+    return table
 
 
 def extrapolation_errors(f_diag: np.ndarray, xs: np.ndarray, f_vertex: np.ndarray, volume: np.ndarray,
