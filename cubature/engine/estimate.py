@@ -800,11 +800,13 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
     remainder = None
     if axes is not None and PROBE_REMAINDER > 0 and vertices is None:
         remainder = PROBE_REMAINDER * diagonal_remainder(f0, *axes)
+    # f's own extrapolations, the same for every model below (each on the rows it needs)
+    base = _own_checks(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
     if remainder is not None:
         excess, loose = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, remainder=remainder,
-                                      both=True)
+                                      both=True, base=base)
     else:
-        excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
+        excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, base=base)
     # a probe that a smooth model of log|f| predicts within f's own allowance is no signature: at coarse scales a
     # positive integrand is often far closer to exp(cubic) than to a cubic along a long diagonal (a Gaussian's
     # logarithm is a quadratic), while a kink or jump of f is one of log|f| too.  Only where the region's values
@@ -831,15 +833,15 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                     break
                 if rows.all():
                     explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
-                                                power=lam, separable=sep,
-                                                pick=None if sep is None else vertices) == 0.0).all(axis=1)
+                                                power=lam, separable=sep, pick=None if sep is None else vertices,
+                                                base=base) == 0.0).all(axis=1)
                     continue
                 part = None if sep is None else (sep[0][rows], sep[1][rows], sep[2], sep[3])
                 pick = None if sep is None or vertices is None else vertices[rows]
                 explained[rows] |= (_probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a,
                                                   rounding[rows], None if f_mid is None else f_mid[rows],
-                                                  sign=sign[rows], power=lam, separable=part,
-                                                  pick=pick) == 0.0).all(axis=1)
+                                                  sign=sign[rows], power=lam, separable=part, pick=pick,
+                                                  base=_base_rows(base, rows)) == 0.0).all(axis=1)
         excess = np.where((pos & explained)[:, None, :], 0.0, excess)
         if remainder is not None:
             loose = np.where((pos & explained)[:, None, :], 0.0, loose)
@@ -857,7 +859,7 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
             wave_nodes = np.take_along_axis(wave_nodes, vertices[rows][:, :, None], axis=1)
         fm = f_mid[rows] if f_mid is not None else None
         wexcess = _probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a, rounding[rows], fm,
-                                model=(wave, wave_nodes))
+                                model=(wave, wave_nodes), base=_base_rows(base, rows))
         explained = np.zeros(excess.shape[::2], dtype=bool)
         explained[rows] = (wexcess == 0.0).all(axis=1)
         excess = np.where(explained[:, None, :], 0.0, excess)
@@ -988,6 +990,11 @@ def vertex_misses(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, a: fl
     return np.where(np.isfinite(miss), miss, 0.0).max(axis=2)
 
 
+def _base_rows(base: tuple, rows: np.ndarray) -> tuple:
+    """The rows ``rows`` of :func:`_own_checks`' arrays (None stays None)."""
+    return tuple(None if b is None else b[rows] for b in base)
+
+
 def _take_rows(x: np.ndarray, rows: np.ndarray | None) -> np.ndarray:
     """``x`` itself (``rows`` None) or its rows ``rows``."""
     return x if rows is None else x[rows]
@@ -1018,7 +1025,8 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
                   rounding, f_mid: np.ndarray | None, sign: np.ndarray | None = None,
                   power: float = 0.0, separable: tuple | None = None,
                   model: np.ndarray | None = None, remainder: np.ndarray | None = None,
-                  pick: np.ndarray | None = None, both: bool = False) -> np.ndarray | tuple[np.ndarray, ...]:
+                  pick: np.ndarray | None = None, both: bool = False,
+                  base: tuple | None = None) -> np.ndarray | tuple[np.ndarray, ...]:
     """Excess (k, v, m) of each probe's deviation from the extrapolations over its allowance (see
     :func:`probe_errors`); 0 where a value is not finite.  With ``sign`` (k, m: the common sign of a region's
     values), the predictions are the same extrapolations of ``log|f|`` (``power`` 0; else of ``|f|^power``),
@@ -1034,31 +1042,24 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     the values it was read from).  ``pick`` (k, v): with ``separable``, the index of each probe's
     vertex among the box's ``2^d`` (a check of some vertices only; by default the probes are all of them).
     ``remainder`` (k, m) widens the long check's allowance by the fourth-order remainder term; with ``both``
-    (and ``remainder``, no model), the pair ``(excess without it, excess with it)`` from one pass."""
+    (and ``remainder``, no model), the pair ``(excess without it, excess with it)`` from one pass.  ``base``:
+    :func:`_own_checks` of the same values (f's own extrapolations, the same for every model), if already
+    computed."""
+    if base is None:
+        base = _own_checks(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
+    allow, pred, p3, allow2 = base
     t = PROBE_POSITION
-    coef = diagonal_cubic(a)
     node_dev = None
-
-    def diagonal(v0, vp, vm, vpr):
-        return np.stack([vpr[:, ::-1, :], vm, np.broadcast_to(v0[:, None, :], vp.shape), vp])
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        c = np.einsum("ij,j...->i...", coef, diagonal(f0, f_plus, f_minus, f_probe))       # (4, k, v, m)
-        allow = (PROBE_TOLERANCE * (PROBE_CURVATURE * np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3
-                                    + PROBE_SLOPE * np.abs(c[1]) * t)
-                 + rounding)
-        pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
         plain_allow = allow
         if remainder is not None:
             allow = allow + remainder[:, None, :] * abs(2 * t * (t + a) * t * (t - a))
         if sign is not None:
             fwd, back = _power_transform(power, sign[:, None, :])
-            logs = [None if x is None else fwd(x) for x in (f0, f_plus, f_minus, f_probe, f_mid)]
-            cl = np.einsum("ij,j...->i...", coef, diagonal(*logs[:4]))
             # and the model must be far closer than f's: near a zero of f (a kink |s - c| e^s) log|f|'s
             # extrapolation plunges and can land within f's allowance by chance (exp of a polynomial of degree
             # <= 3, as a Gaussian, is predicted to rounding)
             allow = np.minimum(allow, LOG_CLOSER * np.abs(f_probe - pred) + rounding)
-            pred = back(cl[0] + cl[1] * t + cl[2] * t * t + cl[3] * t ** 3)
             if separable is not None:
                 sep = separable_log_prediction(f0, *separable, t, power=power)
                 at_node = separable_log_prediction(f0, *separable, a, power=power)
@@ -1067,6 +1068,10 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
                     at_node = np.take_along_axis(at_node, pick[:, :, None], axis=1)
                 pred = sign[:, None, :] * np.exp(sep)
                 node_dev = np.abs(f_plus - sign[:, None, :] * np.exp(at_node))
+            else:
+                logs = [None if x is None else fwd(x) for x in (f0, f_plus, f_minus, f_probe, f_mid)]
+                cl = np.einsum("ij,j...->i...", diagonal_cubic(a), _diagonal(*logs[:4]))
+                pred = back(cl[0] + cl[1] * t + cl[2] * t * t + cl[3] * t ** 3)
         elif model is not None:
             allow = np.minimum(allow, LOG_CLOSER * np.abs(f_probe - pred) + rounding)
             pred, node_model = model
@@ -1083,18 +1088,15 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     if pair:
         plain = np.where(bad, 0.0, np.maximum(dev - plain_allow, 0.0))
     if f_mid is not None:
-        xm = np.array([-a, 0.0, a, PROBE_MID])
-        w3 = _lagrange_weights(xm, t)
-        w2 = _lagrange_weights(xm[1:], t)
-        rows = [f_minus, np.broadcast_to(f0[:, None, :], f_plus.shape), f_plus, f_mid]
         with np.errstate(invalid="ignore", over="ignore"):
-            p3 = sum(w * r for w, r in zip(w3, rows))
-            p2 = sum(w * r for w, r in zip(w2, rows[1:]))
-            allow2 = PROBE_MID_TOLERANCE * np.abs(p3 - p2) + rounding
             if sign is not None:
                 allow2 = np.minimum(allow2, LOG_CLOSER * np.abs(f_probe - p3) + rounding)
-                lrows = [logs[2], np.broadcast_to(logs[0][:, None, :], f_plus.shape), logs[1], logs[4]]
-                p3 = back(sum(w * r for w, r in zip(w3, lrows))) if separable is None else pred
+                if separable is None:
+                    w3 = _lagrange_weights(np.array([-a, 0.0, a, PROBE_MID]), t)
+                    lrows = [logs[2], np.broadcast_to(logs[0][:, None, :], f_plus.shape), logs[1], logs[4]]
+                    p3 = back(sum(w * r for w, r in zip(w3, lrows)))
+                else:
+                    p3 = pred
             elif model is not None:
                 allow2 = np.minimum(allow2, LOG_CLOSER * np.abs(f_probe - p3) + rounding)
                 p3 = pred
@@ -1107,6 +1109,40 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
         if pair:
             plain = np.maximum(plain, short)
     return (plain, excess) if pair else excess
+
+
+def _diagonal(v0: np.ndarray, vp: np.ndarray, vm: np.ndarray, vpr: np.ndarray) -> np.ndarray:
+    """(4, k, v, m): the values at ``-PROBE_POSITION, -a, 0, a`` on each vertex's diagonal (the opposite probe,
+    the two corner nodes, the centre), the order of :func:`diagonal_cubic`."""
+    return np.stack([vpr[:, ::-1, :], vm, np.broadcast_to(v0[:, None, :], vp.shape), vp])
+
+
+def _own_checks(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_probe: np.ndarray, a: float,
+                rounding, f_mid: np.ndarray | None) -> tuple:
+    """``f``'s own extrapolations for :func:`_probe_excess`, the same for every model of one region: the long
+    check's allowance (with ``rounding``) and prediction (the cubic through ``-T, -a, 0, a`` at ``T``), and,
+    with ``f_mid``, the short check's prediction (the cubic through ``-a, 0, a, PROBE_MID``) and allowance
+    (``PROBE_MID_TOLERANCE`` times its difference from the quadratic through the three outer nodes, with
+    ``rounding``); each (k, v, m), computed per element (the rows of a region give the same values alone)."""
+    t = PROBE_POSITION
+    coef = diagonal_cubic(a)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        c = np.einsum("ij,j...->i...", coef, _diagonal(f0, f_plus, f_minus, f_probe))       # (4, k, v, m)
+        allow = (PROBE_TOLERANCE * (PROBE_CURVATURE * np.abs(c[2]) * t * t + np.abs(c[3]) * t ** 3
+                                    + PROBE_SLOPE * np.abs(c[1]) * t)
+                 + rounding)
+        pred = c[0] + c[1] * t + c[2] * t * t + c[3] * t ** 3
+    p3 = allow2 = None
+    if f_mid is not None:
+        xm = np.array([-a, 0.0, a, PROBE_MID])
+        w3 = _lagrange_weights(xm, t)
+        w2 = _lagrange_weights(xm[1:], t)
+        rows = [f_minus, np.broadcast_to(f0[:, None, :], f_plus.shape), f_plus, f_mid]
+        with np.errstate(invalid="ignore", over="ignore"):
+            p3 = sum(w * r for w, r in zip(w3, rows))
+            p2 = sum(w * r for w, r in zip(w2, rows[1:]))
+            allow2 = PROBE_MID_TOLERANCE * np.abs(p3 - p2) + rounding
+    return allow, pred, p3, allow2
 
 
 def diagonal_remainder(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, l2: float, l3: float) -> np.ndarray:
