@@ -765,3 +765,22 @@ def test_vertex_table_lists_the_vertices_in_product_order():
     for n in range(8):
         assert table[n].tolist() == [not (n >> 2) & 1, not (n >> 1) & 1, not n & 1]
     assert not table.flags.writeable
+
+
+@pytest.mark.parametrize("d", [2, 3, 6, 9])
+def test_vertex_sums_add_each_axis_choice_of_every_vertex(d):
+    """The separable model's sum over the axes of the chosen extrapolation (``up`` where the vertex's sign is
+    +1, ``down`` where it is -1), written out as the plain double loop over the vertices (counting in binary,
+    digit 0 for +1, axis 0 the leading digit) and the axes, one addition after another from +0.0."""
+    rng = np.random.default_rng(d)
+    up, down = rng.standard_normal((3, d, 2)), rng.standard_normal((3, d, 2))
+    up[0, 0, 0] = down[0, 0, 0] = -0.0                    # a signed zero among them
+    got = E._vertex_sums(up, down)
+    assert got.shape == (3, 2 ** d, 2)
+    for r in range(3):
+        for v in range(2 ** d):
+            for c in range(2):
+                total = 0.0
+                for i in range(d):
+                    total += float(down[r, i, c] if (v >> (d - 1 - i)) & 1 else up[r, i, c])
+                assert got[r, v, c] == pytest.approx(total, rel=1e-13, abs=1e-15)

@@ -1185,9 +1185,26 @@ def separable_log_prediction(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarra
             return y if power == 0.0 else np.log(np.where(y > 0, y, np.nan)) / power
         up = log_of(sum(w * r for w, r in zip(_lagrange_weights(xs5, t), rows))) - l0[:, None, :]
         down = log_of(sum(w * r for w, r in zip(_lagrange_weights(xs5, -t), rows))) - l0[:, None, :]
-    d = f_ax2.shape[1] // 2
-    pos = _vertex_table(d, (True, False))                                  # (v, d): +1 on axis i
-    return (l0[:, None, :] + np.where(pos[None, :, :, None], up[:, None], down[:, None]).sum(axis=2))
+    return l0[:, None, :] + _vertex_sums(up, down)
+
+
+def _vertex_sums(up: np.ndarray, down: np.ndarray) -> np.ndarray:
+    """(k, v, m): for every vertex sign vector ``s_j`` (``itertools.product((1, -1), repeat=d)`` order), the sum
+    over the axes ``i`` of ``up[:, i]`` where ``s_ji = +1``, else ``down[:, i]`` (``up``, ``down``: (k, d, m)).
+
+    Added up axis after axis from ``+0.0`` (``((0.0 + x_0) + x_1) + ...``), the order in which numpy's
+    ``sum`` over an axis of fewer than 8 entries adds them: built by doubling (the sums of the first ``i`` axes
+    plus either choice of axis ``i``), 2 v additions per region instead of a (k, v, d, m) table.  From 8 axes on
+    numpy sums pairwise, so the table and its ``sum`` are kept there."""
+    k, d, m = up.shape
+    if d >= 8:
+        pos = _vertex_table(d, (True, False))                              # (v, d): +1 on axis i
+        return np.where(pos[None, :, :, None], up[:, None], down[:, None]).sum(axis=2)
+    both = np.stack([up, down], axis=2)                                    # (k, d, 2, m)
+    acc = 0.0 + both[:, 0]                                                 # (k, 2, m)
+    for i in range(1, d):
+        acc = (acc[:, :, None, :] + both[:, i][:, None, :, :]).reshape(k, 2 ** (i + 1), m)
+    return acc
 
 
 def axis_waves(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, l2: float,
