@@ -1267,11 +1267,7 @@ def plane_wave_fit(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, f_pair:
     ref = np.argmax(np.where(np.isfinite(seen), seen, -1.0), axis=1)               # (k, m)
     q = np.take_along_axis(q_ax, ref[:, None, :], axis=1)[:, 0, :]
     w_ref = np.take_along_axis(w_abs, ref[:, None, :], axis=1)[:, 0, :]
-    # node index in f_pair of (s_r, s_k) = (+,+), (+,-), (-,+), (-,-) for every ordered pair (r, k)
-    look = np.zeros((d, d, 4), dtype=np.intp)
-    for n, (i, j) in enumerate(itertools.combinations(range(d), 2)):
-        look[i, j] = 4 * n + np.array([0, 1, 2, 3])
-        look[j, i] = 4 * n + np.array([0, 2, 1, 3])
+    look = _pair_lookup(d)
     sr = np.array([1.0, 1.0, -1.0, -1.0])[None, :, None]
     sk = np.array([1.0, -1.0, 1.0, -1.0])[None, :, None]
     p = f0[:, None, :]
@@ -1287,6 +1283,19 @@ def plane_wave_fit(f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, f_pair:
                 miss.append(np.sum((vals - (p * np.cos(ph) - q[:, None, :] * np.sin(ph))) ** 2, axis=1))
         sign[:, j, :] = np.where((miss[1] < miss[0]) & (ref != j), -1.0, 1.0)
     return q, sign * w_abs
+
+
+@functools.lru_cache(maxsize=16)
+def _pair_lookup(d: int) -> np.ndarray:
+    """(d, d, 4): the index in Genz–Malik's pair group (pairs ``i < j`` in lexicographic order, each as ``(+, +),
+    (+, -), (-, +), (-, -)``) of the node with signs ``(s_r, s_k)`` = (+,+), (+,-), (-,+), (-,-) on the axes
+    ``(r, k)``, for every ordered pair ``r != k`` (read-only; built once per ``d``)."""
+    look = np.zeros((d, d, 4), dtype=np.intp)
+    for n, (i, j) in enumerate(itertools.combinations(range(d), 2)):
+        look[i, j] = 4 * n + np.array([0, 1, 2, 3])
+        look[j, i] = 4 * n + np.array([0, 2, 1, 3])
+    look.setflags(write=False)
+    return look
 
 
 def plane_wave_values(f0: np.ndarray, q: np.ndarray, w: np.ndarray, signs: np.ndarray, t: float) -> np.ndarray:
