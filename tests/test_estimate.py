@@ -784,3 +784,30 @@ def test_vertex_sums_add_each_axis_choice_of_every_vertex(d):
                 for i in range(d):
                     total += float(down[r, i, c] if (v >> (d - 1 - i)) & 1 else up[r, i, c])
                 assert got[r, v, c] == pytest.approx(total, rel=1e-13, abs=1e-15)
+
+
+def test_wave_fits_give_each_box_its_plane_wave_whichever_boxes_are_fitted_with_it(monkeypatch):
+    """The plane-wave fits kept per box (WaveFits) recover the wave vector of cos(theta + a.x) (Genz's oscillatory
+    family, Genz 1984) on each box's Genz–Malik nodes, w = a h up to one common sign (by hand: cos(theta + a.(c +
+    h y))), when read one box at a time, the second box again, and both at once; a box read twice is fitted
+    once."""
+    a = np.array([1.4957, -0.6918, 1.1550])
+    wave = lambda x: math.cos(0.4 + float(a @ x))
+    boxes = [(np.array([0.75, 0.25, 0.5]), np.array([0.25, 0.25, 0.5])),
+             (np.array([0.25, 0.5, 0.125]), np.array([0.25, 0.125, 0.125]))]
+    rows = [(_genz_malik_box(wave, c, h, np.sqrt(9 / 19))[2], _genz_malik_pairs(wave, c, h)) for c, h in boxes]
+    f0 = np.array([[wave(c)] for c, _ in boxes])
+    f_ax2 = np.concatenate([r[0][0] for r in rows])
+    f_ax3 = np.concatenate([r[0][1] for r in rows])
+    f_pair = np.concatenate([r[1][0] for r in rows])
+    l2, l3, l4 = rows[0][0][2], rows[0][0][3], rows[0][1][1]
+    fits = E.WaveFits(f0, f_ax2, f_ax3, f_pair, l2, l3, l4)
+    calls = []
+    real_fit = E.plane_wave_fit
+    monkeypatch.setattr(E, "plane_wave_fit", lambda *args: calls.append(len(args[0])) or real_fit(*args))
+    for index in ([1], [0, 1], [1, 0]):
+        _, w = fits.fit(np.array(index))
+        for n, box in enumerate(index):
+            got = w[n, :, 0] * np.sign(w[n, 0, 0] * a[0])
+            assert np.allclose(got, a * boxes[box][1], rtol=0, atol=1e-9)
+    assert calls == [1, 1]                     # box 1, then box 0 alone: never a box twice

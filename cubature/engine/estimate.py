@@ -700,7 +700,7 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                  f_mid: np.ndarray | None = None, axes: tuple | None = None,
                  pairs: tuple | None = None, dim: int | None = None,
                  watch: list | None = None, vertices: np.ndarray | None = None,
-                 shift: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+                 shift: np.ndarray | None = None, waves: tuple | None = None) -> tuple[np.ndarray, ...]:
     """Error floors of boxes from values near their vertices, where the rule has no nodes.
 
     Along the diagonal from a box's centre towards vertex ``v`` (``t`` in
@@ -790,6 +790,9 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         points in half-widths of this box along any axis (0 for the box's own probes): the probe is allowed
         ``SHIFT_SLACK * d * shift`` times the larger of its value and the nodes' magnitude beyond its allowance
         (the change of a smooth factor or of a power law ``|x - s|^-p``, ``p <= d``, over that distance).
+    waves : tuple ``(fits, index)``, optional
+        With ``pairs``: a :class:`WaveFits` of the same node values and each box's row in it (k,), so that a
+        box whose plane wave was fitted before (:func:`vertex_misses`) is not fitted again (the same values).
     """
     rounding = 1e3 * ROUNDING * scale[:, None, :]
     if shift is not None and np.any(shift > 0):
@@ -849,7 +852,10 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         # a plane wave read from the nodes (any sign) that predicts every probe far closer than f's cubic
         rows = (excess > 0).any(axis=(1, 2))
         f_ax2, f_ax3, l2, l3 = axes
-        q, w = plane_wave_fit(f0[rows], f_ax2[rows], f_ax3[rows], pairs[0][rows], l2, l3, pairs[1])
+        if waves is not None:
+            q, w = waves[0].fit(waves[1][rows])
+        else:
+            q, w = plane_wave_fit(f0[rows], f_ax2[rows], f_ax3[rows], pairs[0][rows], l2, l3, pairs[1])
         d = dim if dim is not None else f_plus.shape[1].bit_length() - 1
         signs = _vertex_table(d, (1.0, -1.0))
         wave = plane_wave_values(f0[rows], q, w, signs, PROBE_POSITION)
@@ -929,7 +935,7 @@ def beyond_cap(floor: np.ndarray, excess: np.ndarray, volume: np.ndarray, share:
 
 
 def vertex_misses(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, a: float, scale: np.ndarray,
-                  axes: tuple | None = None, pairs: tuple | None = None) -> np.ndarray:
+                  axes: tuple | None = None, pairs: tuple | None = None, waves: tuple | None = None) -> np.ndarray:
     """(k, v): how far the sharpest smooth model misses each vertex probe, the largest over components (0 where
     no value is finite).  The models: along the diagonal, the quadratic through the nodes ``-a, 0, a`` of ``f``
     and, where the region's values share one sign, of ``log|f|`` and of the powers :func:`probe_powers`,
@@ -939,7 +945,9 @@ def vertex_misses(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, a: fl
     alone, while a Gaussian, an exponential of a linear form, a corner or product peak, Genz's oscillatory
     family is predicted to rounding by one of the models at every vertex: where the largest miss is, a jump below a
     check's allowance most likely hides (:meth:`cubage.engine.run.Run._domain_corners` looks closer there).
-    ``scale`` (k, m): the magnitude of the region's values; misses within rounding of it count as 0."""
+    ``scale`` (k, m): the magnitude of the region's values; misses within rounding of it count as 0.  ``waves``
+    (``(fits, index)``, with ``pairs``): the plane waves from a :class:`WaveFits` of the same node values, each
+    box's row in it ``index`` (k,), fitted once for this and :func:`probe_errors`."""
     t = PROBE_POSITION
     w = _lagrange_weights(np.array([-a, 0.0, a]), t)
     f_minus = f_plus[:, ::-1, :]
@@ -979,8 +987,11 @@ def vertex_misses(f0: np.ndarray, f_plus: np.ndarray, f_probe: np.ndarray, a: fl
                 pred = take(sign)[:, None, :] * np.exp(separable_log_prediction(f0r, take(axes[0]), take(axes[1]),
                                                                                  axes[2], axes[3], t, power=lam))
             else:
-                q, wv = plane_wave_fit(f0r, take(axes[0]), take(axes[1]), take(pairs[0]), axes[2], axes[3],
-                                       pairs[1])
+                if waves is not None:
+                    q, wv = waves[0].fit(take(waves[1]))
+                else:
+                    q, wv = plane_wave_fit(f0r, take(axes[0]), take(axes[1]), take(pairs[0]), axes[2], axes[3],
+                                           pairs[1])
                 pred = plane_wave_values(f0r, q, wv, _vertex_table(d, (1.0, -1.0)), t)
             if every:
                 miss = np.fmin(miss, np.abs(fpr - pred))
@@ -1304,6 +1315,35 @@ def plane_wave_values(f0: np.ndarray, q: np.ndarray, w: np.ndarray, signs: np.nd
     with np.errstate(invalid="ignore", over="ignore"):
         ph = t * np.einsum("vd,kdm->kvm", signs, w)
         return f0[:, None, :] * np.cos(ph) - q[:, None, :] * np.sin(ph)
+
+
+class WaveFits:
+    """The plane waves of :func:`plane_wave_fit` of the boxes of one array of Genz–Malik node values, each box
+    fitted at most once, when first asked for: the vertex probes' models (:func:`vertex_misses`) and their checks
+    (:func:`probe_errors`) read the same boxes' waves within one step.  ``plane_wave_fit`` works box by box (every
+    operation per element or along a box's own axes), so a box's wave is the same whichever boxes it is fitted
+    with.  ``f0`` (k, m), ``f_ax2``, ``f_ax3`` (k, 2 d, m), ``f_pair`` (k, 2 d (d - 1), m), ``l2``, ``l3``, ``l4``
+    as for :func:`plane_wave_fit`; the arrays must not change while the fits are in use."""
+
+    def __init__(self, f0: np.ndarray, f_ax2: np.ndarray, f_ax3: np.ndarray, f_pair: np.ndarray, l2: float,
+                 l3: float, l4: float):
+        self._args = (f0, f_ax2, f_ax3, f_pair)
+        self._lengths = (l2, l3, l4)
+        k, m = f0.shape
+        self._q = np.empty((k, m))
+        self._w = np.empty((k, f_ax2.shape[1] // 2, m))
+        self._done = np.zeros(k, dtype=bool)
+
+    def fit(self, index: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``(q, w)`` of the boxes ``index`` (int array), as ``plane_wave_fit`` of those boxes gives them."""
+        index = np.asarray(index, dtype=np.intp)
+        new = np.unique(index[~self._done[index]])
+        if new.size:
+            f0, f_ax2, f_ax3, f_pair = self._args
+            l2, l3, l4 = self._lengths
+            q, w = plane_wave_fit(f0[new], f_ax2[new], f_ax3[new], f_pair[new], l2, l3, l4)
+            self._q[new], self._w[new], self._done[new] = q, w, True
+        return self._q[index], self._w[index]
 
 
 def probe_powers(d: int) -> tuple[float, ...]:

@@ -54,8 +54,9 @@ class Probes:
             t = np.concatenate([t.reshape(kp, -1, d), tm.reshape(kp, -1, d), *tf], axis=1).reshape(-1, d)
         return self._values_at(t).reshape(int(probe.sum()), -1, self.m or 1)
 
-    def _suspect_probes(self, g: dict, probe: np.ndarray,
-                        fr: np.ndarray) -> tuple[np.ndarray | None, int | None, np.ndarray | None]:
+    def _suspect_probes(self, g: dict, probe: np.ndarray, fr: np.ndarray,
+                        waves: _estimate.WaveFits | None = None) -> tuple[np.ndarray | None, int | None,
+                                                                          np.ndarray | None]:
         """Probe values (kp, 2 v + 2 d, m) of the Genz-Malik suspects ``probe`` of ``g`` (node values ``fr``) and
         the evaluations they cost: the vertex probes, then the second probe per vertex and the face probes
         (:meth:`_faces_to_probe`) where the vertex probes leave room for a feature (NaN elsewhere).
@@ -69,7 +70,9 @@ class Probes:
         same reason the others take their second probe per vertex only at the vertices the models miss so (the
         4-D diagonal kink's suspects: 7,700 of their 10,256 vertices spared, 167,783 -> 160,091 evaluations).
         Two suspects of one bisection share the vertices of the face between them (:meth:`_sibling_probes`); the
-        third value is how far each value was read from the box's own probe (kp, 2 v + 2 d)."""
+        third value is how far each value was read from the box's own probe (kp, 2 v + 2 d).  ``waves``: the
+        plane waves of ``fr``'s boxes (:meth:`_wave_fits`), fitted once for these models and the checks of
+        :meth:`_probe_floor`."""
         if self.geometry.kind == "box" and self.geometry.children_per_split == 2:
             pv, spent_v, shift_v = self._sibling_probes(g, probe)
         else:
@@ -84,7 +87,7 @@ class Probes:
         axes, pairs = self._node_lines(fp)
         miss = _estimate.vertex_misses(fp[:, 0, :], fp[:, grp[0]:grp[1], :], pv,
                                        float(np.abs(self.rule.nodes[grp[0]]).max()), np.abs(fp).max(axis=1),
-                                       axes, pairs)
+                                       axes, pairs, None if waves is None else (waves, np.nonzero(probe)[0]))
         dlo, dhi = self._domain_bounds()
         # per vertex: a feature beyond the corner node towards a vertex adds to that vertex's miss
         each = ((miss <= _estimate.PROBE_SKIP * float(self.goal().min()) / float(np.prod(dhi - dlo)))
@@ -239,15 +242,18 @@ class Probes:
         return pv, int(need.sum()), shift
 
     def _probe_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
-                     shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+                     shift: np.ndarray | None = None,
+                     waves: _estimate.WaveFits | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                                       np.ndarray]:
         """Error floors (k, m), signature flags (k,), the axis to bisect (k,; -1 for the rule's choice) and
         the regions to watch (k,; those only the remainder allowance cleared, whose children get the short
         checks) from what the rule's differences miss: the vertex probes of the regions ``probe``
         (:meth:`_vertex_floor`) and, for tensor Gauss–Kronrod boxes, every box's per-axis decay check
         (:func:`~cubage.engine.estimate.axis_kink_errors`: a kink across the middle of a box biases its
         15-, 7- and 8-point rules alike, and no probe sees it).  Where the decay check sets the larger
-        floor, the box is bisected across the axis it points to."""
-        floor, deviates, steer, watch = self._vertex_floor(g, fr, pv, probe, shift)
+        floor, the box is bisected across the axis it points to.  ``waves``: the plane waves
+        of ``fr``'s boxes (:meth:`_wave_fits`), if already in use."""
+        floor, deviates, steer, watch = self._vertex_floor(g, fr, pv, probe, shift, waves)
         if "diagonal" not in self.rule.extra or fr.shape[0] == 0:
             return floor, deviates, steer, watch
         vol = self.geometry.volume(g)
@@ -258,10 +264,13 @@ class Probes:
         return np.maximum(floor, kf), deviates | kinked, steer, watch
 
     def _vertex_floor(self, g: dict, fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
-                      shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+                      shift: np.ndarray | None = None,
+                      waves: _estimate.WaveFits | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray,
+                                                                        np.ndarray]:
         """Error floors (k, m), deviation flags (k,), the axis the deviating probes point to (k,; -1
         for none, :func:`~cubage.engine.estimate.probe_axis`) and the regions only the remainder allowance
-        cleared (k,) from the vertex probes of the regions ``probe`` (``shift``: :meth:`_explained_probes`)."""
+        cleared (k,) from the vertex probes of the regions ``probe`` (``shift``: :meth:`_explained_probes`;
+        ``waves``: :meth:`_wave_fits` of ``fr``)."""
         k, m = fr.shape[0], fr.shape[2]
         floor = np.zeros((k, m))
         deviates = np.zeros(k, dtype=bool)
@@ -291,7 +300,8 @@ class Probes:
             fl, dv, ex = _estimate.extrapolation_errors(fp[:, diag, :], self.rule.extra["diagonal_t"], pv, vol,
                                                         np.abs(fp).max(axis=1), by_vertex=True)
         else:
-            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol, wild, shift)
+            fl, dv, ex, watch = self._genz_malik_probes(fp, pv, vol, wild, shift,
+                                                        None if waves is None else (waves, np.nonzero(probe)[0]))
             # a region only the remainder allowance cleared is watched: its children get the short checks
             remainder_watch[probe] = watch & ~dv
             if dv.any():
@@ -312,14 +322,16 @@ class Probes:
         return floor, deviates, steer, remainder_watch
 
     def _genz_malik_probes(self, fp: np.ndarray, pv: np.ndarray, vol: np.ndarray, wild: np.ndarray | None = None,
-                           shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+                           shift: np.ndarray | None = None,
+                           waves: tuple | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Floors (k, m), deviation flags (k,), per-vertex excess (k, v) and the boxes that only the remainder
         allowance cleared (k,; :func:`~cubage.engine.estimate.probe_errors` ``watch``) of Genz–Malik boxes with
         node values ``fp`` and probe values ``pv`` (vertex probes, then mid probes and face probes when taken).
         ``wild`` (k,): boxes whose probe values were clipped (:data:`~cubage.engine.estimate.PROBE_WILD`); their
         floors are not capped (:func:`~cubage.engine.estimate.beyond_cap` reads the excess as the feature's size).
         ``shift`` (k, probes): where a value was read beside its probe
-        (:func:`~cubage.engine.estimate.probe_errors`)."""
+        (:func:`~cubage.engine.estimate.probe_errors`).  ``waves`` ``(fits, index)``: the plane waves of these
+        boxes' node values, each box's row in ``fits`` (:func:`~cubage.engine.estimate.probe_errors`)."""
         if wild is None:
             wild = np.zeros(len(fp), dtype=bool)
         grp = self.rule.extra["groups"]["corner5"]
@@ -332,9 +344,11 @@ class Probes:
                 shift = None if shift is None else shift[:, :nv]
             elif only.any():
                 fl, dv, ex, wt = self._genz_malik_probes(fp[~only], pv[~only], vol[~only], wild[~only],
-                                                         None if shift is None else shift[~only])
+                                                         None if shift is None else shift[~only],
+                                                         None if waves is None else (waves[0], waves[1][~only]))
                 fl1, dv1, ex1, wt1 = self._genz_malik_probes(fp[only], pv[only, :nv], vol[only], wild[only],
-                                                             None if shift is None else shift[only, :nv])
+                                                             None if shift is None else shift[only, :nv],
+                                                             None if waves is None else (waves[0], waves[1][only]))
                 out = (np.empty((len(fp), *fl.shape[1:])), np.empty(len(fp), bool), np.empty((len(fp), nv)),
                        np.empty(len(fp), bool))
                 for o, a_, b_ in zip(out, (fl, dv, ex, wt), (fl1, dv1, ex1, wt1)):
@@ -348,7 +362,7 @@ class Probes:
         fl, dv, ex = _estimate.probe_errors(fp[:, 0, :], fc, fc[:, ::-1, :], pv[:, :nv], a, vol,
                                             np.abs(fp).max(axis=1), by_vertex=True, f_mid=fmid, axes=axes,
                                             pairs=pairs, watch=watch,
-                                            shift=None if shift is None else shift[:, :nv])
+                                            shift=None if shift is None else shift[:, :nv], waves=waves)
         if dv.any():
             # a feature the probes see beyond a resolved box's nodes lies outside their hull: its share of the
             # box is at most the slab beyond the outermost nodes (:func:`~cubage.engine.estimate.beyond_nodes`)
@@ -364,6 +378,13 @@ class Probes:
                                            np.abs(fp).max(axis=1))
             fl, dv = np.maximum(fl, ff), dv | fd
         return fl, dv, ex, watch[0]
+
+    def _wave_fits(self, fr: np.ndarray) -> _estimate.WaveFits:
+        """The plane waves of the Genz–Malik boxes with node values ``fr`` (k, p, m), each fitted when first read
+        (:class:`~cubage.engine.estimate.WaveFits`): :meth:`_suspect_probes` and :meth:`_probe_floor` of one
+        step read the same boxes' waves."""
+        (f_ax2, f_ax3, l2, l3), (f_pair, l4) = self._node_lines(fr)
+        return _estimate.WaveFits(fr[:, 0, :], f_ax2, f_ax3, f_pair, l2, l3, l4)
 
     def _node_lines(self, fp: np.ndarray) -> tuple[tuple, tuple]:
         """The smooth models' inputs from Genz–Malik node values ``fp`` (k, p, m): ``axes`` = (values on the

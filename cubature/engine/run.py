@@ -1048,11 +1048,13 @@ class Run(Probes, Singularities, RuleErrors, SplitChecks, AuditChecks, LatticeCh
         # children that look resolved although their parent showed a non-smooth signature: probe their vertices
         suspect = self._suspects(parents, q, absq, kids)
         # may raise: nothing changed yet
-        spent = shift = None
+        spent = shift = waves = None
         if "diagonal" in self.rule.extra:
             pv = self._probe_values(kids, suspect, mid=True, faces=False)
         else:
-            pv, spent, shift = self._suspect_probes(kids, suspect, fr)
+            if "pair4" in self.rule.extra.get("groups", {}):     # Genz-Malik: the plane waves, fitted once for
+                waves = self._wave_fits(fr)                          # the probes' models and their checks
+            pv, spent, shift = self._suspect_probes(kids, suspect, fr, waves)
         # resolved children a known singularity explains: their vertex probes only (a feature that does not
         # come from the singularity may still cross them, and only a probe sees it)
         light = (self._explained(parents, kids) & self._looks_resolved(q, absq) & ~suspect
@@ -1075,7 +1077,7 @@ class Run(Probes, Singularities, RuleErrors, SplitChecks, AuditChecks, LatticeCh
                 pv, suspect = full, both
         self.queue.pop(k)
         key, new, disagreed = self._replace(idx, parents, kids, q, absq, fr, pv, suspect, 0, spent=spent,
-                                            shift=shift)
+                                            shift=shift, waves=waves)
         if disagreed and np.any(self._hidden > 0.1 * self.goal()):
             self._audit_ok = False                   # a large new discrepancy: the next convergence needs an audit
         self.queue.push(np.concatenate([idx, new]), key)
@@ -1087,13 +1089,14 @@ class Run(Probes, Singularities, RuleErrors, SplitChecks, AuditChecks, LatticeCh
     def _replace(self, idx: np.ndarray, parents: dict, kids: dict, q: np.ndarray, absq: np.ndarray,
                  fr: np.ndarray, pv: np.ndarray | None, probe: np.ndarray,
                  extra_flag: int, nch: int | None = None,
-                 spent: int | None = None, shift: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, int]:
+                 spent: int | None = None, shift: np.ndarray | None = None,
+                 waves: _estimate.WaveFits | None = None) -> tuple[np.ndarray, np.ndarray, int]:
         """Write the children of the split parents ``idx`` into the store (the parent's row is reused,
         the other children appended) after the split check; returns (children's keys, appended rows,
         number of surprises: parents whose children disagreed with them beyond their estimate, plus
         children whose vertex probes raised their estimate).  ``spent``: the probes evaluated, when not
         every entry of ``pv`` was; ``shift``: where a probe value was read beside the probe
-        (:meth:`_explained_probes`)."""
+        (:meth:`_explained_probes`); ``waves``: the plane waves of ``fr``'s boxes (:meth:`_wave_fits`)."""
         st = self.store
         k = len(idx)
         nch = nch or self.geometry.children_per_split
@@ -1126,7 +1129,7 @@ class Run(Probes, Singularities, RuleErrors, SplitChecks, AuditChecks, LatticeCh
         if "dwin" in st.columns:
             err, windows, implied = self._lineage_tails(parents, child_sum, raw.reshape(nch, k, m), err, wary,
                                                         noise, D)
-        floor, deviates, steer, watched = self._probe_floor(kids, fr, pv, probe, shift)
+        floor, deviates, steer, watched = self._probe_floor(kids, fr, pv, probe, shift, waves)
         raised = (floor > err).any(axis=1)
         # error the parents' estimates did not account for: measured discrepancy beyond the estimate, and
         # what the vertex probes added on top of the children's corrected estimates
