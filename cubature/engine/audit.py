@@ -286,13 +286,16 @@ class AuditChecks:
         tol = 1e-12 * np.maximum(1.0, np.abs(c).max())
         found = np.full(len(wide), -1, np.intp)
         for j in range(len(feat)):
-            inside = (wlo <= flo[j] + tol) & (whi >= fhi[j] - tol)                      # (n, d)
-            meet = (wlo <= fhi[j] + tol) & (whi >= flo[j] - tol)                         # (n, d)
-            narrow = wh >= STRADDLE_RATIO * fh[j][None, :]
+            # the boxes still without a feature that meet this one (few), then the axes along which they hold it
+            meet = np.nonzero(((wlo <= fhi[j] + tol) & (whi >= flo[j] - tol)).all(axis=1) & (found < 0))[0]
+            if meet.size == 0:
+                continue
+            inside = (wlo[meet] <= flo[j] + tol) & (whi[meet] >= fhi[j] - tol)          # (n, d)
+            narrow = wh[meet] >= STRADDLE_RATIO * fh[j][None, :]
             ax = inside & narrow
-            hit = ax.any(axis=1) & meet.all(axis=1) & (found < 0)
+            hit = ax.any(axis=1)
             if hit.any():
-                found[hit] = np.argmax(ax[hit], axis=1)
+                found[meet[hit]] = np.argmax(ax[hit], axis=1)
         rows = np.nonzero(found >= 0)[0]
         if rows.size == 0:
             return none
