@@ -810,6 +810,15 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                                       both=True, base=base)
     else:
         excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, base=base)
+    allow_cache: list = []
+
+    def model_allow(rows):
+        """The allowance (rows, v, m) every model is held to at the probes (as :func:`_probe_excess` computes
+        it: f's own, at most ``LOG_CLOSER`` times f's own deviation plus rounding), built once per call."""
+        if not allow_cache:
+            with np.errstate(invalid="ignore", over="ignore"):
+                allow_cache.append(np.minimum(base[0], LOG_CLOSER * np.abs(f_probe - base[1]) + rounding))
+        return allow_cache[0][rows]
     # a probe that a smooth model of log|f| predicts within f's own allowance is no signature: at coarse scales a
     # positive integrand is often far closer to exp(cubic) than to a cubic along a long diagonal (a Gaussian's
     # logarithm is a quadratic), while a kink or jump of f is one of log|f| too.  Only where the region's values
@@ -834,17 +843,34 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                 rows = (open_ & ~explained).any(axis=1)
                 if not rows.any():
                     break
+                node_log = None
+                if sep is not None:
+                    # the separable model explains a component only where it predicts every corner node within
+                    # the allowance (a necessary condition, :func:`_node_fits`): its prediction at the probes
+                    # and the checks are computed on those regions' rows alone
+                    part = (sep[0][rows], sep[1][rows], sep[2], sep[3])
+                    node_log = separable_log_prediction(f0[rows], *part, a, power=lam)
+                    if vertices is not None:
+                        node_log = np.take_along_axis(node_log, vertices[rows][:, :, None], axis=1)
+                    with np.errstate(invalid="ignore", over="ignore"):
+                        node_pred = sign[rows][:, None, :] * np.exp(node_log)
+                    fits = _node_fits(f_plus[rows], node_pred, model_allow(rows))
+                    keep = (fits & open_[rows] & ~explained[rows]).any(axis=1)
+                    if not keep.any():
+                        continue
+                    node_log = node_log[keep]
+                    rows[rows] = keep
                 if rows.all():
                     explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
                                                 power=lam, separable=sep, pick=None if sep is None else vertices,
-                                                base=base) == 0.0).all(axis=1)
+                                                base=base, node_log=node_log) == 0.0).all(axis=1)
                     continue
                 part = None if sep is None else (sep[0][rows], sep[1][rows], sep[2], sep[3])
                 pick = None if sep is None or vertices is None else vertices[rows]
                 explained[rows] |= (_probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a,
                                                   rounding[rows], None if f_mid is None else f_mid[rows],
                                                   sign=sign[rows], power=lam, separable=part, pick=pick,
-                                                  base=_base_rows(base, rows)) == 0.0).all(axis=1)
+                                                  base=_base_rows(base, rows), node_log=node_log) == 0.0).all(axis=1)
         excess = np.where((pos & explained)[:, None, :], 0.0, excess)
         if remainder is not None:
             loose = np.where((pos & explained)[:, None, :], 0.0, loose)
@@ -858,16 +884,23 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
             q, w = plane_wave_fit(f0[rows], f_ax2[rows], f_ax3[rows], pairs[0][rows], l2, l3, pairs[1])
         d = dim if dim is not None else f_plus.shape[1].bit_length() - 1
         signs = _vertex_table(d, (1.0, -1.0))
-        wave = plane_wave_values(f0[rows], q, w, signs, PROBE_POSITION)
         wave_nodes = plane_wave_values(f0[rows], q, w, signs, a)
         if vertices is not None:
-            wave = np.take_along_axis(wave, vertices[rows][:, :, None], axis=1)
             wave_nodes = np.take_along_axis(wave_nodes, vertices[rows][:, :, None], axis=1)
-        fm = f_mid[rows] if f_mid is not None else None
-        wexcess = _probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a, rounding[rows], fm,
-                                model=(wave, wave_nodes), base=_base_rows(base, rows))
+        # only where the wave predicts every corner node of some component within the allowance can it explain
+        # that component (:func:`_node_fits`): its values at the probes and the checks on those rows alone
+        keep = _node_fits(f_plus[rows], wave_nodes, model_allow(rows)).any(axis=1)
         explained = np.zeros(excess.shape[::2], dtype=bool)
-        explained[rows] = (wexcess == 0.0).all(axis=1)
+        if keep.any():
+            q, w, wave_nodes = q[keep], w[keep], wave_nodes[keep]
+            rows[rows] = keep
+            wave = plane_wave_values(f0[rows], q, w, signs, PROBE_POSITION)
+            if vertices is not None:
+                wave = np.take_along_axis(wave, vertices[rows][:, :, None], axis=1)
+            fm = f_mid[rows] if f_mid is not None else None
+            wexcess = _probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a, rounding[rows], fm,
+                                    model=(wave, wave_nodes), base=_base_rows(base, rows))
+            explained[rows] = (wexcess == 0.0).all(axis=1)
         excess = np.where(explained[:, None, :], 0.0, excess)
         if remainder is not None:
             loose = np.where(explained[:, None, :], 0.0, loose)
@@ -1037,7 +1070,8 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
                   power: float = 0.0, separable: tuple | None = None,
                   model: np.ndarray | None = None, remainder: np.ndarray | None = None,
                   pick: np.ndarray | None = None, both: bool = False,
-                  base: tuple | None = None) -> np.ndarray | tuple[np.ndarray, ...]:
+                  base: tuple | None = None,
+                  node_log: np.ndarray | None = None) -> np.ndarray | tuple[np.ndarray, ...]:
     """Excess (k, v, m) of each probe's deviation from the extrapolations over its allowance (see
     :func:`probe_errors`); 0 where a value is not finite.  With ``sign`` (k, m: the common sign of a region's
     values), the predictions are the same extrapolations of ``log|f|`` (``power`` 0; else of ``|f|^power``),
@@ -1055,7 +1089,8 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
     ``remainder`` (k, m) widens the long check's allowance by the fourth-order remainder term; with ``both``
     (and ``remainder``, no model), the pair ``(excess without it, excess with it)`` from one pass.  ``base``:
     :func:`_own_checks` of the same values (f's own extrapolations, the same for every model), if already
-    computed."""
+    computed.  ``node_log`` (k, v, m): with ``separable``, its prediction at the corner nodes (of the vertices
+    ``pick``), if already computed."""
     if base is None:
         base = _own_checks(f0, f_plus, f_minus, f_probe, a, rounding, f_mid)
     allow, pred, p3, allow2 = base
@@ -1073,10 +1108,13 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
             allow = np.minimum(allow, LOG_CLOSER * np.abs(f_probe - pred) + rounding)
             if separable is not None:
                 sep = separable_log_prediction(f0, *separable, t, power=power)
-                at_node = separable_log_prediction(f0, *separable, a, power=power)
+                at_node = node_log
+                if at_node is None:
+                    at_node = separable_log_prediction(f0, *separable, a, power=power)
+                    if pick is not None:
+                        at_node = np.take_along_axis(at_node, pick[:, :, None], axis=1)
                 if pick is not None:
                     sep = np.take_along_axis(sep, pick[:, :, None], axis=1)
-                    at_node = np.take_along_axis(at_node, pick[:, :, None], axis=1)
                 pred = sign[:, None, :] * np.exp(sep)
                 node_dev = np.abs(f_plus - sign[:, None, :] * np.exp(at_node))
             else:
@@ -1120,6 +1158,17 @@ def _probe_excess(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_pro
         if pair:
             plain = np.maximum(plain, short)
     return (plain, excess) if pair else excess
+
+
+def _node_fits(f_plus: np.ndarray, node_model: np.ndarray, allow: np.ndarray) -> np.ndarray:
+    """(k, m): a model's values ``node_model`` at the corner nodes (k, v, m) are finite and within ``allow``
+    (the allowance :func:`_probe_excess` holds the model to) of ``f_plus`` at every vertex.  A necessary
+    condition for the model to explain a component's checks: there the deviation is the larger of the probe's
+    and the node's (infinite where the node's is not finite), and ``dev - allow <= 0`` implies ``node_dev -
+    allow <= 0`` (rounding is monotone)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        node_dev = np.abs(f_plus - node_model)
+        return (np.isfinite(node_dev) & (node_dev - allow <= 0)).all(axis=1)
 
 
 def _diagonal(v0: np.ndarray, vp: np.ndarray, vm: np.ndarray, vpr: np.ndarray) -> np.ndarray:
