@@ -812,6 +812,15 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, base=base)
     allow_cache: list = []
 
+    def power_excess(rows, lam, mid):
+        """:func:`_probe_excess` of the power model ``lam`` on the rows ``rows`` (all of them as one array),
+        with the short checks at ``mid`` (None: the long check alone)."""
+        if rows.all():
+            return _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, mid, sign=sign, power=lam, base=base)
+        return _probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a, rounding[rows],
+                             None if mid is None else mid[rows], sign=sign[rows], power=lam,
+                             base=_base_rows(base, rows))
+
     def model_allow(rows):
         """The allowance (rows, v, m) every model is held to at the probes (as :func:`_probe_excess` computes
         it: f's own, at most ``LOG_CLOSER`` times f's own deviation plus rounding), built once per call."""
@@ -859,6 +868,14 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                     if not keep.any():
                         continue
                     node_log = node_log[keep]
+                    rows[rows] = keep
+                elif f_mid is not None:
+                    # a component is explained only where the long check (its excess without the short one, the
+                    # same values) passes at every vertex: the short check only on those regions' rows
+                    keep = ((power_excess(rows, lam, None) == 0.0).all(axis=1) & open_[rows]
+                            & ~explained[rows]).any(axis=1)
+                    if not keep.any():
+                        continue
                     rows[rows] = keep
                 if rows.all():
                     explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
