@@ -1287,3 +1287,27 @@ def test_a_smooth_run_is_not_held_back_by_the_value_trend():
     assert res.converged and res.trust["smooth"]
     _honest(res, exact, 1e-4)
     assert run.checks.get("trend_held_back", 0) == 0
+
+
+def test_audit_near_boxes_finds_every_box_that_meets_an_interval():
+    """The audit's prefilter (engine.audit._Near) returns a superset of the boxes that meet an interval along an
+    axis, compared with the definition written out here (two intervals ``[c - h, c + h]`` and ``[lo, hi]`` meet
+    when each starts before the other ends, common practice), on the boxes of random bisections of [0, 1]: the
+    audit tests its candidates exactly, so a superset keeps its result."""
+    from cubage.engine.audit import _Near
+    rng = np.random.default_rng(5)
+    for trial in range(40):
+        boxes = [(0.5, 0.5)]
+        for _ in range(int(rng.integers(1, 300))):
+            c, h = boxes.pop(int(rng.integers(len(boxes))))
+            boxes += [(c - h / 2, h / 2), (c + h / 2, h / 2)]
+        centre, halfw = np.array(boxes).T
+        near = _Near(centre, halfw, 1e-9)
+        for _ in range(20):
+            lo = float(rng.random())
+            hi = lo + float(rng.random()) * 0.1 * (trial % 3)
+            want = np.nonzero((centre - halfw <= hi) & (centre + halfw >= lo))[0]
+            got = near.within(lo, hi)
+            if got is None:                 # more half-widths than it groups: the caller tests every box
+                continue
+            assert np.all(np.diff(got) > 0) and set(want) <= set(got), (trial, lo, hi)

@@ -285,9 +285,18 @@ class AuditChecks:
         wlo, whi, wh = (c[wide] - h[wide]), (c[wide] + h[wide]), h[wide]
         tol = 1e-12 * np.maximum(1.0, np.abs(c).max())
         found = np.full(len(wide), -1, np.intp)
+        # (sorting pays from a few thousand boxes on: 3-D kink, 0.38 -> 0.08 s per audit)
+        near = _Near(c[wide, 0], wh[:, 0], 1e-9 * (1.0 + np.abs(c).max() + np.abs(h).max())) \
+            if len(wide) >= 4096 else None
         for j in range(len(feat)):
-            # the boxes still without a feature that meet this one (few), then the axes along which they hold it
-            meet = np.nonzero(((wlo <= fhi[j] + tol) & (whi >= flo[j] - tol)).all(axis=1) & (found < 0))[0]
+            # the boxes still without a feature that meet this one (few), then the axes along which they hold it;
+            # tested among the boxes whose centre along the first axis is near enough to meet it there (_Near)
+            cand = None if near is None else near.within(flo[j, 0] - tol, fhi[j, 0] + tol)
+            if cand is None:
+                meet = np.nonzero(((wlo <= fhi[j] + tol) & (whi >= flo[j] - tol)).all(axis=1) & (found < 0))[0]
+            else:
+                meet = cand[((wlo[cand] <= fhi[j] + tol) & (whi[cand] >= flo[j] - tol)).all(axis=1)
+                            & (found[cand] < 0)]
             if meet.size == 0:
                 continue
             inside = (wlo[meet] <= flo[j] + tol) & (whi[meet] >= fhi[j] - tol)          # (n, d)
@@ -355,3 +364,37 @@ class AuditChecks:
         r = rows[raise_]
         self._set_errors(r, np.maximum(st["error"][r], need[raise_]))
         self.checks["corner_floors_kept"] = int(self.checks.get("corner_floors_kept", 0)) + int(raise_.sum())
+
+
+class _Near:
+    """The boxes (centres ``centre`` (n,) and half-widths ``halfw`` (n,) along one axis) that may meet an
+    interval ``[lo, hi]`` along it: a box meets it there when ``centre - halfw <= hi`` and ``centre + halfw >=
+    lo``, so its centre lies in ``[lo - halfw, hi + halfw]``; grouped by half-width (a bisection has few) and
+    sorted by centre within each group, those centres are two binary searches per group away.  ``slack``
+    widens each window beyond the rounding of ``centre -+ halfw`` (a superset: the caller tests the boxes
+    found exactly).  With more than :attr:`GROUPS` half-widths, :meth:`within` gives None (test them all)."""
+
+    GROUPS = 64
+
+    def __init__(self, centre: np.ndarray, halfw: np.ndarray, slack: float):
+        widths, which = np.unique(halfw, return_inverse=True)
+        self.groups = []
+        if len(widths) > self.GROUPS:
+            return
+        for g, w in enumerate(widths):
+            idx = np.nonzero(which == g)[0]
+            order = np.argsort(centre[idx], kind="stable")
+            self.groups.append((float(w) + slack, centre[idx][order], idx[order]))
+
+    def within(self, lo: float, hi: float) -> np.ndarray | None:
+        """Indices (ascending) of the boxes whose centre is within their half-width (plus the slack) of
+        ``[lo, hi]``; None with too many half-widths."""
+        if not self.groups:
+            return None
+        parts = []
+        for reach, cs, idx in self.groups:
+            a = int(np.searchsorted(cs, lo - reach, side="left"))
+            b = int(np.searchsorted(cs, hi + reach, side="right"))
+            if b > a:
+                parts.append(idx[a:b])
+        return np.sort(np.concatenate(parts)) if parts else np.zeros(0, np.intp)
