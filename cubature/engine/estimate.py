@@ -812,14 +812,19 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
         excess = _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, base=base)
     allow_cache: list = []
 
-    def power_excess(rows, lam, mid):
-        """:func:`_probe_excess` of the power model ``lam`` on the rows ``rows`` (all of them as one array),
-        with the short checks at ``mid`` (None: the long check alone)."""
+    def model_excess(rows, lam, sep, mid, node_log=None):
+        """:func:`_probe_excess` of the power model ``lam`` (along the diagonal, or separable on the axis lines
+        ``sep``) on the rows ``rows`` (all of them as one array), with the short checks at ``mid`` (None: the
+        long check alone) and ``node_log`` (the separable prediction at those rows' corner nodes, if made)."""
         if rows.all():
-            return _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, mid, sign=sign, power=lam, base=base)
+            return _probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, mid, sign=sign, power=lam,
+                                 separable=sep, pick=None if sep is None else vertices, base=base,
+                                 node_log=node_log)
+        part = None if sep is None else (sep[0][rows], sep[1][rows], sep[2], sep[3])
+        pick = None if sep is None or vertices is None else vertices[rows]
         return _probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a, rounding[rows],
-                             None if mid is None else mid[rows], sign=sign[rows], power=lam,
-                             base=_base_rows(base, rows))
+                             None if mid is None else mid[rows], sign=sign[rows], power=lam, separable=part,
+                             pick=pick, base=_base_rows(base, rows), node_log=node_log)
 
     def model_allow(rows):
         """The allowance (rows, v, m) every model is held to at the probes (as :func:`_probe_excess` computes
@@ -872,22 +877,12 @@ def probe_errors(f0: np.ndarray, f_plus: np.ndarray, f_minus: np.ndarray, f_prob
                 elif f_mid is not None:
                     # a component is explained only where the long check (its excess without the short one, the
                     # same values) passes at every vertex: the short check only on those regions' rows
-                    keep = ((power_excess(rows, lam, None) == 0.0).all(axis=1) & open_[rows]
+                    keep = ((model_excess(rows, lam, None, None) == 0.0).all(axis=1) & open_[rows]
                             & ~explained[rows]).any(axis=1)
                     if not keep.any():
                         continue
                     rows[rows] = keep
-                if rows.all():
-                    explained |= (_probe_excess(f0, f_plus, f_minus, f_probe, a, rounding, f_mid, sign=sign,
-                                                power=lam, separable=sep, pick=None if sep is None else vertices,
-                                                base=base, node_log=node_log) == 0.0).all(axis=1)
-                    continue
-                part = None if sep is None else (sep[0][rows], sep[1][rows], sep[2], sep[3])
-                pick = None if sep is None or vertices is None else vertices[rows]
-                explained[rows] |= (_probe_excess(f0[rows], f_plus[rows], f_minus[rows], f_probe[rows], a,
-                                                  rounding[rows], None if f_mid is None else f_mid[rows],
-                                                  sign=sign[rows], power=lam, separable=part, pick=pick,
-                                                  base=_base_rows(base, rows), node_log=node_log) == 0.0).all(axis=1)
+                explained[rows] |= (model_excess(rows, lam, sep, f_mid, node_log) == 0.0).all(axis=1)
         excess = np.where((pos & explained)[:, None, :], 0.0, excess)
         if remainder is not None:
             loose = np.where((pos & explained)[:, None, :], 0.0, loose)
